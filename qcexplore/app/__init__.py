@@ -1,0 +1,1 @@
+"""The ipywidgets explorer."""

@@ -1,0 +1,1 @@
+"""Reading, reshaping, validating and deriving: everything before the statistics."""

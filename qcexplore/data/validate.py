@@ -1,0 +1,206 @@
+"""The one place where input is checked: every problem becomes a QCDataError.
+
+Messages name the column, the first offending rows (as 1-based row numbers of the
+table the user gave) and what to do.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from qcexplore.errors import QCDataError
+
+_SHOWN_ROWS = 5
+_DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d{1,3}(?:[.\s']\d{3})*,\d+\s*$|^\s*[-+]?\d+,\d+\s*$")
+
+
+def row_list(positions: Iterable[int]) -> str:
+    """The first few 1-based row numbers, for messages."""
+    rows = [int(p) + 1 for p in positions]
+    shown = ", ".join(map(str, rows[:_SHOWN_ROWS]))
+    more = f" and {len(rows) - _SHOWN_ROWS} more" if len(rows) > _SHOWN_ROWS else ""
+    return f"row{'s' if len(rows) > 1 else ''} {shown}{more}"
+
+
+def require_frame(frame: object) -> pd.DataFrame:
+    """Check that ``frame`` is a pandas DataFrame with unique, non-empty column names."""
+    if not isinstance(frame, pd.DataFrame):
+        raise QCDataError(
+            f"Expected a table (pandas DataFrame), got {type(frame).__name__}; "
+            "read files with qx.read(path) first."
+        )
+    duplicated = frame.columns[frame.columns.duplicated()].unique().tolist()
+    if duplicated:
+        raise QCDataError(
+            f"Duplicate column names {duplicated}: rename the columns so each name is used once."
+        )
+    if len(frame) == 0:
+        raise QCDataError("The table has no rows: check the file or the filter that made it.")
+    return frame
+
+
+def require_columns(frame: pd.DataFrame, columns: Sequence[object], role: str) -> None:
+    """Raise if any of ``columns`` is missing, listing what is there."""
+    missing = [c for c in columns if c not in frame.columns]
+    if missing:
+        available = ", ".join(map(repr, list(frame.columns)[:20]))
+        raise QCDataError(
+            f"Column{'s' if len(missing) > 1 else ''} {', '.join(map(repr, missing))} "
+            f"given as {role} not found; the table has: {available}."
+        )
+
+
+def _parse_text_numbers(text: pd.Series) -> pd.Series:
+    """Numbers written as text, with a decimal point or a decimal comma."""
+    stripped = text.str.strip()
+    comma = stripped.str.match(_DECIMAL_COMMA).fillna(False).astype(bool)
+    converted = stripped.where(
+        ~comma, stripped.str.replace(r"[.\s']", "", regex=True).str.replace(",", ".")
+    )
+    return pd.to_numeric(converted, errors="coerce")
+
+
+def numeric_values(frame: pd.DataFrame, column: str) -> pd.Series:
+    """The column as float64; text numbers and decimal commas converted.
+
+    Cells that hold something other than a number, a blank or a missing value
+    raise a QCDataError listing their rows. Missing and infinite values stay in
+    the result as NaN/inf for the caller to count and drop.
+    """
+    series = frame[column]
+    if pd.api.types.is_bool_dtype(series.dtype):
+        raise QCDataError(
+            f"Column {column!r} holds true/false values, not measurements; "
+            "choose the column with the measured values."
+        )
+    if pd.api.types.is_numeric_dtype(series.dtype):
+        return series.astype(np.float64)
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        series = series.astype(object)
+    text = series.astype("string")
+    blank = text.isna() | (text.str.strip() == "")
+    parsed = _parse_text_numbers(text.fillna(""))
+    parsed = parsed.where(~blank)
+    unreadable = np.flatnonzero((parsed.isna() & ~blank).to_numpy())
+    if unreadable.size:
+        examples = ", ".join(repr(str(series.iloc[i])) for i in unreadable[:3])
+        raise QCDataError(
+            f"Column {column!r} has cells that are not numbers ({examples}) in "
+            f"{row_list(unreadable)}; correct or blank them in the source."
+        )
+    return parsed.astype(np.float64)
+
+
+@dataclass(frozen=True)
+class DroppedRows:
+    """Rows left out of the analysis and why (1-based row numbers of the input)."""
+
+    missing: tuple[int, ...] = ()
+    infinite: tuple[int, ...] = ()
+
+    @property
+    def count(self) -> int:
+        return len(self.missing) + len(self.infinite)
+
+    def describe(self) -> str:
+        parts = []
+        if self.missing:
+            parts.append(
+                f"{len(self.missing)} missing value(s) ({row_list(np.array(self.missing) - 1)})"
+            )
+        if self.infinite:
+            parts.append(
+                f"{len(self.infinite)} infinite value(s) ({row_list(np.array(self.infinite) - 1)})"
+            )
+        return "; ".join(parts) + " left out" if parts else "no rows left out"
+
+
+def finite_mask(values: pd.Series) -> tuple[np.ndarray, DroppedRows]:
+    """Which values can be used, and which rows were dropped for which reason."""
+    array = values.to_numpy(dtype=np.float64)
+    missing = np.isnan(array)
+    infinite = np.isinf(array)
+    dropped = DroppedRows(
+        missing=tuple(int(i) + 1 for i in np.flatnonzero(missing)),
+        infinite=tuple(int(i) + 1 for i in np.flatnonzero(infinite)),
+    )
+    return ~(missing | infinite), dropped
+
+
+def as_factor(series: pd.Series) -> pd.Series:
+    """A categorical column; missing values become the level ``"(missing)"``.
+
+    Levels keep their natural order (numbers numerically, text as first seen in
+    sorted order) so that the same data always give the same colours and tables.
+    """
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        cat = series
+    else:
+        cat = series.astype("category")
+    if cat.isna().any():
+        cat = cat.cat.add_categories(["(missing)"]).fillna("(missing)")
+    return cat.cat.remove_unused_categories()
+
+
+def parse_times(series: pd.Series, column: str) -> pd.Series:
+    """Timestamps (with or without time zone) or a numeric order column."""
+    if pd.api.types.is_datetime64_any_dtype(series.dtype):
+        parsed = series
+    elif pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(
+        series.dtype
+    ):
+        parsed = series.astype(np.float64)
+    else:
+        text = series.astype("string")
+        try:
+            parsed = pd.to_datetime(text, errors="coerce", format="mixed")
+        except (ValueError, TypeError) as error:
+            # Mixed time zones in one column cannot share one dtype.
+            parsed = pd.to_datetime(text, errors="coerce", format="mixed", utc=True)
+            if parsed.isna().all():
+                raise QCDataError(
+                    f"Column {column!r} could not be read as times ({error}); "
+                    "write them as ISO dates like 2026-03-29 06:15, one time zone per column."
+                ) from None
+        bad = np.flatnonzero((parsed.isna() & text.notna() & (text.str.strip() != "")).to_numpy())
+        if bad.size:
+            examples = ", ".join(repr(str(series.iloc[i])) for i in bad[:3])
+            raise QCDataError(
+                f"Column {column!r} has cells that are not times ({examples}) in "
+                f"{row_list(bad)}; write them as ISO dates like 2026-03-29 06:15."
+            )
+    missing = np.flatnonzero(pd.isna(parsed).to_numpy())
+    if missing.size:
+        raise QCDataError(
+            f"Column {column!r} has missing times in {row_list(missing)}; "
+            "fill them in or leave the time column out."
+        )
+    return parsed
+
+
+def check_role_names(
+    value: str,
+    subgroup: str | None,
+    time: str | None,
+    factors: Sequence[str],
+    measured_by: Sequence[str],
+) -> None:
+    """Catch contradictory role assignments before any data are touched."""
+    for name, given in (("factors", factors), ("measured_by", measured_by)):
+        if isinstance(given, str):
+            raise QCDataError(
+                f"{name} must be a list of column names, got the string {given!r}; "
+                f"write {name}=[{given!r}]."
+            )
+    if value in factors or value == subgroup or value == time:
+        raise QCDataError(
+            f"Column {value!r} is the value and cannot also be the subgroup, time or a factor."
+        )
+    repeated = sorted({f for f in factors if list(factors).count(f) > 1})
+    if repeated:
+        raise QCDataError(f"Factors {repeated} are listed more than once; list each once.")

@@ -1,0 +1,1 @@
+"""Bokeh figures built from results: pure functions, no statistics, no state."""

@@ -1,0 +1,287 @@
+"""Our visual language: colours, sizes and the few helpers every figure shares.
+
+Quiet and legible on a projector: light background, small filled circles joined
+by a thin grey line, a solid centre line, dashed limits in a muted colour and
+signals as a larger hollow marker in one accent colour. Strata take their colour
+from the Okabe-Ito colour-blind-safe set (Okabe and Ito, "Color Universal
+Design", 2008), in a fixed order, so the same level keeps its colour on every
+panel that is given the same ordered levels.
+
+Nothing here computes a statistic: the helpers only turn result columns into
+positions, colours and labels.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from bokeh.models import AdaptiveTicker, ColumnDataSource, LayoutDOM
+from bokeh.plotting import figure
+
+from qcexplore.stats.rules import RULE_TEXT
+
+#: Strata colours: the Okabe-Ito set without its vermillion (kept for signals), with the
+#: yellow last because it is the weakest on a light background.
+STRATA_COLORS: tuple[str, ...] = (
+    "#0072B2",  # blue
+    "#E69F00",  # orange
+    "#009E73",  # bluish green
+    "#CC79A7",  # reddish purple
+    "#56B4E9",  # sky blue
+    "#000000",  # black
+    "#F0E442",  # yellow
+)
+ACCENT = "#D55E00"  # Okabe-Ito vermillion: signals and detected steps only
+POINT = "#3b3b3b"  # values when there are no strata
+LINE = "#b0b0b0"  # thin joining line
+CENTER = "#3b3b3b"
+LIMIT = "#8a8a8a"
+BAND = "#d9d9d9"
+BACKGROUND = "#ffffff"
+GRID = "#ececec"
+
+POINT_SIZE = 5
+SIGNAL_SIZE = 12
+LINE_WIDTH = 1.0
+
+#: Above this many points a figure draws through WebGL.
+WEBGL_FROM = 5_000
+#: Above this many points the joining line is left out: at that density the points
+#: read as a band, and a quarter of a million line segments would slow every redraw.
+LINE_UP_TO = 20_000
+
+WIDTH = 900
+HEIGHT = 300
+SECONDARY_HEIGHT = 180
+
+
+def palette_for(levels: Iterable[Any]) -> dict[Any, str]:
+    """Colour of each stratum level, in the order given.
+
+    The i-th distinct level gets the i-th colour of :data:`STRATA_COLORS`, so the same
+    ordered list of levels always gives the same colours. With more levels than colours
+    the colours repeat (the panel titles and hover text still name each level).
+
+    Parameters
+    ----------
+    levels : iterable
+        The levels in their display order (for a pandas Categorical, its categories).
+
+    Returns
+    -------
+    dict
+        ``{level: "#rrggbb"}``.
+
+    Examples
+    --------
+    >>> palette_for(["crew A", "crew B"])
+    {'crew A': '#0072B2', 'crew B': '#E69F00'}
+    """
+    out: dict[Any, str] = {}
+    for level in levels:
+        if level not in out:
+            out[level] = STRATA_COLORS[len(out) % len(STRATA_COLORS)]
+    return out
+
+
+def levels_of(column: pd.Series) -> list[Any]:
+    """Display order of a stratum column: its categories, else sorted distinct values.
+
+    Missing values are not a level. Using all categories (also unused ones) keeps a
+    level's colour the same when a panel shows only part of the data.
+
+    Examples
+    --------
+    >>> levels_of(pd.Series(["b", "a", "b", None]))
+    ['a', 'b']
+    """
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        return list(column.cat.categories)
+    present = pd.unique(column.dropna())
+    try:
+        return sorted(present)
+    except TypeError:  # mixed types: keep the order of first appearance
+        return list(present)
+
+
+def colors_for(column: pd.Series, levels: Sequence[Any]) -> np.ndarray:
+    """One colour per row: its level's colour, or :data:`POINT` where the level is missing.
+
+    Examples
+    --------
+    >>> colors_for(pd.Series(["b", None]), ["a", "b"]).tolist()
+    ['#E69F00', '#3b3b3b']
+    """
+    palette = palette_for(levels)
+    mapped = column.astype(object).map(palette)
+    return mapped.where(mapped.notna(), POINT).to_numpy(dtype=object)
+
+
+def labels(column: pd.Series) -> np.ndarray:
+    """Plain text labels for hover tooltips and panel filters (missing -> empty text).
+
+    Examples
+    --------
+    >>> labels(pd.Series([1, None])).tolist()
+    ['1', '']
+    """
+    return column.astype(object).where(column.notna(), "").astype(str).to_numpy(dtype=object)
+
+
+def rule_words(rules: pd.Series) -> np.ndarray:
+    """The rules that fired, as ids with their plain-words description, one text per row.
+
+    Rows where no rule fired get an empty text; only the signalled rows are formatted,
+    so a long series without signals costs one pass.
+
+    Examples
+    --------
+    >>> rule_words(pd.Series([("N1",), ()])).tolist()
+    ['N1: one point beyond the control limits', '']
+    """
+    out = np.full(len(rules), "", dtype=object)
+    fired = rules.map(lambda ids: bool(ids) if isinstance(ids, (tuple, list)) else False)
+    idx = np.flatnonzero(fired.to_numpy(dtype=bool))
+    values = rules.to_numpy(dtype=object)
+    for i in idx:
+        out[i] = "; ".join(f"{r}: {RULE_TEXT.get(r, r)}" for r in values[i])
+    return out
+
+
+def rule_ids(rules: pd.Series) -> np.ndarray:
+    """The rule ids that fired, joined with commas, one text per row.
+
+    Examples
+    --------
+    >>> rule_ids(pd.Series([("N1", "N5"), ()])).tolist()
+    ['N1, N5', '']
+    """
+    return np.array(
+        [", ".join(r) if isinstance(r, (tuple, list)) else "" for r in rules], dtype=object
+    )
+
+
+def time_ms(column: pd.Series) -> np.ndarray:
+    """Times as float milliseconds since the epoch (bokeh's datetime axis unit).
+
+    Time-zone aware times keep their wall-clock reading (the hour the crew saw);
+    missing times become NaN.
+
+    Examples
+    --------
+    >>> time_ms(pd.Series(pd.to_datetime(["1970-01-01 00:00:01"]))).tolist()
+    [1000.0]
+    """
+    times = pd.to_datetime(column)
+    if getattr(times.dt, "tz", None) is not None:
+        times = times.dt.tz_localize(None)
+    ns = times.astype("datetime64[ns]").to_numpy().astype("int64").astype(float)
+    ns[times.isna().to_numpy()] = np.nan
+    return ns / 1e6
+
+
+def boundaries(x: np.ndarray, pad: float) -> tuple[np.ndarray, np.ndarray]:
+    """Left and right edge of each sorted position: halfway to its neighbours.
+
+    The first and last edges reach half a gap beyond the end points (``pad`` when there
+    is a single point), so a limit drawn over ``[left, right]`` covers each point's slot.
+
+    Examples
+    --------
+    >>> boundaries(np.array([1.0, 2.0, 4.0]), 0.5)
+    (array([0.5, 1.5, 3. ]), array([1.5, 3. , 5. ]))
+    """
+    if x.size == 0:
+        return x.copy(), x.copy()
+    mids = (x[1:] + x[:-1]) / 2.0
+    first = x[0] - (mids[0] - x[0] if x.size > 1 else pad)
+    last = x[-1] + (x[-1] - mids[-1] if x.size > 1 else pad)
+    return np.concatenate([[first], mids]), np.concatenate([mids, [last]])
+
+
+def new_figure(
+    name: str,
+    title: str,
+    *,
+    width: int = WIDTH,
+    height: int = HEIGHT,
+    webgl: bool = False,
+    **kwargs: Any,
+) -> figure:
+    """A figure in our style: light background, light grid, a few plain tools.
+
+    Examples
+    --------
+    >>> new_figure("demo", "A title").name
+    'demo'
+    """
+    fig = figure(
+        name=name,
+        title=title,
+        width=width,
+        height=height,
+        output_backend="webgl" if webgl else "canvas",
+        tools="pan,box_zoom,wheel_zoom,reset,save",
+        toolbar_location="right",
+        background_fill_color=BACKGROUND,
+        border_fill_color=BACKGROUND,
+        **kwargs,
+    )
+    fig.title.text_font_size = "12pt"
+    fig.title.text_font_style = "normal"
+    fig.xgrid.grid_line_color = GRID
+    fig.ygrid.grid_line_color = GRID
+    fig.outline_line_color = None
+    fig.axis.axis_label_text_font_style = "normal"
+    fig.axis.minor_tick_line_color = None
+    return fig
+
+
+def whole_number_ticks(fig: figure) -> None:
+    """Ticks on whole numbers only (subgroup positions, lags).
+
+    Examples
+    --------
+    >>> fig = new_figure("demo", "A title"); whole_number_ticks(fig)
+    """
+    fig.xaxis.ticker = AdaptiveTicker(min_interval=1, mantissas=[1, 2, 5], num_minor_ticks=0)
+
+
+def source(name: str, data: Mapping[str, Any]) -> ColumnDataSource:
+    """A named ColumnDataSource (the names are what :func:`refresh` looks up).
+
+    Examples
+    --------
+    >>> source("demo_points", {"x": [1]}).name
+    'demo_points'
+    """
+    return ColumnDataSource(data=dict(data), name=name)
+
+
+def panel_names(base: str, count: int) -> list[str]:
+    """Figure names of a layout's panels: ``base`` alone, else ``base_0``, ``base_1``, ...
+
+    Examples
+    --------
+    >>> panel_names("chart", 1), panel_names("chart", 2)
+    (['chart'], ['chart_0', 'chart_1'])
+    """
+    return [base] if count == 1 else [f"{base}_{i}" for i in range(count)]
+
+
+def spec_of(layout: LayoutDOM) -> dict[str, Any] | None:
+    """The build description a figure function stored in its layout's ``tags``.
+
+    Examples
+    --------
+    >>> from bokeh.layouts import column
+    >>> spec_of(column(name="x", tags=[{"figure": "chart"}]))
+    {'figure': 'chart'}
+    """
+    for tag in layout.tags:
+        if isinstance(tag, dict) and "figure" in tag:
+            return tag
+    return None

@@ -1,0 +1,1 @@
+"""Pure computation: numpy, scipy and statsmodels in, frozen result dataclasses out."""

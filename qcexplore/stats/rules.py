@@ -1,0 +1,243 @@
+"""Run rules (Western Electric and Nelson) evaluated over a whole series at once.
+
+Each rule looks at the standardised distance of each plotted point from the centre line,
+z = (stat - center) / sigma, where sigma is the standard error of that point. Windows are
+counted with cumulative sums, so the cost is a handful of array passes whatever the length.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from qcexplore.errors import QCDataError
+
+RULE_SETS: dict[str, tuple[str, ...]] = {
+    "western_electric": ("WE1", "WE2", "WE3", "WE4"),
+    "nelson": ("N1", "N2", "N3", "N4", "N5", "N6", "N7", "N8"),
+}
+
+RULE_TEXT: dict[str, str] = {
+    "WE1": "one point beyond the control limits",
+    "WE2": "two of three points in a row more than 2 sigma from the centre, on the same side",
+    "WE3": "four of five points in a row more than 1 sigma from the centre, on the same side",
+    "WE4": "eight points in a row on the same side of the centre line",
+    "N1": "one point beyond the control limits",
+    "N2": "nine points in a row on the same side of the centre line",
+    "N3": "six points in a row steadily increasing or steadily decreasing",
+    "N4": "fourteen points in a row alternating up and down",
+    "N5": "two of three points in a row more than 2 sigma from the centre, on the same side",
+    "N6": "four of five points in a row more than 1 sigma from the centre, on the same side",
+    "N7": "fifteen points in a row within 1 sigma of the centre (either side)",
+    "N8": "eight points in a row more than 1 sigma from the centre (either side)",
+}
+
+
+def resolve_rules(rules: str | Sequence[str]) -> tuple[str, ...]:
+    """Turn a rule-set name, a rule id or a sequence of them into a tuple of rule ids.
+
+    Parameters
+    ----------
+    rules : str or sequence of str
+        ``"western_electric"``, ``"nelson"``, a single id such as ``"N2"``, or a sequence
+        of ids and set names (case is ignored; duplicates are dropped, order is kept).
+
+    Returns
+    -------
+    tuple of str
+        Rule ids in the order given.
+
+    Raises
+    ------
+    QCDataError
+        For an unknown name or id.
+
+    Examples
+    --------
+    >>> resolve_rules("western_electric")
+    ('WE1', 'WE2', 'WE3', 'WE4')
+    >>> resolve_rules(["n1", "N5"])
+    ('N1', 'N5')
+    """
+    items = [rules] if isinstance(rules, str) else list(rules)
+    out: list[str] = []
+    for item in items:
+        if not isinstance(item, str):
+            raise QCDataError(f"rules: {item!r} is not a rule id; use ids such as 'N1' or 'WE2'.")
+        key = item.strip()
+        if key.lower() in RULE_SETS:
+            expanded = RULE_SETS[key.lower()]
+        elif key.upper() in RULE_TEXT:
+            expanded = (key.upper(),)
+        else:
+            raise QCDataError(
+                f"rules: unknown rule {item!r}; use 'western_electric', 'nelson' or ids from "
+                f"{', '.join(RULE_TEXT)}."
+            )
+        out.extend(r for r in expanded if r not in out)
+    return tuple(out)
+
+
+def _as_column(name: str, value: object, size: int | None) -> np.ndarray:
+    arr = np.asarray(value, dtype=float)
+    if arr.ndim > 1:
+        raise QCDataError(f"{name}: expected a one-dimensional array, got shape {arr.shape}.")
+    if size is not None and arr.ndim == 1 and arr.size != size:
+        raise QCDataError(
+            f"{name}: has {arr.size} values but stat has {size}; pass one per plotted point."
+        )
+    return np.broadcast_to(arr, (size,)) if size is not None else arr
+
+
+def _window(hit: np.ndarray, width: int, start: np.ndarray, need: int) -> np.ndarray:
+    """True where ``hit`` holds here and in at least ``need`` of the last ``width`` points.
+
+    Windows are cut at the start of each segment, so a pattern never spans two segments; a
+    cut window still completes an m-of-w pattern once it holds m hits (as a run-rule chart
+    started afresh would signal).
+    """
+    total = np.zeros(hit.size + 1, dtype=np.int64)
+    np.cumsum(hit, out=total[1:])
+    here = np.arange(hit.size)
+    first = np.maximum(here - (width - 1), start)
+    return hit & (total[here + 1] - total[first] >= need)
+
+
+def _rule_masks(
+    z: np.ndarray, dev: np.ndarray, start: np.ndarray, ids: tuple[str, ...], sigma_level: float
+) -> dict[str, np.ndarray]:
+    """Boolean mask per rule id over points already grouped by segment."""
+    pos = np.arange(z.size) - start  # points before this one in its segment
+    step = np.zeros(z.size)
+    step[1:] = np.diff(dev)
+    step[pos < 1] = 0.0  # no step across a segment boundary
+    up, down = step > 0, step < 0
+
+    def run(hit: np.ndarray, width: int) -> np.ndarray:
+        return _window(hit, width, start, width)
+
+    def same_side(level: float, need: int, width: int) -> np.ndarray:
+        return _window(z > level, width, start, need) | _window(z < -level, width, start, need)
+
+    def alternating(width: int) -> np.ndarray:
+        turn = np.zeros(z.size, dtype=bool)
+        turn[1:] = (up[1:] & down[:-1]) | (down[1:] & up[:-1])
+        turn &= pos >= 2
+        return run(turn, width)
+
+    makers = {
+        "beyond": lambda: np.abs(z) > sigma_level,
+        "2of3": lambda: same_side(2.0, 2, 3),
+        "4of5": lambda: same_side(1.0, 4, 5),
+        "side8": lambda: run(z > 0, 8) | run(z < 0, 8),
+        "side9": lambda: run(z > 0, 9) | run(z < 0, 9),
+        "trend6": lambda: run(up, 5) | run(down, 5),
+        "alt14": lambda: alternating(12),
+        "inside15": lambda: run(np.abs(z) < 1.0, 15),
+        "outside8": lambda: run(np.abs(z) > 1.0, 8),
+    }
+    pattern = {
+        "WE1": "beyond", "WE2": "2of3", "WE3": "4of5", "WE4": "side8",
+        "N1": "beyond", "N2": "side9", "N3": "trend6", "N4": "alt14",
+        "N5": "2of3", "N6": "4of5", "N7": "inside15", "N8": "outside8",
+    }  # fmt: skip
+    cache: dict[str, np.ndarray] = {}
+    for rule in ids:
+        key = pattern[rule]
+        if key not in cache:
+            cache[key] = makers[key]()
+    return {rule: cache[pattern[rule]] for rule in ids}
+
+
+def evaluate_rules(
+    stat: Sequence[float] | np.ndarray,
+    center: float | Sequence[float] | np.ndarray,
+    sigma: float | Sequence[float] | np.ndarray,
+    rules: str | Sequence[str],
+    *,
+    sigma_level: float = 3.0,
+    segments: Sequence[int] | np.ndarray | None = None,
+) -> tuple[np.ndarray, list[tuple[str, ...]]]:
+    """Flag the points of a control chart that complete a run-rule pattern.
+
+    Parameters
+    ----------
+    stat : array of float
+        The plotted points in time order.
+    center, sigma : float or array of float
+        Centre line and standard error of each plotted point (zone k is center +- k*sigma).
+    rules : str or sequence of str
+        Rule-set name or rule ids (see :func:`resolve_rules`).
+    sigma_level : float, default 3.0
+        Limits for the "beyond the limits" rules (WE1, N1) are center +- sigma_level*sigma;
+        the zone rules stay at 1 and 2 sigma.
+    segments : array of int, optional
+        Segment label of each point (e.g. one per stratum of a split chart); each segment's
+        points, in their order, are evaluated as a sequence of their own.
+
+    Returns
+    -------
+    signal : ndarray of bool
+        True where at least one rule fires.
+    fired : list of tuple of str
+        For each point, the ids of the rules that fire there, in the order of ``rules``.
+
+    Notes
+    -----
+    Points whose stat, center or sigma is NaN are skipped: they never fire and the patterns
+    run on across them. The point that completes a pattern is flagged (for "m of w" rules,
+    only a point that is itself on the far side of the zone line). Trends and alternation
+    are read on stat - center. Rule definitions follow Western Electric (Statistical Quality
+    Control Handbook, 1956) and Nelson (J. Quality Technology 16, 1984) (common practice);
+    each is checked against sequences built to have, and to just miss, its pattern.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> signal, fired = evaluate_rules([0, 0.5, 3.5, 0], 0.0, 1.0, "nelson")
+    >>> signal.tolist(), fired[2]
+    ([False, False, True, False], ('N1',))
+    """
+    ids = resolve_rules(rules)
+    stat_arr = _as_column("stat", stat, None)
+    size = stat_arr.size
+    center_arr = _as_column("center", center, size)
+    sigma_arr = _as_column("sigma", sigma, size)
+    if not (np.isfinite(sigma_level) and sigma_level > 0):
+        raise QCDataError(f"sigma_level={sigma_level!r}: must be a positive number, e.g. 3.")
+    negative = np.flatnonzero(sigma_arr < 0)
+    if negative.size:
+        raise QCDataError(
+            f"sigma: negative standard errors at positions {negative[:5].tolist()}; "
+            "sigma must be the (non-negative) standard error of each point."
+        )
+    dev_all = stat_arr - center_arr
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z_all = dev_all / sigma_arr
+    keep = np.flatnonzero(~np.isnan(z_all))
+    new_segment = np.zeros(keep.size, dtype=bool)
+    if segments is not None:
+        seg = np.asarray(segments)
+        if seg.shape != (size,):
+            raise QCDataError(
+                f"segments: has shape {seg.shape} but stat has {size} values; "
+                "pass one segment label per point."
+            )
+        seg = seg[keep]
+        order = np.argsort(seg, kind="stable")
+        keep, seg = keep[order], seg[order]
+        new_segment[1:] = seg[1:] != seg[:-1]
+    new_segment[:1] = True
+    start = np.maximum.accumulate(np.where(new_segment, np.arange(keep.size), 0))
+
+    masks = _rule_masks(z_all[keep], dev_all[keep], start, ids, float(sigma_level))
+    code = np.zeros(size, dtype=np.int64)
+    for bit, rule in enumerate(ids):
+        code[keep[masks[rule]]] |= 1 << bit
+    # Map each distinct combination once, then spread it with one gather (no per-point loop).
+    present = np.flatnonzero(np.bincount(code, minlength=1))
+    table = np.empty(int(present[-1]) + 1, dtype=object)
+    for c in present.tolist():
+        table[c] = tuple(rule for bit, rule in enumerate(ids) if c >> bit & 1)
+    return code > 0, table[code].tolist()

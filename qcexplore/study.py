@@ -1,0 +1,523 @@
+"""The Study: validated data, the roles of its columns, and cached results.
+
+``Study`` is the one facade that findings, draw, app, report and cli need. It
+only stores, validates and delegates: every number comes from ``qcexplore.stats``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from qcexplore.data.derive import DERIVED_FACTORS, derive_time_factors, shift_starts
+from qcexplore.data.io import read
+from qcexplore.data.validate import (
+    DroppedRows,
+    as_factor,
+    check_role_names,
+    finite_mask,
+    numeric_values,
+    parse_times,
+    require_columns,
+    require_frame,
+    row_list,
+)
+from qcexplore.errors import QCDataError
+from qcexplore.spec import Spec
+from qcexplore.stats.results import CapabilityResult, ChartResult, TimeResult, VariationResult
+from qcexplore.stats.subgroups import subgroup_table
+
+#: Name of the internal column that numbers individual values when there is no subgroup.
+OBSERVATION = "observation"
+
+
+def _as_tuple(names: Sequence[str] | str | None, role: str) -> tuple[str, ...]:
+    if names is None:
+        return ()
+    if isinstance(names, str):
+        raise QCDataError(
+            f"{role} must be a list of column names, got the string {names!r}; "
+            f"write {role}=[{names!r}]."
+        )
+    return tuple(names)
+
+
+class Study:
+    """An investigation of one measured characteristic.
+
+    Parameters
+    ----------
+    frame : the data, one row per measurement (pandas, polars or pyarrow table)
+    value : the measured characteristic (numeric; text numbers and decimal commas
+        are converted; missing and infinite values are left out and counted)
+    subgroup : column naming the rational subgroup (an hour, a day, a lot);
+        ``None`` means individual values in time order
+    time : timestamps or an order column; with timestamps the derived factors
+        ``weekday``, ``hour`` and ``day`` are available, and ``shift`` when
+        ``shifts`` is given
+    factors : stratification columns (derived names may be listed)
+    measured_by : the factors that describe how a sample was taken or measured
+        (added to ``factors`` if not listed there)
+    shifts : shift names to start clocks, e.g. ``{"early": "06:00", "late": "14:00"}``
+    spec : a ``Spec`` (or a dict of its arguments)
+    units : the unit of the value, for titles and findings
+
+    Examples
+    --------
+    >>> from qcexplore.demo import filling_line
+    >>> frame, truth = filling_line()
+    >>> s = Study(frame, value="net_g", subgroup="round", time="taken_at",
+    ...           factors=["crew", "shift", "nozzle"], measured_by=["crew"])
+    >>> int(s.subgroups["n"].max())
+    5
+    """
+
+    def __init__(
+        self,
+        frame: Any,
+        *,
+        value: str,
+        subgroup: str | None = None,
+        time: str | None = None,
+        factors: Sequence[str] = (),
+        measured_by: Sequence[str] = (),
+        shifts: Mapping[str, str] | None = None,
+        spec: Spec | Mapping[str, float] | None = None,
+        units: str | None = None,
+    ) -> None:
+        factors = _as_tuple(factors, "factors")
+        measured_by = _as_tuple(measured_by, "measured_by")
+        factors = factors + tuple(m for m in measured_by if m not in factors)
+        check_role_names(value, subgroup, time, factors, measured_by)
+        if shifts is not None:
+            shift_starts(shifts)
+        source = read(frame)
+        require_frame(source)
+        require_columns(source, [value], "value")
+        if subgroup is not None:
+            require_columns(source, [subgroup], "subgroup")
+        if time is not None:
+            require_columns(source, [time], "time")
+
+        values = numeric_values(source, value)
+        keep, dropped = finite_mask(values)
+        data = source.loc[keep].copy()
+        data[value] = values[keep].to_numpy()
+        if time is not None:
+            data[time] = parse_times(data[time], time)
+            for name, series in derive_time_factors(data[time], shifts).items():
+                if name not in data.columns:
+                    data[name] = series
+        elif shifts is not None:
+            raise QCDataError("shifts need a time column with timestamps: give time=.")
+        derived_here = [d for d in DERIVED_FACTORS if d in data.columns and d not in source.columns]
+        missing = [f for f in factors if f not in data.columns]
+        if missing:
+            hint = (
+                " (weekday, hour and day need time= with timestamps; shift also needs shifts=)"
+                if set(missing) & set(DERIVED_FACTORS)
+                else ""
+            )
+            require_columns(data, missing, f"factors{hint}")
+        if subgroup in factors:
+            raise QCDataError(
+                f"{subgroup!r} is the subgroup and cannot also be a factor; a factor is "
+                "compared across subgroups, so choose a column that groups them."
+            )
+        for name in factors:
+            data[name] = as_factor(data[name])
+        if len(data) == 0:
+            raise QCDataError(f"Column {value!r} has no usable values ({dropped.describe()}).")
+
+        data = self._order(data, subgroup, time)
+        self._value = value
+        self._subgroup = subgroup
+        self._time = time
+        self._factors = factors
+        self._measured_by = measured_by
+        self._shifts = dict(shifts) if shifts is not None else None
+        self._spec = Spec(**spec) if isinstance(spec, Mapping) else spec
+        self._units = units
+        self._dropped = dropped
+        self._derived = tuple(derived_here)
+        self._data = data
+        self._cache: dict[tuple, Any] = {}
+
+    @staticmethod
+    def _order(data: pd.DataFrame, subgroup: str | None, time: str | None) -> pd.DataFrame:
+        """Rows in time order; the subgroup as an ordered categorical in time order.
+
+        Subgroups are ordered by their first time (else by first appearance), and
+        the rows of one subgroup are kept together.
+        """
+        if time is not None:
+            data = data.sort_values(time, kind="stable")
+        if subgroup is None:
+            data = data.reset_index(drop=True)
+            data[OBSERVATION] = pd.Categorical(np.arange(1, len(data) + 1), ordered=True)
+            return data
+        labels = data[subgroup]
+        absent = np.flatnonzero(labels.isna().to_numpy())
+        if absent.size:
+            raise QCDataError(
+                f"Column {subgroup!r} (the subgroup) is empty in {row_list(absent)}; "
+                "fill it in or leave those rows out."
+            )
+        order = pd.unique(labels.to_numpy())
+        data[subgroup] = pd.Categorical(labels.to_numpy(), categories=order, ordered=True)
+        codes = data[subgroup].cat.codes.to_numpy()
+        return data.iloc[np.argsort(codes, kind="stable")].reset_index(drop=True)
+
+    # ---- roles -----------------------------------------------------------------
+    @property
+    def value(self) -> str:
+        """The measured characteristic's column."""
+        return self._value
+
+    @property
+    def subgroup(self) -> str | None:
+        """The subgroup column, or None for individual values."""
+        return self._subgroup
+
+    @property
+    def time(self) -> str | None:
+        """The time or order column, if any."""
+        return self._time
+
+    @property
+    def factors(self) -> tuple[str, ...]:
+        """Stratification factors (measured_by included)."""
+        return self._factors
+
+    @property
+    def measured_by(self) -> tuple[str, ...]:
+        """Factors that describe how a sample was taken or measured."""
+        return self._measured_by
+
+    @property
+    def process_factors(self) -> tuple[str, ...]:
+        """Factors that describe the process (all factors not in measured_by)."""
+        return tuple(f for f in self._factors if f not in self._measured_by)
+
+    @property
+    def shifts(self) -> dict[str, str] | None:
+        """The shift start clocks, if given."""
+        return None if self._shifts is None else dict(self._shifts)
+
+    @property
+    def spec(self) -> Spec | None:
+        """The specification, if given."""
+        return self._spec
+
+    @property
+    def units(self) -> str | None:
+        """The unit of the value, if given."""
+        return self._units
+
+    @property
+    def dropped(self) -> int:
+        """How many rows were left out for missing or infinite values."""
+        return self._dropped.count
+
+    @property
+    def dropped_rows(self) -> DroppedRows:
+        """The rows left out and why (1-based row numbers of the input table)."""
+        return self._dropped
+
+    @property
+    def derived_factors(self) -> tuple[str, ...]:
+        """Factors derived from the time column that can be used like any other."""
+        return self._derived
+
+    @property
+    def available_factors(self) -> tuple[str, ...]:
+        """Every column that can split a chart: the factors and the derived factors."""
+        return self._factors + tuple(d for d in self._derived if d not in self._factors)
+
+    @property
+    def data(self) -> pd.DataFrame:
+        """The validated long table (a copy), in time order, derived factors added."""
+        return self._data.drop(columns=[OBSERVATION], errors="ignore")
+
+    @property
+    def frame(self) -> pd.DataFrame:
+        """The frame handed to ``qcexplore.stats`` (read-only by convention)."""
+        return self._data
+
+    @property
+    def subgroup_column(self) -> str:
+        """The column that defines the plotted points (the observation number for individuals)."""
+        return self._subgroup if self._subgroup is not None else OBSERVATION
+
+    def roles(self) -> dict[str, Any]:
+        """The roles as plain data: enough to build the same Study again on the same table."""
+        spec = self._spec
+        return {
+            "value": self._value,
+            "subgroup": self._subgroup,
+            "time": self._time,
+            "factors": list(self._factors),
+            "measured_by": list(self._measured_by),
+            "shifts": self.shifts,
+            "spec": None
+            if spec is None
+            else {"lsl": spec.lsl, "usl": spec.usl, "target": spec.target},
+            "units": self._units,
+        }
+
+    def __repr__(self) -> str:
+        k = len(self.subgroups)
+        return (
+            f"Study of {self._value!r}: {len(self._data)} values in {k} "
+            f"{'subgroups' if self._subgroup else 'individual points'}; "
+            f"factors {list(self._factors)}; measured_by {list(self._measured_by)}; "
+            f"{self._dropped.describe()}"
+        )
+
+    # ---- results -----------------------------------------------------------------
+    def _cached(self, key: tuple, compute: Callable[[], Any]) -> Any:
+        if key not in self._cache:
+            self._cache[key] = compute()
+        return self._cache[key]
+
+    @property
+    def subgroups(self) -> pd.DataFrame:
+        """One row per subgroup: ``subgroup, n, mean, sd, range, start`` and constant factors."""
+        table = self._cached(
+            ("subgroups",),
+            lambda: subgroup_table(
+                self._data,
+                value=self._value,
+                subgroup=self.subgroup_column,
+                time=self._time,
+                factors=self.available_factors,
+            ),
+        )
+        return table.copy()
+
+    def restrict(self, start: Any = None, end: Any = None) -> Study:
+        """A new Study on the rows whose time lies in ``[start, end]`` (a date window)."""
+        if self._time is None:
+            raise QCDataError("A date window needs a time column: build the Study with time=.")
+        times = self._data[self._time]
+        keep = np.ones(len(times), dtype=bool)
+        for bound, compare in ((start, np.greater_equal), (end, np.less_equal)):
+            if bound is None:
+                continue
+            if pd.api.types.is_datetime64_any_dtype(times.dtype):
+                bound = pd.Timestamp(bound)
+                tz = getattr(times.dt, "tz", None)
+                if tz is not None and bound.tzinfo is None:
+                    bound = bound.tz_localize(tz)
+            keep &= compare(times, bound).to_numpy()
+        if not keep.any():
+            raise QCDataError(f"No rows between {start} and {end}: widen the date window.")
+        subset = self.data.loc[keep]
+        return Study(subset, **self.roles())
+
+    def adjusted_frame(self, adjust_for: Sequence[str] | bool | None = None) -> pd.DataFrame:
+        """The frame with each measured_by level's offset removed from the value.
+
+        ``adjust_for=True`` removes every measured_by factor's offsets; a list
+        names them. The offsets come from ``stats.variation.measurement_offsets``.
+        """
+        chosen = self._adjust_factors(adjust_for)
+        if not chosen:
+            return self._data
+
+        def compute() -> pd.DataFrame:
+            from qcexplore.stats.variation import adjusted_values, measurement_offsets
+
+            offsets = measurement_offsets(
+                self._data,
+                value=self._value,
+                subgroup=self.subgroup_column,
+                measured_by=chosen,
+                factors=self.process_factors,
+            )
+            adjusted = self._data.copy()
+            adjusted[self._value] = adjusted_values(self._data, value=self._value, offsets=offsets)
+            return adjusted
+
+        return self._cached(("adjusted", chosen), compute)
+
+    def _adjust_factors(self, adjust_for: Sequence[str] | bool | None) -> tuple[str, ...]:
+        if adjust_for is None or adjust_for is False:
+            return ()
+        if adjust_for is True:
+            if not self._measured_by:
+                raise QCDataError(
+                    "adjust_for=True needs measured_by factors: build the Study with "
+                    "measured_by=['crew'] (or whichever columns describe how samples were taken)."
+                )
+            return self._measured_by
+        chosen = _as_tuple(adjust_for, "adjust_for")
+        unknown = [f for f in chosen if f not in self._measured_by]
+        if unknown:
+            raise QCDataError(
+                f"adjust_for names {unknown}, which are not measured_by factors "
+                f"({list(self._measured_by)}); only sampling/measurement offsets are removed."
+            )
+        return chosen
+
+    def chart(
+        self,
+        kind: str = "auto",
+        *,
+        by: str | None = None,
+        limits: str = "pooled",
+        sigma_level: float = 3.0,
+        sigma_method: str = "within",
+        center: float | None = None,
+        sigma: float | None = None,
+        rules: str | Sequence[str] = "nelson",
+        exclude: Sequence[Any] = (),
+        adjust_for: Sequence[str] | bool | None = None,
+        iterate: bool = False,
+        **params: Any,
+    ) -> ChartResult:
+        """A control chart of the subgroups (see ``qcexplore.stats.charts.control_chart``).
+
+        ``adjust_for`` charts the value with the named measured_by offsets removed
+        (``True`` for all of them), so the process can be seen without the
+        sampling effect. ``params``: ``lam``, ``L`` (EWMA), ``k``, ``h`` (CUSUM),
+        ``size`` (the number inspected, for p, np and u charts), ``laney``.
+
+        Examples
+        --------
+        >>> from qcexplore.demo import filling_line
+        >>> s = Study(filling_line()[0], value="net_g", subgroup="round")
+        >>> s.chart().kind
+        'xbar_r'
+        """
+        from qcexplore.stats.charts import control_chart
+
+        if by is not None and by not in self.available_factors:
+            raise QCDataError(
+                f"by={by!r} is not a factor of this study; choose one of "
+                f"{list(self.available_factors)}."
+            )
+        exclude = tuple(exclude)
+        rules_key = rules if isinstance(rules, str) else tuple(rules)
+        chosen = self._adjust_factors(adjust_for)
+        key = (
+            "chart", kind, by, limits, float(sigma_level), sigma_method, center, sigma,
+            rules_key, exclude, chosen, bool(iterate), tuple(sorted(params.items())),
+        )  # fmt: skip
+        return self._cached(
+            key,
+            lambda: control_chart(
+                self.adjusted_frame(chosen),
+                value=self._value,
+                subgroup=self.subgroup_column,
+                time=self._time,
+                kind=kind,
+                by=by,
+                limits=limits,
+                sigma_level=sigma_level,
+                sigma_method=sigma_method,
+                center=center,
+                sigma=sigma,
+                rules=rules_key,
+                exclude=exclude,
+                iterate=iterate,
+                **params,
+            ),
+        )
+
+    def variation(self, factors: Sequence[str] | None = None) -> VariationResult:
+        """The variance taken apart into its sources (``qcexplore.stats.variation``)."""
+        from qcexplore.stats.variation import variation
+
+        chosen = self._factors if factors is None else _as_tuple(factors, "factors")
+        unknown = [f for f in chosen if f not in self.available_factors]
+        if unknown:
+            raise QCDataError(
+                f"factors {unknown} are not factors of this study; choose from "
+                f"{list(self.available_factors)}."
+            )
+        return self._cached(
+            ("variation", chosen),
+            lambda: variation(
+                self._data,
+                value=self._value,
+                subgroup=self.subgroup_column,
+                factors=chosen,
+                measured_by=tuple(m for m in self._measured_by if m in chosen),
+                time=self._time,
+            ),
+        )
+
+    def series(self, adjust_for: Sequence[str] | bool | None = None) -> pd.DataFrame:
+        """The plotted series: ``subgroup, start, mean, n`` in time order."""
+        chosen = self._adjust_factors(adjust_for)
+        table = subgroup_table(
+            self.adjusted_frame(chosen),
+            value=self._value,
+            subgroup=self.subgroup_column,
+            time=self._time,
+        )
+        return table[["subgroup", "start", "mean", "n"]]
+
+    def time_structure(self, max_lag: int | None = None) -> TimeResult:
+        """Autocorrelation and step changes of the subgroup means.
+
+        The means are taken after removing the measured_by offsets, so a crew
+        that reads high is not mistaken for a step in the process.
+        """
+        from qcexplore.stats.timeseries import time_structure
+
+        adjust = bool(self._measured_by)
+        return self._cached(
+            ("time", max_lag),
+            lambda: time_structure(self.series(adjust_for=adjust or None), max_lag=max_lag),
+        )
+
+    def capability(self, spec: Spec | Mapping[str, float] | None = None) -> CapabilityResult:
+        """Capability against the specification (the study's, or the one given)."""
+        from qcexplore.stats.capability import capability
+
+        chosen = Spec(**spec) if isinstance(spec, Mapping) else (spec or self._spec)
+        if chosen is None:
+            raise QCDataError(
+                "Capability needs a specification: give spec=qx.Spec(lsl=...) to the Study "
+                "or to capability()."
+            )
+
+        def compute() -> CapabilityResult:
+            chart = self.chart()
+            beyond = chart.points["rules"].map(lambda fired: "N1" in fired or "WE1" in fired)
+            sigma_within = float(chart.limits["sigma"].iloc[0])
+            return capability(
+                self._data[self._value].to_numpy(),
+                lsl=chosen.lsl,
+                usl=chosen.usl,
+                target=chosen.target,
+                sigma_within=sigma_within,
+                in_control=not bool(beyond.any()),
+            )
+
+        return self._cached(("capability", chosen), compute)
+
+    def findings(self, **options: Any) -> list:
+        """Ranked plain-language findings, strongest first (``qcexplore.findings``)."""
+        from qcexplore.findings import findings
+
+        key = ("findings", tuple(sorted(options.items())))
+        return list(self._cached(key, lambda: tuple(findings(self, **options))))
+
+    def explore(self, **options: Any) -> Any:
+        """The interactive explorer widget for this study."""
+        from qcexplore.app.explorer import Explorer
+
+        return Explorer(self, **options)
+
+    def report(self, path: str | Path, **options: Any) -> Path:
+        """Write one self-contained HTML report and return its path."""
+        from qcexplore.report import write_report
+
+        return write_report(self, path, **options)
