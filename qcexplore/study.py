@@ -114,7 +114,10 @@ class Study:
                     data[name] = series
         elif shifts is not None:
             raise QCDataError("shifts need a time column with timestamps: give time=.")
-        derived_here = [d for d in DERIVED_FACTORS if d in data.columns and d not in source.columns]
+        # Derived names already in the table (a saved Study's data, say) serve the same way.
+        derived_here = [
+            d for d in DERIVED_FACTORS if d in data.columns and d not in (value, subgroup, time)
+        ]
         missing = [f for f in factors if f not in data.columns]
         if missing:
             hint = (
@@ -128,7 +131,7 @@ class Study:
                 f"{subgroup!r} is the subgroup and cannot also be a factor; a factor is "
                 "compared across subgroups, so choose a column that groups them."
             )
-        for name in factors:
+        for name in dict.fromkeys([*factors, *derived_here]):
             data[name] = as_factor(data[name])
         if len(data) == 0:
             raise QCDataError(f"Column {value!r} has no usable values ({dropped.describe()}).")

@@ -178,7 +178,9 @@ def test_indices_invariant_to_units_and_ordered(loc, scale, seed, sigma_ratio):
     z = np.random.default_rng(seed).normal(size=40)
     base = capability(z, lsl=-2.5, usl=3.0, sigma_within=sigma_ratio)
     moved = capability(
-        loc + scale * z, lsl=loc - 2.5 * scale, usl=loc + 3.0 * scale,
+        loc + scale * z,
+        lsl=loc - 2.5 * scale,
+        usl=loc + 3.0 * scale,
         sigma_within=sigma_ratio * scale,
     )
     cols = ["value", "lower", "upper"]

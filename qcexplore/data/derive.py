@@ -95,7 +95,7 @@ def derive_time_factors(
         day_ts = times.dt.normalize()
         if getattr(times.dt, "tz", None) is not None:
             day_ts = day_ts.dt.tz_localize(None)
-    weekday = pd.Categorical.from_codes(day_ts.dt.weekday.to_numpy(), categories=list(WEEKDAYS))
+    weekday = pd.Categorical.from_codes(day_ts.dt.day_of_week.to_numpy(), categories=list(WEEKDAYS))
     derived["weekday"] = pd.Series(weekday, index=times.index).cat.remove_unused_categories()
     days = day_ts.dt.strftime("%Y-%m-%d")
     derived["day"] = pd.Series(

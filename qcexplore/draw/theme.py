@@ -18,7 +18,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from bokeh.models import AdaptiveTicker, ColumnDataSource, LayoutDOM
+from bokeh.models import AdaptiveTicker, CDSView, ColumnDataSource, GroupFilter, LayoutDOM
 from bokeh.plotting import figure
 
 from qcexplore.stats.rules import RULE_TEXT
@@ -125,8 +125,8 @@ def labels(column: pd.Series) -> np.ndarray:
 
     Examples
     --------
-    >>> labels(pd.Series([1, None])).tolist()
-    ['1', '']
+    >>> labels(pd.Series(["a", None])).tolist()
+    ['a', '']
     """
     return column.astype(object).where(column.notna(), "").astype(str).to_numpy(dtype=object)
 
@@ -285,3 +285,112 @@ def spec_of(layout: LayoutDOM) -> dict[str, Any] | None:
         if isinstance(tag, dict) and "figure" in tag:
             return tag
     return None
+
+
+def segments(
+    x: np.ndarray, y: np.ndarray, group: np.ndarray, panel: np.ndarray | None = None
+) -> dict[str, np.ndarray]:
+    """Segments joining consecutive points (in x order) that belong to the same group.
+
+    Drawn with a segment glyph rather than a line so that panels can share one source
+    through a filter (bokeh does not filter connected glyphs). The ``panel`` column of
+    the result is each segment's ``panel`` label (default: its group).
+
+    Examples
+    --------
+    >>> s = segments(np.array([2.0, 1.0, 3.0]), np.array([5.0, 4.0, 6.0]),
+    ...              np.array(["a", "a", "b"], dtype=object))
+    >>> s["x0"].tolist(), s["x1"].tolist(), s["panel"].tolist()
+    ([1.0], [2.0], ['a'])
+    """
+    codes = pd.factorize(group)[0]
+    order = np.lexsort((x, codes))
+    xs, ys, gs = x[order], y[order], codes[order]
+    same = gs[1:] == gs[:-1]
+    labels = (group if panel is None else panel)[order]
+    return {
+        "x0": xs[:-1][same],
+        "y0": ys[:-1][same],
+        "x1": xs[1:][same],
+        "y1": ys[1:][same],
+        "panel": labels[:-1][same],
+    }
+
+
+def _changed(a: np.ndarray) -> np.ndarray:
+    """Where a value differs from the one before (two NaNs count as equal)."""
+    return ~((a[1:] == a[:-1]) | (np.isnan(a[1:]) & np.isnan(a[:-1])))
+
+
+def steps(
+    x: np.ndarray, lines: Mapping[str, np.ndarray], pad: float, panel: str = "all"
+) -> dict[str, np.ndarray]:
+    """Centre and limit lines as steps: one piece per run of equal values, plus risers.
+
+    ``lines`` maps ``"center"`` and any limit names to one value per point. On each line,
+    each run of points with equal values becomes one horizontal piece,
+    reaching from its first point's left edge to its last point's right edge (see
+    :func:`boundaries`); consecutive runs are joined by vertical risers. Returns the
+    columns ``x0, y0, x1, y1, role`` (``"center"`` or ``"limit"``) and ``panel``.
+
+    Examples
+    --------
+    >>> s = steps(np.array([1.0, 2.0, 3.0]), {"center": np.array([0.0, 0.0, 1.0])}, 0.5)
+    >>> s["x0"].tolist(), s["x1"].tolist(), s["y0"].tolist(), s["y1"].tolist()
+    ([0.5, 2.5, 2.5], [2.5, 3.5, 2.5], [0.0, 1.0, 0.0], [0.0, 1.0, 1.0])
+    """
+    xu, first = np.unique(x, return_index=True)
+    left, right = boundaries(xu, pad)
+    parts = []
+    for key, column in lines.items():
+        v = np.asarray(column, dtype=float)[first]
+        starts = np.flatnonzero(np.concatenate([[True], _changed(v)]))[: xu.size]
+        ends = np.concatenate([starts[1:] - 1, [xu.size - 1]])[: starts.size]
+        level = v[starts]
+        role = "center" if key == "center" else "limit"
+        parts.append(
+            {"x0": left[starts], "y0": level, "x1": right[ends], "y1": level, "role": role}
+        )
+        rise = left[starts][1:]
+        parts.append({"x0": rise, "y0": level[:-1], "x1": rise, "y1": level[1:], "role": role})
+    for part in parts:
+        part["role"] = np.full(part["x0"].size, part["role"], dtype=object)
+        part["panel"] = np.full(part["x0"].size, panel, dtype=object)
+    return concat(parts, ("x0", "y0", "x1", "y1", "role", "panel"))
+
+
+def concat(parts: Sequence[Mapping[str, np.ndarray]], columns: Sequence[str]) -> dict:
+    """Stack the columns of several source pieces (empty float columns when none).
+
+    Examples
+    --------
+    >>> concat([{"a": np.array([1])}, {"a": np.array([2])}], ["a"])["a"].tolist()
+    [1, 2]
+    """
+    return {
+        c: np.concatenate([p[c] for p in parts]) if parts else np.array([], dtype=float)
+        for c in columns
+    }
+
+
+def view(panel: str | None = None, role: str | None = None) -> CDSView:
+    """The rows of a shared source that one renderer draws: its panel and/or role.
+
+    ``None`` means no filter on that column (a layout with a single panel).
+
+    Examples
+    --------
+    >>> view().filter.__class__.__name__, view("A", "center").filter.__class__.__name__
+    ('AllIndices', 'IntersectionFilter')
+    """
+    filters = [
+        GroupFilter(column_name=c, group=g)
+        for c, g in (("panel", panel), ("role", role))
+        if g is not None
+    ]
+    if not filters:
+        return CDSView()
+    combined = filters[0]
+    for extra in filters[1:]:
+        combined = combined & extra
+    return CDSView(filter=combined)

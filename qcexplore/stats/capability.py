@@ -242,9 +242,7 @@ def capability(
     )
 
     a2, p_normal = anderson_darling_normal(x)
-    normality = pd.DataFrame(
-        {"test": ["anderson_darling"], "statistic": [a2], "p": [p_normal]}
-    )
+    normality = pd.DataFrame({"test": ["anderson_darling"], "statistic": [a2], "p": [p_normal]})
     if p_normal < _NORMALITY_ALPHA:
         warnings.append(
             f"The values do not look normal (Anderson-Darling p = {p_normal:.3g}); the "

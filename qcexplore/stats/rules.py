@@ -90,35 +90,37 @@ def _as_column(name: str, value: object, size: int | None) -> np.ndarray:
     return np.broadcast_to(arr, (size,)) if size is not None else arr
 
 
-def _window(hit: np.ndarray, width: int, start: np.ndarray, need: int) -> np.ndarray:
+def _window(hit: np.ndarray, width: int, pos: np.ndarray, need: int) -> np.ndarray:
     """True where ``hit`` holds here and in at least ``need`` of the last ``width`` points.
 
-    Windows are cut at the start of each segment, so a pattern never spans two segments; a
-    cut window still completes an m-of-w pattern once it holds m hits (as a run-rule chart
-    started afresh would signal).
+    ``pos`` counts the points before each one in its segment. Windows are cut at the start of
+    each segment, so a pattern never spans two segments; a cut window still completes an
+    m-of-w pattern once it holds m hits (as a run-rule chart started afresh would signal).
     """
     total = np.zeros(hit.size + 1, dtype=np.int64)
     np.cumsum(hit, out=total[1:])
-    here = np.arange(hit.size)
-    first = np.maximum(here - (width - 1), start)
-    return hit & (total[here + 1] - total[first] >= need)
+    count = total[1:].copy()
+    if hit.size > width:
+        count[width:] -= total[1 : hit.size + 1 - width]
+    cut = np.flatnonzero(pos < width - 1)
+    count[cut] = total[cut + 1] - total[cut - pos[cut]]
+    return hit & (count >= need)
 
 
 def _rule_masks(
-    z: np.ndarray, dev: np.ndarray, start: np.ndarray, ids: tuple[str, ...], sigma_level: float
+    z: np.ndarray, dev: np.ndarray, pos: np.ndarray, ids: tuple[str, ...], sigma_level: float
 ) -> dict[str, np.ndarray]:
-    """Boolean mask per rule id over points already grouped by segment."""
-    pos = np.arange(z.size) - start  # points before this one in its segment
+    """Boolean mask per rule id over points grouped by segment (``pos``: place in segment)."""
     step = np.zeros(z.size)
     step[1:] = np.diff(dev)
     step[pos < 1] = 0.0  # no step across a segment boundary
     up, down = step > 0, step < 0
 
     def run(hit: np.ndarray, width: int) -> np.ndarray:
-        return _window(hit, width, start, width)
+        return _window(hit, width, pos, width)
 
     def same_side(level: float, need: int, width: int) -> np.ndarray:
-        return _window(z > level, width, start, need) | _window(z < -level, width, start, need)
+        return _window(z > level, width, pos, need) | _window(z < -level, width, pos, need)
 
     def alternating(width: int) -> np.ndarray:
         turn = np.zeros(z.size, dtype=bool)
@@ -229,15 +231,64 @@ def evaluate_rules(
         keep, seg = keep[order], seg[order]
         new_segment[1:] = seg[1:] != seg[:-1]
     new_segment[:1] = True
-    start = np.maximum.accumulate(np.where(new_segment, np.arange(keep.size), 0))
+    place = np.arange(keep.size)
+    pos = place - np.maximum.accumulate(np.where(new_segment, place, 0))
 
-    masks = _rule_masks(z_all[keep], dev_all[keep], start, ids, float(sigma_level))
-    code = np.zeros(size, dtype=np.int64)
+    masks = _rule_masks(z_all[keep], dev_all[keep], pos, ids, float(sigma_level))
+    kept_code = np.zeros(keep.size, dtype=np.int64)
     for bit, rule in enumerate(ids):
-        code[keep[masks[rule]]] |= 1 << bit
+        kept_code[masks[rule]] |= 1 << bit
+    code = np.zeros(size, dtype=np.int64)
+    code[keep] = kept_code
     # Map each distinct combination once, then spread it with one gather (no per-point loop).
-    present = np.flatnonzero(np.bincount(code, minlength=1))
-    table = np.empty(int(present[-1]) + 1, dtype=object)
-    for c in present.tolist():
+    counts = np.bincount(code, minlength=1)
+    table = np.empty(counts.size, dtype=object)
+    for c in np.flatnonzero(counts).tolist():
         table[c] = tuple(rule for bit, rule in enumerate(ids) if c >> bit & 1)
     return code > 0, table[code].tolist()
+
+
+def evaluate_rows(
+    z: np.ndarray, rules: str | Sequence[str], *, sigma_level: float = 3.0
+) -> np.ndarray:
+    """Which points of each row complete a pattern, every row being a sequence of its own.
+
+    A lean form of :func:`evaluate_rules` for many standardised series of equal length (as in
+    a simulation): no NaN handling and no per-point rule lists.
+
+    Parameters
+    ----------
+    z : 2-D array of float
+        Standardised points (stat - center) / sigma, one series per row, no NaN.
+    rules : str or sequence of str
+        Rule-set name or rule ids.
+    sigma_level : float, default 3.0
+        Limits of the "beyond the limits" rules, in sigma.
+
+    Returns
+    -------
+    ndarray of bool, same shape as ``z``
+        True where at least one rule fires.
+
+    Notes
+    -----
+    Agrees with :func:`evaluate_rules` run with one segment per row (checked in the tests).
+
+    Examples
+    --------
+    >>> evaluate_rows(np.array([[0.0, 3.5], [2.5, 2.5]]), "nelson").tolist()
+    [[False, True], [False, True]]
+    """
+    ids = resolve_rules(rules)
+    z = np.asarray(z, dtype=float)
+    if z.ndim != 2 or np.isnan(z).any():
+        raise QCDataError("z: expected a two-dimensional array without NaN, one series per row.")
+    rows, width = z.shape
+    pos = np.tile(np.arange(width), rows)
+    flat = z.ravel()
+    masks = _rule_masks(flat, flat, pos, ids, float(sigma_level))
+    hit = np.zeros(flat.size, dtype=bool)
+    for mask in masks.values():
+        hit |= mask
+    return hit.reshape(rows, width)
+

@@ -113,14 +113,19 @@ def subgroup_table(
     0        a  2   1.5
     1        b  1   4.0
     """
-    labels = frame[subgroup].cat.remove_unused_categories()
+    labels = frame[subgroup]
     codes = labels.cat.codes.to_numpy()
-    k = len(labels.cat.categories)
+    categories = labels.cat.categories
+    present = np.bincount(codes, minlength=len(categories)) > 0
+    if not present.all():  # cheaper than remove_unused_categories, which sorts
+        codes = (np.cumsum(present) - 1)[codes]
+        categories = categories[present]
+    k = len(categories)
     m = group_moments(frame[value].to_numpy(dtype=np.float64), codes, k)
     table = pd.DataFrame(
         {
             "subgroup": pd.Categorical.from_codes(
-                np.arange(k), categories=labels.cat.categories, ordered=True
+                np.arange(k), categories=categories, ordered=True
             ),
             "n": m.n,
             "mean": m.mean,

@@ -1,0 +1,5 @@
+"""``python -m qcexplore``: the command line."""
+
+from qcexplore.cli import main
+
+raise SystemExit(main())

@@ -1,0 +1,80 @@
+"""Plain HTML pieces shared by the explorer and the report: tables, notes, findings.
+
+Every piece of text that comes from the data or the user is escaped here.
+"""
+
+from __future__ import annotations
+
+import html
+from collections.abc import Iterable
+from typing import Any
+
+import pandas as pd
+
+CAUTION = (
+    "Findings support an investigation; they do not decide product disposition. "
+    "Net-content compliance is judged by the local weights-and-measures rules and the "
+    "site's quality system."
+)
+
+
+def table_html(frame: pd.DataFrame, caption: str, *, rows: int | None = None) -> str:
+    """A small HTML table of a result frame with a heading, every cell escaped.
+
+    Examples
+    --------
+    >>> "&lt;b&gt;" in table_html(pd.DataFrame({"a": ["<b>"]}), "x")
+    True
+    """
+    shown = frame if rows is None else frame.head(rows)
+    body = shown.to_html(
+        index=False, escape=True, border=0, na_rep="", float_format=lambda v: f"{v:.4g}"
+    )
+    more = "" if rows is None or len(frame) <= rows else f"<p>... {len(frame) - rows} more</p>"
+    return f"<h4>{html.escape(caption)}</h4>{body}{more}"
+
+
+def notes_html(notes: Iterable[Any]) -> str:
+    """Result notes as a short list (escaped).
+
+    Examples
+    --------
+    >>> notes_html(["a < b"])
+    '<ul><li>a &lt; b</li></ul>'
+    """
+    items = "".join(f"<li>{html.escape(str(n))}</li>" for n in notes)
+    return f"<ul>{items}</ul>" if items else ""
+
+
+def findings_html(found: Iterable[Any]) -> str:
+    """The findings as a numbered list of titles and details, then the caution (escaped).
+
+    Examples
+    --------
+    >>> "support an investigation" in findings_html([])
+    True
+    """
+    items = "".join(
+        f"<li><b>{html.escape(str(f.title))}</b><br>{html.escape(str(f.detail))}</li>"
+        for f in found
+    )
+    body = f"<ol class='qcx-findings'>{items}</ol>" if items else "<p>No findings.</p>"
+    return body + f"<p class='qcx-caution'><i>{html.escape(CAUTION)}</i></p>"
+
+
+def log_html(exclusions: Iterable[Any], notes: Iterable[Any]) -> str:
+    """Exclusions (subgroup, reason) and notes (text, at) as two tables (escaped).
+
+    Examples
+    --------
+    >>> log_html([], [])
+    '<p>Nothing excluded, no notes.</p>'
+    """
+    left_out = [vars(e) for e in exclusions]
+    written = [vars(n) for n in notes]
+    parts = []
+    if left_out:
+        parts.append(table_html(pd.DataFrame(left_out), "Left out of the limits"))
+    if written:
+        parts.append(table_html(pd.DataFrame(written), "Notes"))
+    return "".join(parts) or "<p>Nothing excluded, no notes.</p>"

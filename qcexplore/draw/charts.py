@@ -1,0 +1,391 @@
+"""The control chart figure: the chart, its secondary chart below, strata overlaid or split.
+
+Layout and names (stable, for :func:`qcexplore.draw.refresh` and for browser tests):
+
+- root layout ``"chart_layout"``; its ``tags`` hold the build description (see
+  :func:`chart_spec`);
+- overlay (one panel): figures ``"chart"`` and ``"secondary_chart"``;
+  split into small multiples (``split=True`` or per-stratum limits): a heading
+  ``Div`` ``"chart_title"`` and figures ``"chart_0"``, ``"chart_1"``, ... with
+  ``"secondary_chart_0"``, ... below them, one column per stratum level;
+- data sources, shared by all panels (each panel shows its rows through a filter on
+  the ``panel`` column): ``"chart_points"``, ``"chart_signals"``, ``"chart_line"``,
+  ``"chart_limits"`` and the same four with the ``"secondary_"`` prefix.
+
+Source columns:
+
+- ``*_points`` and ``*_signals``: ``x, value, subgroup, stratum, n, rules, color``, plus
+  ``time`` (milliseconds since the epoch) when the points have a ``start`` and
+  ``panel`` when split. ``*_signals`` holds exactly the rows with ``signal`` true.
+- ``*_line`` (thin joining line, as segments): ``x0, y0, x1, y1`` (+ ``panel``). Empty
+  above :data:`~qcexplore.draw.theme.LINE_UP_TO` points.
+- ``*_limits`` (centre and limits as step lines): ``x0, y0, x1, y1, role`` with role
+  ``"center"`` or ``"limit"`` (+ ``panel``).
+
+The x position of a point is its subgroup's position 1..k in time order (the code of
+the ordered subgroup Categorical, or the order of first appearance), or the
+subgroup's start time when every point has one (``x="auto"``).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from bokeh.layouts import column, gridplot
+from bokeh.models import Div, HoverTool, LayoutDOM
+
+from qcexplore.draw import theme
+from qcexplore.errors import QCDataError
+from qcexplore.stats.results import ChartResult
+
+_KIND_WORDS = {
+    "xbar_r": "Subgroup means (X-bar chart, R-based)",
+    "xbar_s": "Subgroup means (X-bar chart, S-based)",
+    "imr": "Individual values (I chart)",
+    "ewma": "EWMA of subgroup means",
+    "cusum": "CUSUM of subgroup means",
+    "p": "Proportion nonconforming (p chart)",
+    "np": "Number nonconforming (np chart)",
+    "c": "Defects per unit inspected (c chart)",
+    "u": "Defects per unit (u chart)",
+    "r": "Subgroup ranges (R chart)",
+    "s": "Subgroup standard deviations (S chart)",
+    "mr": "Moving ranges (MR chart)",
+}
+_POSITION_PAD = 0.5
+_TIME_PAD = 30 * 60 * 1000.0  # half an hour, for a single timed point
+
+
+def _x_kind(result: ChartResult, x: str) -> str:
+    if x not in ("auto", "position", "time"):
+        raise QCDataError(f"x: {x!r} is not one of 'auto', 'position', 'time'.")
+    has_time = "start" in result.points and result.points["start"].notna().all()
+    if x == "time" and not has_time:
+        raise QCDataError(
+            "x='time': the chart points have no 'start' time on every row; "
+            "use x='position' or give the study a time column."
+        )
+    if x == "auto":
+        return "time" if has_time and len(result.points) else "position"
+    return x
+
+
+def chart_spec(result: ChartResult, *, split: bool = False, x: str = "auto") -> dict[str, Any]:
+    """Build description of the chart layout: what changes only with a new figure.
+
+    Two results with the same description can share one layout (:func:`refresh` swaps
+    the data in place); a different description needs a new figure: another panel
+    count or other panel levels (overlay <-> small multiples, another ``by``), a
+    secondary chart appearing or disappearing, the x axis switching between positions
+    and times, strata appearing or disappearing (legend), or WebGL switching on or off.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from qcexplore.stats.results import ChartResult
+    >>> pts = pd.DataFrame({"subgroup": [1, 2], "stratum": [None, None], "stat": [1.0, 2.0],
+    ...     "center": 1.5, "lcl": 0.0, "ucl": 3.0, "n": 5, "signal": False, "rules": [(), ()]})
+    >>> chart_spec(ChartResult("xbar_r", pts, pd.DataFrame()))["panels"]
+    ['all']
+    """
+    points = result.points
+    stratum = points["stratum"] if "stratum" in points else pd.Series([None] * len(points))
+    strata = bool(stratum.notna().any())
+    per_stratum = result.limits_mode == "per_stratum"
+    panelled = strata and (split or per_stratum)
+    levels = theme.levels_of(stratum) if strata else []
+    present = set(stratum.dropna().astype(str)) if panelled else set()
+    panels = [str(v) for v in levels if str(v) in present] if panelled else ["all"]
+    return {
+        "figure": "chart",
+        "options": {"split": bool(split), "x": x},
+        "panels": panels,
+        "levels": [str(v) for v in levels],
+        "strata": strata,
+        "x": _x_kind(result, x),
+        "time": "start" in points and bool(points["start"].notna().any()),
+        "secondary": result.secondary is not None,
+        "webgl": len(points) > theme.WEBGL_FROM,
+    }
+
+
+def _positions(points: pd.DataFrame, spec: dict[str, Any]) -> np.ndarray:
+    if spec["x"] == "time":
+        return theme.time_ms(points["start"])
+    sub = points["subgroup"]
+    if isinstance(sub.dtype, pd.CategoricalDtype):
+        return sub.cat.codes.to_numpy().astype(float) + 1.0
+    return pd.factorize(sub)[0].astype(float) + 1.0
+
+
+def _chart_sources(
+    result: ChartResult, spec: dict[str, Any], prefix: str
+) -> dict[str, dict[str, np.ndarray]]:
+    points = result.points
+    size = len(points)
+    stratum = points["stratum"] if "stratum" in points else pd.Series([None] * size)
+    stratum_text = theme.labels(stratum)
+    x = _positions(points, spec)
+    y = points["stat"].to_numpy(dtype=float)
+    panelled = spec["panels"] != ["all"]
+    panel = stratum_text if panelled else np.full(size, "all", dtype=object)
+    data: dict[str, Any] = {
+        "x": x,
+        "value": y,
+        "subgroup": theme.labels(points["subgroup"]),
+        "stratum": stratum_text,
+        "n": points["n"].to_numpy(),
+        "rules": theme.rule_words(points["rules"]),
+        "color": theme.colors_for(
+            stratum.astype(object).map(str).where(stratum.notna()), spec["levels"]
+        ),
+    }
+    if spec["time"]:
+        data["time"] = theme.time_ms(points["start"])
+    if panelled:
+        data["panel"] = panel
+    signal = points["signal"].to_numpy(dtype=bool)
+    signals = {k: v[signal] for k, v in data.items()}
+
+    # Join within a stratum when strata share positions (a factor that varies inside
+    # subgroups), else join all points in time order.
+    if panelled:
+        group = panel
+    elif pd.Series(x).duplicated().any():
+        group = stratum_text
+    else:
+        group = np.zeros(size, dtype=object)
+    if size > theme.LINE_UP_TO:
+        keep = np.zeros(size, dtype=bool)
+        line = theme.segments(x[keep], y[keep], group[keep])
+    else:
+        line = theme.segments(x, y, group)
+
+    pad = _TIME_PAD if spec["x"] == "time" else _POSITION_PAD
+    limit_cols = {k: points[k].to_numpy(dtype=float) for k in ("center", "lcl", "ucl")}
+    limit_data = theme.concat(
+        [
+            theme.steps(
+                x[panel == name], {k: v[panel == name] for k, v in limit_cols.items()}, pad, name
+            )
+            for name in spec["panels"]
+        ],
+        ("x0", "y0", "x1", "y1", "role", "panel"),
+    )
+    if not panelled:
+        line.pop("panel")
+        limit_data.pop("panel")
+    return {
+        f"{prefix}_points": data,
+        f"{prefix}_signals": signals,
+        f"{prefix}_line": line,
+        f"{prefix}_limits": limit_data,
+    }
+
+
+def chart_sources(result: ChartResult, spec: dict[str, Any]) -> dict[str, dict[str, Any]]:
+    """Column data of every named source of the chart layout described by ``spec``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from qcexplore.stats.results import ChartResult
+    >>> pts = pd.DataFrame({"subgroup": [1, 2], "stratum": [None, None], "stat": [1.0, 2.0],
+    ...     "center": 1.5, "lcl": 0.0, "ucl": 3.0, "n": 5, "signal": False, "rules": [(), ()]})
+    >>> r = ChartResult("xbar_r", pts, pd.DataFrame())
+    >>> sorted(chart_sources(r, chart_spec(r)))
+    ['chart_limits', 'chart_line', 'chart_points', 'chart_signals']
+    """
+    out = _chart_sources(result, spec, "chart")
+    if result.secondary is not None:
+        out.update(_chart_sources(result.secondary, spec, "secondary"))
+    return out
+
+
+def _title(result: ChartResult) -> str:
+    if result.title:
+        return result.title
+    what = _KIND_WORDS.get(result.kind, f"{result.kind} chart of the {result.statistic}")
+    methods = result.limits["method"].dropna().unique() if "method" in result.limits else []
+    method = ", ".join(map(str, methods)) or result.sigma_method
+    mode = " per stratum" if result.limits_mode == "per_stratum" else ""
+    return f"{what}: limits at ±{result.sigma_level:g} sigma{mode}, sigma from {method}"
+
+
+def chart_texts(result: ChartResult, spec: dict[str, Any]) -> dict[str, str]:
+    """Titles of the chart layout's named figures and heading, by model name.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from qcexplore.stats.results import ChartResult
+    >>> pts = pd.DataFrame({"subgroup": [1], "stratum": [None], "stat": [1.0], "center": 1.0,
+    ...     "lcl": 0.0, "ucl": 2.0, "n": 5, "signal": False, "rules": [()]})
+    >>> chart_texts(ChartResult("xbar_r", pts, pd.DataFrame(), title="Fill"), chart_spec(
+    ...     ChartResult("xbar_r", pts, pd.DataFrame())))
+    {'chart': 'Fill'}
+    """
+    panels = spec["panels"]
+    texts: dict[str, str] = {}
+    sec = result.secondary
+    if len(panels) == 1:
+        texts["chart"] = _title(result)
+        if sec is not None:
+            texts["secondary_chart"] = _title(sec)
+        return texts
+    texts["chart_title"] = f"<b>{_title(result)}</b>" + (
+        f"<br>below: {_title(sec)}" if sec is not None else ""
+    )
+    by = result.by or "stratum"
+    names = zip(
+        theme.panel_names("chart", len(panels)),
+        theme.panel_names("secondary_chart", len(panels)),
+        panels,
+        strict=True,
+    )
+    for name, sec_name, level in names:
+        texts[name] = f"{result.statistic}, {by} = {level}"
+        if sec is not None:
+            texts[sec_name] = f"{sec.statistic}, {by} = {level}"
+    return texts
+
+
+def _tooltips(spec: dict[str, Any]) -> list[tuple[str, str]]:
+    tips = [("time", "@time{%F %H:%M}")] if spec["time"] else []
+    return tips + [
+        ("subgroup", "@subgroup"),
+        ("stratum", "@stratum"),
+        ("n", "@n"),
+        ("value", "@value{0,0.[0000]}"),
+        ("rules", "@rules"),
+    ]
+
+
+def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec: dict) -> None:
+    line, limits = sources[f"{prefix}_line"], sources[f"{prefix}_limits"]
+    points, signals = sources[f"{prefix}_points"], sources[f"{prefix}_signals"]
+    flt = None if panel == "all" else panel
+    styles = (
+        (line, theme.view(flt), {"line_color": theme.LINE, "line_width": theme.LINE_WIDTH}),
+        (limits, theme.view(flt, "center"), {"line_color": theme.CENTER, "line_width": 1.5}),
+        (
+            limits,
+            theme.view(flt, "limit"),
+            {"line_color": theme.LIMIT, "line_width": 1.5, "line_dash": "dashed"},
+        ),
+    )
+    for src, rows, style in styles:
+        fig.segment("x0", "y0", "x1", "y1", source=src, view=rows, **style)
+    # The legend sits above the main chart only, so the panels below keep its x extent.
+    legend = (
+        {"legend_field": "stratum"}
+        if spec["strata"] and panel == "all" and prefix == "chart"
+        else {}
+    )
+    dots = fig.scatter(
+        "x",
+        "value",
+        source=points,
+        view=theme.view(flt),
+        size=theme.POINT_SIZE,
+        color="color",
+        line_color="color",
+        **legend,
+    )
+    marks = fig.scatter(
+        "x",
+        "value",
+        source=signals,
+        view=theme.view(flt),
+        size=theme.SIGNAL_SIZE,
+        fill_color=None,
+        line_color=theme.ACCENT,
+        line_width=2,
+    )
+    fig.add_tools(
+        HoverTool(
+            renderers=[dots, marks],
+            tooltips=_tooltips(spec),
+            formatters={"@time": "datetime"},
+        )
+    )
+    if legend:
+        fig.legend.orientation = "horizontal"
+        fig.legend.click_policy = "hide"
+        fig.legend.border_line_color = None
+        fig.add_layout(fig.legend[0], "above")
+    fig.xaxis.axis_label = (
+        "Subgroup start time" if spec["x"] == "time" else "Subgroup (position in time order)"
+    )
+    if spec["x"] != "time":
+        theme.whole_number_ticks(fig)
+
+
+def chart_figure(result: ChartResult, *, split: bool = False, x: str = "auto") -> LayoutDOM:
+    """The control chart with its secondary chart below on a shared x axis.
+
+    Strata are overlaid in colour (pooled limits), or split into small multiples with a
+    shared y axis when ``split=True`` or the limits are per stratum. Signals are hollow
+    accent-coloured markers whose hover text names the rules that fired. Above
+    :data:`~qcexplore.draw.theme.WEBGL_FROM` points the figures draw through WebGL;
+    above :data:`~qcexplore.draw.theme.LINE_UP_TO` points the joining line is left out.
+    Model names and source columns: see the module docstring.
+
+    Parameters
+    ----------
+    result : ChartResult
+    split : bool
+        Small multiples, one panel per stratum level, instead of one overlaid chart.
+    x : {"auto", "position", "time"}
+        Position 1..k of the subgroup, or its start time ("auto": time when every point
+        has a start).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from qcexplore.stats.results import ChartResult
+    >>> pts = pd.DataFrame({"subgroup": [1, 2], "stratum": [None, None], "stat": [1.0, 2.0],
+    ...     "center": 1.5, "lcl": 0.0, "ucl": 3.0, "n": 5, "signal": False, "rules": [(), ()]})
+    >>> chart_figure(ChartResult("xbar_r", pts, pd.DataFrame())).name
+    'chart_layout'
+    """
+    spec = chart_spec(result, split=split, x=x)
+    data = chart_sources(result, spec)
+    sources = {name: theme.source(name, cols) for name, cols in data.items()}
+    texts = chart_texts(result, spec)
+    panels = spec["panels"]
+    names = theme.panel_names("chart", len(panels))
+    sec_names = theme.panel_names("secondary_chart", len(panels))
+    width = theme.WIDTH if len(panels) == 1 else max(240, theme.WIDTH // len(panels))
+    axis = {"x_axis_type": "datetime"} if spec["x"] == "time" else {}
+    mains, seconds = [], []
+    for i, panel in enumerate(panels):
+        shared = {"x_range": mains[0].x_range, "y_range": mains[0].y_range} if mains else {}
+        fig = theme.new_figure(
+            names[i], texts[names[i]], width=width, webgl=spec["webgl"], **axis, **shared
+        )
+        fig.yaxis.axis_label = result.statistic if i == 0 else ""
+        _draw_panel(fig, sources, "chart", panel, spec)
+        mains.append(fig)
+        if result.secondary is not None:
+            shared = {"y_range": seconds[0].y_range} if seconds else {}
+            sec = theme.new_figure(
+                sec_names[i],
+                texts[sec_names[i]],
+                width=width,
+                height=theme.SECONDARY_HEIGHT,
+                webgl=spec["webgl"],
+                x_range=fig.x_range,
+                **axis,
+                **shared,
+            )
+            sec.yaxis.axis_label = result.secondary.statistic if i == 0 else ""
+            _draw_panel(sec, sources, "secondary", panel, spec)
+            seconds.append(sec)
+    if len(panels) == 1:
+        return column(*mains, *seconds, name="chart_layout", tags=[spec])
+    grid = gridplot([mains, seconds] if seconds else [mains], toolbar_location="right")
+    heading = Div(name="chart_title", text=texts["chart_title"])
+    return column(heading, grid, name="chart_layout", tags=[spec])

@@ -1,0 +1,76 @@
+"""Derived time factors: shifts across midnight and across daylight-saving changes."""
+
+from __future__ import annotations
+
+import pandas as pd
+import pytest
+
+import qcexplore as qx
+from qcexplore import QCDataError
+from qcexplore.data.derive import assign_shifts, derive_time_factors
+
+SHIFTS = {"early": "06:00", "late": "14:00", "night": "22:00"}
+
+
+def test_night_shift_belongs_to_the_day_it_started() -> None:
+    times = pd.Series(
+        pd.to_datetime(
+            ["2026-03-02 05:59", "2026-03-02 06:00", "2026-03-02 13:59", "2026-03-02 14:00",
+             "2026-03-02 21:59", "2026-03-02 22:00", "2026-03-03 00:00", "2026-03-03 05:59"]
+        )
+    )  # fmt: skip
+    names, days = assign_shifts(times, SHIFTS)
+    assert names.tolist() == ["night", "early", "early", "late", "late", "night", "night", "night"]
+    assert [str(d) for d in days] == ["2026-03-01"] + ["2026-03-02"] * 7
+
+
+@pytest.mark.parametrize(
+    "first_hour, expected_night_hours",
+    # Europe/Berlin: clocks go forward on the last Sunday of March (29 March 2026, 02:00 -> 03:00)
+    # and back on the last Sunday of October (25 October 2026, 03:00 -> 02:00): common knowledge.
+    [("2026-03-28 22:00", 7), ("2026-10-24 22:00", 9)],
+)
+def test_shifts_across_daylight_saving_change(first_hour: str, expected_night_hours: int) -> None:
+    utc = pd.date_range(
+        pd.Timestamp(first_hour, tz="Europe/Berlin").tz_convert("UTC"), periods=12, freq="h"
+    )
+    local = pd.Series(utc.tz_convert("Europe/Berlin"))
+    names, days = assign_shifts(local, SHIFTS)
+    night = names == "night"
+    assert int(night.sum()) == expected_night_hours  # the night is an hour shorter or longer
+    assert names.iloc[expected_night_hours] == "early"
+    assert local.iloc[expected_night_hours].hour == 6
+    assert {str(d) for d in days[night.to_numpy()]} == {first_hour[:10]}
+
+
+def test_weekday_follows_production_day_when_shifts_are_given() -> None:
+    times = pd.Series(pd.to_datetime(["2026-09-08 02:00", "2026-09-08 07:00"]))  # a Tuesday
+    with_shifts = derive_time_factors(times, SHIFTS)
+    assert with_shifts["weekday"].tolist() == ["Monday", "Tuesday"]
+    assert derive_time_factors(times)["weekday"].tolist() == ["Tuesday", "Tuesday"]
+    assert with_shifts["hour"].tolist() == [2, 7]
+
+
+def test_study_derives_shift_and_matches_demo_labels() -> None:
+    frame, _ = qx.demo.filling_line(days=8)
+    s = qx.Study(
+        frame.drop(columns=["shift"]), value="net_g", subgroup="round", time="taken_at",
+        factors=["shift", "weekday"], shifts=SHIFTS,
+    )  # fmt: skip
+    expected = frame.sort_values("taken_at", kind="stable")["shift"].to_numpy()
+    assert (s.data["shift"].astype(str).to_numpy() == expected).all()
+    assert "shift" in s.derived_factors
+
+
+@pytest.mark.parametrize(
+    "shifts, message",
+    [
+        ({}, "map shift names"),
+        ({"a": "25:00"}, "clock time"),
+        ({"a": "06:00", "b": "6:00"}, "same"),
+    ],
+)
+def test_bad_shift_maps(shifts, message) -> None:
+    times = pd.Series(pd.to_datetime(["2026-09-08 02:00"]))
+    with pytest.raises(QCDataError, match=message):
+        assign_shifts(times, shifts)

@@ -1,0 +1,588 @@
+"""Tests of qcexplore.draw: named models, row counts, colours, hover, refresh, resources.
+
+The figures compute nothing, so most checks compare the glyph data with the result
+columns they were built from. Results are built here by hand with the documented
+columns (the statistics modules are tested on their own).
+"""
+
+from __future__ import annotations
+
+import ast
+import re
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from bokeh.document import Document
+from bokeh.embed import file_html
+from bokeh.models import AdaptiveTicker, HoverTool, Plot
+from bokeh.resources import INLINE
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from qcexplore import draw
+from qcexplore.draw import theme
+from qcexplore.errors import QCDataError
+from qcexplore.stats.results import CapabilityResult, ChartResult, TimeResult, VariationResult
+from qcexplore.stats.rules import RULE_TEXT
+
+DRAW_DIR = Path(draw.__file__).parent
+
+
+# --- results built by hand, with the documented columns ---------------------------------
+
+
+def chart_result(
+    k: int = 20,
+    strata: tuple[str, ...] | None = ("A", "B"),
+    *,
+    start: bool = True,
+    secondary: bool = True,
+    per_stratum: bool = False,
+    signals: tuple[int, ...] = (3, 7),
+    seed: int = 0,
+    ucl: np.ndarray | float = 13.0,
+) -> ChartResult:
+    rng = np.random.default_rng(seed)
+    signal = np.zeros(k, dtype=bool)
+    signal[[i for i in signals if i < k]] = True
+    if strata:
+        stratum = pd.Categorical([strata[i % len(strata)] for i in range(k)], categories=strata)
+    else:
+        stratum = pd.Categorical([None] * k, categories=[])
+    points = pd.DataFrame(
+        {
+            "subgroup": pd.Categorical(np.arange(1, k + 1), ordered=True),
+            "stratum": stratum,
+            "stat": rng.normal(10.0, 1.0, k),
+            "center": 10.0,
+            "lcl": 7.0,
+            "ucl": ucl,
+            "n": 5,
+            "signal": signal,
+            "rules": [("N1", "N5") if s else () for s in signal],
+        }
+    )
+    if start:
+        points["start"] = pd.date_range("2026-03-02 06:00", periods=k, freq="h")
+    limits = pd.DataFrame(
+        {
+            "stratum": [None],
+            "center": [10.0],
+            "lcl": [7.0],
+            "ucl": [13.0],
+            "sigma": [1.0],
+            "method": ["R-bar/d2"],
+        }
+    )
+    sec = None
+    if secondary:
+        sec_points = points.assign(
+            stat=rng.uniform(0.0, 4.0, k), center=2.0, lcl=0.0, ucl=4.5, signal=False
+        )
+        sec_points["rules"] = [()] * k
+        sec = ChartResult("r", sec_points, limits, statistic="range")
+    return ChartResult(
+        "xbar_r",
+        points,
+        limits,
+        secondary=sec,
+        statistic="mean",
+        by="crew" if strata else None,
+        limits_mode="per_stratum" if per_stratum else "pooled",
+    )
+
+
+def variation_result(levels: tuple[str, ...] = ("A", "B", "C"), k: int = 4) -> VariationResult:
+    n_lv = len(levels)
+    crew = pd.DataFrame(
+        {
+            "subgroup": pd.Categorical(np.repeat(np.arange(1, k + 1), n_lv), ordered=True),
+            "factor": "crew",
+            "level": pd.Categorical(list(levels) * k, categories=levels),
+            "mean": np.arange(k * n_lv, dtype=float),
+            "n": 4,
+        }
+    )
+    nozzle = crew.assign(factor="nozzle", level=[str(i % n_lv + 1) for i in range(k * n_lv)])
+    comparisons = pd.DataFrame(
+        {
+            "test": ["anom"] * n_lv + ["kruskal_wallis"],
+            "level": [*levels, "all"],
+            "versus": ["overall"] * n_lv + [""],
+            "estimate": [1.0, 2.0, 5.0, *([2.0] * (n_lv - 3))][:n_lv] + [3.0],
+            "statistic": 0.0,
+            "p": [0.5] * n_lv + [0.02],
+            "lower": [0.5] * n_lv + [np.nan],
+            "upper": [3.5] * n_lv + [np.nan],
+        }
+    )
+    components = pd.DataFrame(
+        {
+            "source": ["crew", "nozzle", "residual"],
+            "variance": [1.0, 0.5, 2.5],
+            "sd": np.sqrt([1.0, 0.5, 2.5]),
+            "share": [0.25, 0.125, 0.625],
+        }
+    )
+    return VariationResult(
+        pd.DataFrame(),
+        pd.DataFrame(),
+        components,
+        {"crew": comparisons},
+        multivari=pd.concat([crew, nozzle], ignore_index=True),
+        method="ANOVA (expected mean squares)",
+    )
+
+
+def time_result(k: int = 30, shift_at: int = 15) -> TimeResult:
+    acf = pd.DataFrame(
+        {
+            "lag": np.arange(0, 11),
+            "acf": np.r_[1.0, 0.5 ** np.arange(1, 11)],
+            "pacf": np.r_[1.0, 0.5, np.zeros(9)],
+            "lower": -0.3,
+            "upper": 0.3,
+        }
+    )
+    series = pd.DataFrame(
+        {
+            "subgroup": np.arange(1, k + 1),
+            "start": pd.date_range("2026-03-02", periods=k, freq="D"),
+            "mean": np.r_[np.zeros(shift_at), np.ones(k - shift_at)],
+            "n": 5,
+        }
+    )
+    shifts = pd.DataFrame(
+        {
+            "subgroup": [shift_at + 1],
+            "position": [shift_at],
+            "time": [series["start"][shift_at]],
+            "before": [0.0],
+            "after": [1.0],
+            "p": [0.001],
+        }
+    )
+    return TimeResult(acf, pd.DataFrame(), {}, shifts, series=series)
+
+
+def capability_result(shift: float = 0.0) -> CapabilityResult:
+    hist = pd.DataFrame(
+        {
+            "left": np.arange(10.0) + shift,
+            "right": np.arange(1.0, 11.0) + shift,
+            "count": [1, 3, 6, 10, 14, 14, 10, 6, 3, 1],
+        }
+    )
+    x = np.linspace(-1.0, 11.0, 200) + shift
+    curve = pd.DataFrame(
+        {
+            "x": x,
+            "density": 68 * np.exp(-0.5 * ((x - 5 - shift) / 2) ** 2) / (2 * np.sqrt(2 * np.pi)),
+        }
+    )
+    return CapabilityResult(
+        pd.DataFrame(),
+        pd.DataFrame(),
+        pd.DataFrame(),
+        lsl=0.5,
+        usl=10.5,
+        target=5.0,
+        mean=5.0 + shift,
+        sigma_within=2.0,
+        n=68,
+        histogram=hist,
+        curve=curve,
+    )
+
+
+def named(layout) -> dict:
+    return {m.name: m for m in layout.references() if m.name}
+
+
+def data_of(layout, name: str) -> dict:
+    return named(layout)[name].data
+
+
+def hover_labels(fig) -> list[str]:
+    return [label for tool in fig.select({"type": HoverTool}) for label, _ in tool.tooltips]
+
+
+# --- figures and names ------------------------------------------------------------------
+
+
+def test_chart_overlay_holds_named_models_and_one_row_per_point():
+    result = chart_result()
+    layout = draw.chart_figure(result)
+    models = named(layout)
+    for name in ("chart_layout", "chart", "secondary_chart"):
+        assert name in models
+    for prefix in ("chart", "secondary"):
+        for part in ("points", "signals", "line", "limits"):
+            assert f"{prefix}_{part}" in models
+    assert len(models["chart_points"].data["x"]) == len(result.points)
+    assert len(models["secondary_points"].data["x"]) == len(result.secondary.points)
+    assert models["chart"].title.text  # what is plotted and how the limits were computed
+    assert "R-bar/d2" in models["chart"].title.text
+
+
+def test_chart_title_from_result_is_used():
+    result = chart_result()
+    titled = ChartResult("xbar_r", result.points, result.limits, title="Fill weight, X-bar")
+    assert named(draw.chart_figure(titled))["chart"].title.text == "Fill weight, X-bar"
+
+
+def test_chart_split_gives_one_panel_per_stratum_with_shared_axes():
+    layout = draw.chart_figure(chart_result(strata=("A", "B", "C")), split=True)
+    models = named(layout)
+    panels = [models[f"chart_{i}"] for i in range(3)]
+    lower = [models[f"secondary_chart_{i}"] for i in range(3)]
+    assert "chart" not in models and "chart_title" in models
+    assert len({p.y_range.id for p in panels}) == 1
+    assert len({p.x_range.id for p in panels + lower}) == 1
+    assert [p.title.text for p in panels] == ["mean, crew = A", "mean, crew = B", "mean, crew = C"]
+    # each panel draws its own stratum's rows of the shared source
+    assert set(models["chart_points"].data["panel"]) == {"A", "B", "C"}
+
+
+def test_per_stratum_limits_split_into_panels():
+    layout = draw.chart_figure(chart_result(per_stratum=True))
+    assert {"chart_0", "chart_1"} <= set(named(layout))
+
+
+def test_x_is_position_or_start_time():
+    result = chart_result(k=5)
+    by_time = data_of(draw.chart_figure(result), "chart_points")["x"]
+    expected = (result.points["start"] - pd.Timestamp("1970-01-01")) / pd.Timedelta("1ms")
+    np.testing.assert_allclose(by_time, expected.to_numpy())
+    by_position = data_of(draw.chart_figure(result, x="position"), "chart_points")["x"]
+    np.testing.assert_array_equal(by_position, [1, 2, 3, 4, 5])
+    fig = named(draw.chart_figure(result, x="position"))["chart"]
+    assert isinstance(fig.xaxis[0].ticker, AdaptiveTicker)
+    assert fig.xaxis[0].ticker.min_interval == 1  # whole-number ticks
+
+
+def test_tz_aware_times_keep_their_wall_clock():
+    result = chart_result(k=3)
+    aware = result.points.assign(start=result.points["start"].dt.tz_localize("Europe/Berlin"))
+    x = data_of(draw.chart_figure(ChartResult("xbar_r", aware, result.limits)), "chart_points")
+    np.testing.assert_allclose(x["x"], data_of(draw.chart_figure(result), "chart_points")["x"])
+
+
+def test_time_axis_needs_start_times():
+    with pytest.raises(QCDataError, match="x='time'"):
+        draw.chart_figure(chart_result(start=False), x="time")
+    with pytest.raises(QCDataError, match="x:"):
+        draw.chart_figure(chart_result(), x="sideways")
+
+
+# --- colours ----------------------------------------------------------------------------
+
+
+def test_palette_is_okabe_ito_in_a_fixed_order():
+    # Okabe and Ito (2008), "Color Universal Design": blue (0, 114, 178), orange
+    # (230, 159, 0), bluish green (0, 158, 115), reddish purple (204, 121, 167), from memory.
+    colours = draw.palette_for(["w", "x", "y", "z"])
+    rgb = [tuple(int(c[i : i + 2], 16) for i in (1, 3, 5)) for c in colours.values()]
+    assert rgb == [(0, 114, 178), (230, 159, 0), (0, 158, 115), (204, 121, 167)]
+    assert theme.ACCENT not in theme.STRATA_COLORS  # signals never look like a stratum
+
+
+@given(st.lists(st.text(min_size=1, max_size=4), min_size=1, max_size=7, unique=True))
+def test_palette_is_deterministic_and_distinct(levels):
+    first = draw.palette_for(levels)
+    assert first == draw.palette_for(list(levels))
+    assert list(first) == levels
+    assert len(set(first.values())) == len(levels)
+
+
+def test_one_colour_per_stratum_and_the_same_colour_across_figures():
+    points = data_of(draw.chart_figure(chart_result(strata=("A", "B", "C"))), "chart_points")
+    by_level = pd.DataFrame({"s": points["stratum"], "c": points["color"]}).groupby("s")["c"]
+    assert (by_level.nunique() == 1).all()
+    assert by_level.first().nunique() == 3
+    split = data_of(
+        draw.chart_figure(chart_result(strata=("A", "B", "C")), split=True), "chart_points"
+    )
+    assert list(split["color"]) == list(points["color"])
+    multivari = data_of(draw.multivari_figure(variation_result()), "multivari_points")
+    crew = multivari["factor"] == "crew"
+    mv_colours = dict(zip(multivari["level"][crew], multivari["color"][crew], strict=True))
+    assert mv_colours == dict(zip(points["stratum"], points["color"], strict=True))
+    anom = data_of(draw.anom_figure(variation_result(), "crew"), "anom_points")
+    assert dict(zip(anom["level"], anom["color"], strict=True)) == mv_colours
+
+
+def test_unused_categories_keep_the_colours_stable():
+    full = chart_result(strata=("A", "B", "C"))
+    only_c = full.points[full.points["stratum"] == "C"].reset_index(drop=True)
+    colours = data_of(
+        draw.chart_figure(ChartResult("xbar_r", only_c, full.limits)), "chart_points"
+    )["color"]
+    assert set(colours) == {draw.palette_for(["A", "B", "C"])["C"]}
+
+
+def test_no_strata_draws_one_neutral_colour_and_no_legend():
+    layout = draw.chart_figure(chart_result(strata=None))
+    assert set(data_of(layout, "chart_points")["color"]) == {theme.POINT}
+    assert not named(layout)["chart"].legend
+
+
+# --- hover and signals ------------------------------------------------------------------
+
+
+def test_hover_names_time_subgroup_stratum_n_value_and_rules():
+    layout = draw.chart_figure(chart_result())
+    for fig in ("chart", "secondary_chart"):
+        labels = hover_labels(named(layout)[fig])
+        for label in ("time", "subgroup", "stratum", "n", "value", "rules"):
+            assert label in labels
+    assert "time" not in hover_labels(named(draw.chart_figure(chart_result(start=False)))["chart"])
+
+
+def test_signals_source_holds_exactly_the_signalled_rows_with_rules_in_words():
+    result = chart_result(k=30, signals=(0, 4, 29))
+    layout = draw.chart_figure(result)
+    signals = data_of(layout, "chart_signals")
+    flagged = result.points.loc[result.points["signal"], "subgroup"].astype(str).tolist()
+    assert list(signals["subgroup"]) == flagged
+    assert all(RULE_TEXT["N1"] in text and "N5" in text for text in signals["rules"])
+    points = data_of(layout, "chart_points")
+    assert sum(bool(t) for t in points["rules"]) == len(flagged)
+    marks = [r for r in named(layout)["chart"].renderers if r.data_source.name == "chart_signals"]
+    assert marks[0].glyph.fill_color is None and marks[0].glyph.line_color == theme.ACCENT
+
+
+def test_limits_vary_per_point_as_step_lines():
+    ucl = np.array([13.0, 13.0, 14.0])
+    layout = draw.chart_figure(chart_result(k=3, strata=None, start=False, ucl=ucl))
+    limits = pd.DataFrame(data_of(layout, "chart_limits"))
+    upper = limits[(limits["role"] == "limit") & (limits[["y0", "y1"]].max(axis=1) > 12)]
+    pieces = sorted(map(tuple, upper[["x0", "x1", "y0", "y1"]].to_numpy().tolist()))
+    # 13 over subgroups 1-2, 14 over subgroup 3, riser at the boundary 2.5
+    assert pieces == [(0.5, 2.5, 13.0, 13.0), (2.5, 2.5, 13.0, 14.0), (2.5, 3.5, 14.0, 14.0)]
+    center = limits[limits["role"] == "center"]
+    assert center[["x0", "x1", "y0", "y1"]].to_numpy().tolist() == [[0.5, 3.5, 10.0, 10.0]]
+
+
+def test_line_joins_points_within_a_stratum_when_strata_share_subgroups():
+    result = chart_result(k=4, start=False)
+    pts = pd.concat([result.points, result.points.assign(stratum="B")]).reset_index(drop=True)
+    pts["stratum"] = pd.Categorical(np.repeat(["A", "B"], 4), categories=["A", "B"])
+    line = data_of(draw.chart_figure(ChartResult("xbar_r", pts, result.limits)), "chart_line")
+    assert len(line["x0"]) == 6  # 3 segments per stratum, none across strata
+    assert np.all(line["x1"] - line["x0"] == 1)
+
+
+# --- large series -----------------------------------------------------------------------
+
+
+def test_250k_points_build_with_webgl_and_without_the_line():
+    result = chart_result(k=250_000, strata=("A", "B", "C"), secondary=True, signals=(5, 100_000))
+    layout = draw.chart_figure(result)
+    models = named(layout)
+    assert models["chart"].output_backend == "webgl"
+    assert models["secondary_chart"].output_backend == "webgl"
+    assert len(models["chart_points"].data["x"]) == 250_000
+    assert len(models["chart_line"].data["x0"]) == 0
+    assert len(models["chart_signals"].data["x"]) == 2
+    small = named(draw.chart_figure(chart_result()))
+    assert small["chart"].output_backend == "canvas"
+    assert len(small["chart_line"].data["x0"]) == 19
+
+
+# --- other figures ----------------------------------------------------------------------
+
+
+def test_multivari_figure():
+    result = variation_result()
+    layout = draw.multivari_figure(result)
+    models = named(layout)
+    assert {"multivari_0", "multivari_1", "multivari_points", "multivari_line"} <= set(models)
+    assert len(models["multivari_points"].data["x"]) == len(result.multivari)
+    # within each of the 4 subgroups the 3 levels of each factor are joined by 2 segments
+    assert len(models["multivari_line"].data["x0"]) == 4 * 2 + 4 * 2
+    assert "crew" in models["multivari_0"].title.text
+
+
+def test_anom_figure_marks_levels_outside_their_decision_limits():
+    result = variation_result()
+    models = named(draw.anom_figure(result, "crew"))
+    assert {"anom", "anom_points", "anom_signals", "anom_limits"} <= set(models)
+    assert list(models["anom_points"].data["level"]) == ["A", "B", "C"]
+    assert list(models["anom_signals"].data["level"]) == ["C"]  # 5.0 above 3.5
+    assert "crew" in models["anom"].title.text
+    with pytest.raises(QCDataError, match="shift"):
+        draw.anom_figure(result, "shift")
+
+
+def test_components_figure():
+    result = variation_result()
+    models = named(draw.components_figure(result))
+    bars = models["components_bars"].data
+    assert list(bars["source"]) == ["crew", "nozzle", "residual"]
+    np.testing.assert_allclose(bars["share"], [0.25, 0.125, 0.625])
+    assert list(bars["label"]) == ["25%", "12%", "62%"]
+    assert "ANOVA" in models["components"].title.text
+
+
+def test_acf_figure():
+    models = named(draw.acf_figure(time_result()))
+    assert {"acf", "pacf", "acf_bars"} <= set(models)
+    np.testing.assert_array_equal(models["acf_bars"].data["lag"], np.arange(1, 11))
+    assert models["acf"].x_range is models["pacf"].x_range
+
+
+def test_shifts_figure_draws_levels_before_and_after():
+    result = time_result(k=30, shift_at=15)
+    models = named(draw.shifts_figure(result, x="position"))
+    steps = pd.DataFrame(models["shifts_steps"].data)
+    assert len(models["shifts_series"].data["x"]) == 30
+    pieces = sorted(map(tuple, steps[["x0", "x1", "y0", "y1"]].to_numpy().tolist()))
+    assert pieces == [(0.5, 15.5, 0.0, 0.0), (15.5, 15.5, 0.0, 1.0), (15.5, 30.5, 1.0, 1.0)]
+    assert set(steps["subgroup"]) == {"16"}
+    bad = TimeResult(
+        result.acf, result.ljung_box, {}, result.shifts.assign(subgroup=99), series=result.series
+    )
+    with pytest.raises(QCDataError, match="99"):
+        draw.shifts_figure(bad)
+
+
+def test_capability_figure():
+    result = capability_result()
+    models = named(draw.capability_figure(result))
+    assert len(models["capability_histogram"].data["left"]) == 10
+    assert len(models["capability_curve"].data["x"]) == 200
+    spec = models["capability_spec"].data
+    assert list(spec["label"]) == ["LSL 0.5", "USL 10.5", "target 5", "mean 5"]
+    assert list(spec["role"]) == ["limit", "limit", "target", "mean"]
+
+
+# --- refresh ----------------------------------------------------------------------------
+
+FIGURES = [
+    (lambda r: draw.chart_figure(r), lambda s: chart_result(seed=s)),
+    (lambda r: draw.chart_figure(r, split=True), lambda s: chart_result(seed=s, signals=(s,))),
+    (
+        draw.multivari_figure,
+        lambda s: VariationResult(
+            *(lambda v: (v.structure, v.anova, v.components, v.comparisons))(variation_result()),
+            multivari=variation_result().multivari.assign(mean=lambda f: f["mean"] + s),
+        ),
+    ),
+    (lambda r: draw.anom_figure(r, "crew"), lambda s: variation_result()),
+    (draw.components_figure, lambda s: variation_result()),
+    (draw.acf_figure, lambda s: time_result()),
+    (draw.shifts_figure, lambda s: time_result(shift_at=10 + s)),
+    (draw.capability_figure, lambda s: capability_result(shift=s)),
+]
+
+
+def _snapshot(layout) -> dict:
+    return {
+        m.name: {k: list(v) for k, v in m.data.items()}
+        for m in layout.references()
+        if m.name and hasattr(m, "data")
+    }
+
+
+@pytest.mark.parametrize("build, make", FIGURES)
+def test_refresh_changes_data_in_place_and_round_trips(build, make):
+    first, second = make(1), make(2)
+    layout = build(first)
+    doc = Document()
+    doc.add_root(layout)
+    ids = {m.id for m in layout.references()}
+    before = _snapshot(layout)
+    events = []
+    doc.on_change(events.append)
+    assert not draw.needs_rebuild(layout, second)
+    draw.refresh(layout, second)
+    assert {m.id for m in layout.references()} == ids  # nothing new: updated in place
+    assert _snapshot(layout) == _snapshot(build(second))
+    draw.refresh(layout, first)
+    assert _snapshot(layout) == before
+    assert events  # the document saw the changes (what jupyter_bokeh sends to the page)
+
+
+def test_refresh_recolours_by_data_only():
+    layout = draw.chart_figure(chart_result(strata=("A", "B")))
+    ids = {m.id for m in layout.references()}
+    swapped = chart_result(strata=("B", "A"))  # same panel structure, other level order
+    draw.refresh(layout, swapped)
+    assert {m.id for m in layout.references()} == ids
+    colours = data_of(layout, "chart_points")["color"]
+    assert colours[0] == draw.palette_for(["B", "A"])["B"]
+
+
+def test_needs_rebuild_when_the_structure_changes():
+    layout = draw.chart_figure(chart_result())
+    assert draw.needs_rebuild(layout, chart_result(strata=("A", "B", "C"), per_stratum=True))
+    assert draw.needs_rebuild(layout, chart_result(secondary=False))
+    assert draw.needs_rebuild(layout, chart_result(start=False))
+    assert draw.needs_rebuild(layout, chart_result(strata=None))
+    assert draw.needs_rebuild(layout, variation_result())
+    split = draw.chart_figure(chart_result(), split=True)
+    assert draw.needs_rebuild(split, chart_result(strata=("A", "B", "C")))
+    assert not draw.needs_rebuild(split, chart_result(seed=3))
+    anom = draw.anom_figure(variation_result(), "crew")
+    assert draw.needs_rebuild(anom, variation_result(levels=("A", "B", "C", "D")))
+    with pytest.raises(QCDataError, match="chart_figure"):
+        draw.refresh(layout, chart_result(secondary=False))
+
+
+# --- properties -------------------------------------------------------------------------
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    k=st.integers(1, 60),
+    n_strata=st.integers(0, 4),
+    flags=st.lists(st.integers(0, 59), max_size=10),
+    split=st.booleans(),
+    start=st.booleans(),
+)
+def test_any_chart_builds_with_one_point_per_row(k, n_strata, flags, split, start):
+    strata = tuple("PQRS"[:n_strata]) or None
+    result = chart_result(k, strata, start=start, signals=tuple(set(flags)), secondary=k > 1)
+    layout = draw.chart_figure(result, split=split)
+    points = data_of(layout, "chart_points")
+    assert len(points["x"]) == k
+    assert len(data_of(layout, "chart_signals")["x"]) == int(result.points["signal"].sum())
+    frame = pd.DataFrame({"s": points["stratum"], "c": points["color"]})
+    assert (frame.groupby("s")["c"].nunique() == 1).all()
+    assert not draw.needs_rebuild(layout, result)
+
+
+# --- resources and the one-way flow -------------------------------------------------------
+
+
+@pytest.mark.parametrize("build, make", FIGURES)
+def test_inline_html_loads_no_script_from_the_network(build, make):
+    html = file_html(build(make(1)), resources=INLINE, title="check")
+    assert not re.search(r"<script[^>]*\bsrc=[\"']?https?:", html, flags=re.IGNORECASE)
+    assert "Bokeh" in html
+
+
+def test_draw_imports_no_statistics_library():
+    allowed_stats = {"qcexplore.stats.results", "qcexplore.stats.rules"}
+    for path in DRAW_DIR.glob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.ImportFrom):
+                names = [node.module or ""]
+            elif isinstance(node, ast.Import):
+                names = [a.name for a in node.names]
+            else:
+                continue
+            for name in names:
+                assert not name.startswith(("scipy", "statsmodels", "qcexplore.app")), path
+                if name.startswith("qcexplore.stats"):
+                    assert name in allowed_stats, (path, name)
+
+
+def test_every_figure_is_a_plot_with_a_title():
+    layouts = [build(make(1)) for build, make in FIGURES]
+    for layout in layouts:
+        for plot in layout.select({"type": Plot}):
+            assert plot.title.text, plot.name

