@@ -446,9 +446,9 @@ def test_pooled_by_plots_cells_with_limits_from_their_own_size(crews):
     assert pts["stat"].to_numpy() == pytest.approx(cells["mean"].to_numpy(), rel=1e-12)
     ranges = (cells["max"] - cells["min"]).to_numpy()
     c = {n: constants(n) for n in (2, 4)}
-    sig = np.sum([(n - 1) * rr / c[n]["d2"] for n, rr in zip(cells["size"], ranges)]) / np.sum(
-        cells["size"] - 1
-    )
+    sizes = cells["size"].to_numpy()
+    sig = np.sum([(n - 1) * rr / c[n]["d2"] for n, rr in zip(sizes, ranges, strict=True)])
+    sig /= np.sum(sizes - 1)
     assert r.limits.sigma[0] == pytest.approx(sig, rel=1e-12)
     assert pts["se"].to_numpy() == pytest.approx(sig / np.sqrt(cells["size"]), rel=1e-12)
     assert r.limits.stratum.isna().all() and "pooled limits" in r.title

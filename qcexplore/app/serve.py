@@ -191,7 +191,7 @@ def voila_arguments(
         "--theme=light",
         f"--MappingKernelManager.cull_idle_timeout={int(idle_timeout)}",
         f"--MappingKernelManager.cull_interval={max(5, min(60, int(idle_timeout) // 2))}",
-        "--Voila.log_level=WARN",
+        "--Voila.log_level=ERROR",
     ]
     if preheat:
         args += ["--preheat_kernel=True", "--pool_size=1"]
@@ -273,6 +273,7 @@ def serve(
     try:
         os.environ[CONFIG_ENV] = str(write_app_folder(study, folder, title=title))
         server = Voila()
+        server.stop = lambda: _stop_kernels(server)
         server.initialize(
             voila_arguments(
                 folder / NOTEBOOK,
@@ -293,6 +294,28 @@ def serve(
             os.environ[CONFIG_ENV] = previous
         shutil.rmtree(folder, ignore_errors=True)
     print("qcexplore app: stopped", file=sys.stderr, flush=True)
+
+
+def _stop_kernels(server: Any) -> None:
+    """Voila's stop, made to finish when a kernel died first (Ctrl-C reaches kernels too).
+
+    Voila shuts all kernels down together and gives up at the first one that is
+    already gone (a kernel starting for the pool when the stop came); the rest
+    are then shut down one by one so that none is left running.
+    """
+    from jupyter_core.utils import run_sync
+    from voila.app import Voila
+
+    try:
+        Voila.stop(server)
+    except Exception as error:  # a kernel that is already gone; stop the others
+        server.log.info("Kernel shut-down: %s", error)
+        manager = server.kernel_manager
+        for kernel_id in list(manager.list_kernel_ids()):
+            try:
+                run_sync(manager.shutdown_kernel)(kernel_id, now=True)
+            except Exception as gone:  # already stopped on its own
+                server.log.info("Kernel %s: %s", kernel_id, gone)
 
 
 def launch(

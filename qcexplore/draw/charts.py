@@ -98,11 +98,12 @@ def chart_spec(result: ChartResult, *, split: bool = False, x: str = "auto") -> 
     levels = theme.levels_of(stratum) if strata else []
     present = set(stratum.dropna().astype(str)) if panelled else set()
     panels = [str(v) for v in levels if str(v) in present] if panelled else ["all"]
+    # Stratum levels are not part of the description in an overlay: their colours
+    # travel in the data, so another split factor only re-colours the points.
     return {
         "figure": "chart",
         "options": {"split": bool(split), "x": x},
         "panels": panels,
-        "levels": [str(v) for v in levels],
         "strata": strata,
         "x": _x_kind(result, x),
         "time": "start" in points and bool(points["start"].notna().any()),
@@ -121,7 +122,7 @@ def _positions(points: pd.DataFrame, spec: dict[str, Any]) -> np.ndarray:
 
 
 def _chart_sources(
-    result: ChartResult, spec: dict[str, Any], prefix: str
+    result: ChartResult, spec: dict[str, Any], prefix: str, levels: list[str]
 ) -> dict[str, dict[str, np.ndarray]]:
     points = result.points
     size = len(points)
@@ -138,9 +139,7 @@ def _chart_sources(
         "stratum": stratum_text,
         "n": points["n"].to_numpy(),
         "rules": theme.rule_words(points["rules"]),
-        "color": theme.colors_for(
-            stratum.astype(object).map(str).where(stratum.notna()), spec["levels"]
-        ),
+        "color": theme.colors_for(stratum.astype(object).map(str).where(stratum.notna()), levels),
     }
     if spec["time"]:
         data["time"] = theme.time_ms(points["start"])
@@ -198,9 +197,12 @@ def chart_sources(result: ChartResult, spec: dict[str, Any]) -> dict[str, dict[s
     >>> sorted(chart_sources(r, chart_spec(r)))
     ['chart_limits', 'chart_line', 'chart_points', 'chart_signals']
     """
-    out = _chart_sources(result, spec, "chart")
+    # The secondary chart takes the main chart's levels so that colours match.
+    stratum = result.points["stratum"] if "stratum" in result.points else pd.Series([])
+    levels = [str(v) for v in theme.levels_of(stratum)]
+    out = _chart_sources(result, spec, "chart", levels)
     if result.secondary is not None:
-        out.update(_chart_sources(result.secondary, spec, "secondary"))
+        out.update(_chart_sources(result.secondary, spec, "secondary", levels))
     return out
 
 

@@ -107,7 +107,7 @@ def _zone_chain(delta: float, ids: tuple[str, ...], level: float) -> ArlResult:
                 four_of_five
                 and ((z > 1 and up1.bit_count() >= 3) or (z < -1 and dn1.bit_count() >= 3))
             )
-            or (side_run and ((z > 0 and side >= side_run - 1) or (z < 0 and -side >= side_run - 1)))
+            or (side_run and abs(side) >= side_run - 1 and side * z > 0)
             or (inside_run and abs(z) < 1 and inside >= inside_run - 1)
             or (outside_run and abs(z) > 1 and outside >= outside_run - 1)
         )
@@ -175,7 +175,7 @@ def _monte_carlo(
 def _richardson(solve: callable, size: callable) -> float:  # type: ignore[valid-type]
     """Combine grids of _GRID and 2*_GRID states; the grid error falls as the cell width^2."""
     coarse, fine = solve(_GRID), solve(2 * _GRID)
-    wc, wf = size(_GRID) ** -2.0, size(2 * _GRID) ** -2.0
+    wc, wf = size(_GRID) ** 2.0, size(2 * _GRID) ** 2.0
     return float((wf * fine - wc * coarse) / (wf - wc))
 
 

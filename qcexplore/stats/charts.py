@@ -136,7 +136,10 @@ def _categorical(frame: pd.DataFrame, column: str, role: str, *, in_time_order: 
         _fail(f"{role}={column!r}: no such column; columns are {list(frame.columns)}.")
     col = frame[column]
     if isinstance(col.dtype, pd.CategoricalDtype):
-        cat = col.array.remove_unused_categories()
+        cat = col.array
+        counts = np.bincount(np.asarray(cat.codes) + 1, minlength=len(cat.categories) + 1)
+        if not counts[1:].all():
+            cat = cat.remove_unused_categories()
     elif in_time_order:  # rows are in time order, so first appearance is the time order
         cat = pd.Categorical(col, categories=pd.unique(col.dropna()), ordered=True)
     else:
@@ -170,7 +173,8 @@ def _per_size(func: Callable[[int], float], n: np.ndarray) -> np.ndarray:
     """``func(n_i)`` for every n_i >= 2 (NaN below), one call per distinct size."""
     n = np.asarray(n)
     whole = np.where(np.isfinite(n), n, 0).astype(np.int64)
-    sizes = np.unique(whole[whole >= 2])
+    sizes = np.flatnonzero(np.bincount(np.maximum(whole, 0)))
+    sizes = sizes[sizes >= 2]
     table = np.full(int(whole.max(initial=1)) + 1, np.nan)
     table[sizes] = [func(int(s)) for s in sizes]
     return table[whole]
@@ -178,6 +182,8 @@ def _per_size(func: Callable[[int], float], n: np.ndarray) -> np.ndarray:
 
 def _previous(seg: np.ndarray) -> np.ndarray:
     """Index of the previous point in the same segment (-1 for a segment's first point)."""
+    if seg.size == 0 or not seg.any():
+        return np.arange(seg.size, dtype=np.intp) - 1
     order = np.argsort(seg, kind="stable")
     ordered = seg[order]
     same = np.r_[False, ordered[1:] == ordered[:-1]]
@@ -212,6 +218,13 @@ def _typical(x: np.ndarray, seg: np.ndarray, n_seg: int) -> np.ndarray:
     """Most frequent value per segment (the smallest among ties); NaN for an empty segment."""
     out = np.full(n_seg, np.nan)
     if x.size == 0:
+        return out
+    if np.all(x == np.round(x)) and 0 <= x.min() and (x.max() + 1) * n_seg <= 10 * x.size + 1000:
+        top = int(x.max()) + 1  # small whole numbers (subgroup sizes): count them directly
+        table = np.bincount(seg * top + x.astype(np.int64), minlength=n_seg * top)
+        table = table.reshape(n_seg, top)
+        has = table.any(axis=1)
+        out[has] = table[has].argmax(axis=1)
         return out
     order = np.lexsort((x, seg))
     xs, ss = x[order], seg[order]
@@ -539,7 +552,13 @@ def _method_texts(
             )
             if center is not None:
                 what = f"{rate} given = {center:.6g}"
-            sd = f"sigma of one unit = {fit.sigma[s]:.6g}"
+            formula = {
+                "p": "se_i = sqrt(p-bar (1 - p-bar) / n_i)",
+                "np": "se_i = sqrt(n_i p-bar (1 - p-bar))",
+                "c": "se = sqrt(c-bar)",
+                "u": "se_i = sqrt(u-bar / n_i)",
+            }[kind]
+            sd = f"{formula}; sigma of one unit = {fit.sigma[s]:.6g}"
             if laney:
                 sd += " (binomial/Poisson sigma times Laney's MR-bar(z)/d2(2))"
         else:
@@ -842,7 +861,7 @@ def control_chart(
         point_n = (
             rows.astype(float) if sizes is None else np.bincount(points.row_point, sizes, n_points)
         )
-        base = "laney" if laney else "model"
+        base = model = "laney" if laney else "binomial" if kind in ("p", "np") else "poisson"
 
         def fit(used: np.ndarray) -> tuple[_Fit, _Fit | None]:
             return _attribute_fit(
@@ -1008,7 +1027,7 @@ def control_chart(
         title=title,
         statistic=words["statistic"],
         sigma_level=float(level),
-        sigma_method="given" if sigma is not None else sigma_method,
+        sigma_method="given" if sigma is not None else model if attribute else sigma_method,
         false_alarm_rate=float("nan") if kind == "cusum" else float(2.0 * norm.sf(level)),
         by=by,
         limits_mode=limits,

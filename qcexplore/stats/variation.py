@@ -280,6 +280,7 @@ class _Gram:
 def _gram(
     y: np.ndarray, w: np.ndarray, blocks: np.ndarray, n_blocks: int, factors: list[_Factor]
 ) -> _Gram:
+    y = y - y[0]  # near values subtract exactly: keeps a large common offset out of the sums
     wb = np.bincount(blocks, weights=w, minlength=n_blocks)
     with np.errstate(invalid="ignore", divide="ignore"):
         ybar = np.bincount(blocks, weights=w * y, minlength=n_blocks) / wb
@@ -508,6 +509,8 @@ def _interval(coefs: list[tuple[float, float, float]], level: float) -> tuple[fl
     if estimate <= 0 or any(df <= 0 for _, _, df in coefs):
         return float("nan"), float("nan")
     df = estimate**2 / sum((c * ms) ** 2 / df for c, ms, df in coefs)
+    if df < 0.1:  # too few effective degrees of freedom for a usable interval
+        return float("nan"), float("nan")
     tail = (1 - level) / 2
     return (
         df * estimate / stats.chi2.ppf(1 - tail, df),
@@ -573,7 +576,8 @@ def _reml_components(d: _Design) -> tuple[list[dict], list[str]]:
         terms[f.name] = f.codes
     names = {f"t{i}": name for i, name in enumerate(terms)}
     data = pd.DataFrame({key: terms[name] for key, name in names.items()})
-    data["y"] = d.y - d.y.mean()
+    scale = float(np.std(d.y)) or 1.0  # the optimiser works best on unit-scale data
+    data["y"] = (d.y - d.y.mean()) / scale
     data["g"] = 0
     model = smf.mixedlm(
         "y ~ 1",
@@ -587,13 +591,18 @@ def _reml_components(d: _Design) -> tuple[list[dict], list[str]]:
         fit = model.fit(reml=True, method=["lbfgs", "powell"])
     notes = sorted({f"REML: {w.message}" for w in caught})
     out = [
-        {"source": names[key], "variance": float(v), "lower": np.nan, "upper": np.nan}
+        {"source": names[key], "variance": float(v) * scale**2, "lower": np.nan, "upper": np.nan}
         for key, v in zip(model.exog_vc.names, fit.vcomp, strict=True)
     ]
     order = list(terms)
     out.sort(key=lambda r: order.index(r["source"]))
     out.append(
-        {"source": "residual", "variance": float(fit.scale), "lower": np.nan, "upper": np.nan}
+        {
+            "source": "residual",
+            "variance": float(fit.scale) * scale**2,
+            "lower": np.nan,
+            "upper": np.nan,
+        }
     )
     return out, notes
 

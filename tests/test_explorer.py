@@ -1,0 +1,311 @@
+"""Tests of the explorer widget, without a browser.
+
+Every number the explorer shows comes from ``Study`` (whose statistics are checked
+against handbooks and scipy/statsmodels in their own tests), so the reference here
+is ``Study.chart`` called directly with the same arguments: the data sources must
+hold exactly its points and limits. Controls are set from Python, as a user's
+clicks would set them.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from bokeh.models import BoxSelectTool, ColumnDataSource
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from qcexplore.app import resources
+from qcexplore.app.explorer import PAGE_ROWS, PANELS, Explorer
+from qcexplore.app.state import ExplorerState, fingerprint
+from qcexplore.demo import filling_line
+from qcexplore.errors import QCDataError
+from qcexplore.spec import Spec
+from qcexplore.study import Study
+
+FACTORS = ["crew", "shift", "nozzle"]
+
+
+def demo_study(seed: int = 0, days: int = 7) -> Study:
+    frame, _truth = filling_line(seed=seed, days=days)
+    return Study(
+        frame,
+        value="net_g",
+        subgroup="round",
+        time="taken_at",
+        factors=FACTORS,
+        measured_by=["crew"],
+        spec=Spec(lsl=500),
+        units="g",
+    )
+
+
+@pytest.fixture(scope="module")
+def study() -> Study:
+    return demo_study()
+
+
+@pytest.fixture
+def ex(study: Study) -> Explorer:
+    return Explorer(study)
+
+
+def source(ex: Explorer, name: str = "chart_points") -> ColumnDataSource:
+    return ex.slots["chart"].layout.select_one({"name": name, "type": ColumnDataSource})
+
+
+def limit_values(ex: Explorer) -> set[float]:
+    data = source(ex, "chart_limits").data
+    return {round(float(v), 9) for v in np.concatenate([data["y0"], data["y1"]])}
+
+
+def result_limit_values(result) -> set[float]:
+    cols = result.points[["center", "lcl", "ucl"]].to_numpy(dtype=float).ravel()
+    return {round(float(v), 9) for v in cols}
+
+
+def assert_shows(ex: Explorer, result) -> None:
+    """The chart sources hold exactly the result's points and limits."""
+    points = source(ex).data
+    assert len(points["value"]) == len(result.points)
+    np.testing.assert_allclose(points["value"], result.points["stat"].to_numpy(dtype=float))
+    assert limit_values(ex) == result_limit_values(result)
+
+
+def test_builds_with_chart_only(ex: Explorer, study: Study) -> None:
+    assert ex.status.value.count("Chart:") == 1 and "qcx-ok" in ex.status.value
+    assert set(ex._shown) == {"chart"}  # the other panels wait until their tab is shown
+    assert ex.tabs.titles == tuple(title for _, title in PANELS)
+    assert_shows(ex, study.chart())
+
+
+def test_split_by_gives_one_colour_per_stratum(ex: Explorer, study: Study) -> None:
+    ex.settings.by.value = "crew"  # as a user's choice in the dropdown
+    assert ex.state.by == "crew"
+    assert_shows(ex, study.chart(by="crew"))
+    data = pd.DataFrame({k: source(ex).data[k] for k in ("stratum", "color")})
+    per_level = data.groupby("stratum")["color"].nunique()
+    assert per_level.to_dict() == {"A": 1, "B": 1, "C": 1}
+    assert data["color"].nunique() == 3
+
+
+def test_per_stratum_limits_equal_study_chart(ex: Explorer, study: Study) -> None:
+    ex.set(by="shift", limits="per_stratum")
+    expected = study.chart(by="shift", limits="per_stratum")
+    assert_shows(ex, expected)
+    pd.testing.assert_frame_equal(ex.chart().limits, expected.limits)
+
+
+@pytest.mark.parametrize(
+    ("changes", "arguments"),
+    [
+        ({"sigma_level": 2.0}, {"sigma_level": 2.0}),
+        ({"sigma_method": "between_means"}, {"sigma_method": "between_means"}),
+        ({"rules": "western_electric"}, {"rules": "western_electric"}),
+        ({"kind": "xbar_s"}, {"kind": "xbar_s"}),
+        ({"kind": "ewma"}, {"kind": "ewma"}),
+        ({"center": 503.0}, {"center": 503.0}),
+        ({"adjust": True}, {"adjust_for": True}),
+    ],
+)
+def test_each_chart_setting(ex: Explorer, study: Study, changes: dict, arguments: dict) -> None:
+    ex.set(**changes)
+    assert_shows(ex, study.chart(**arguments))
+
+
+def test_controls_write_the_state(ex: Explorer) -> None:
+    s = ex.settings
+    s.sigma_level.value = 2.5
+    s.rules.value = "western_electric"
+    s.kind.value = "xbar_s"
+    s.center_mode.value = "target"  # no target typed yet: reported, nothing breaks
+    assert "target" in ex.status.value.lower() and "qcx-error" in ex.status.value
+    s.target.value = "501,5"  # a decimal comma is read as a point
+    assert ex.state.center == 501.5
+    assert (ex.state.sigma_level, ex.state.rules, ex.state.kind) == (2.5, "western_electric", "xbar_s")
+    assert float(source(ex, "chart_limits").data["y0"][0]) in result_limit_values(ex.chart())
+
+
+def test_date_window(ex: Explorer, study: Study) -> None:
+    ex.settings.start.value = dt.date(2026, 9, 8)
+    ex.settings.end.value = dt.date(2026, 9, 9)
+    assert (ex.state.start, ex.state.end) == ("2026-09-08", "2026-09-09")
+    window = study.restrict("2026-09-08", pd.Timestamp("2026-09-10") - pd.Timedelta(1, "ns"))
+    assert len(source(ex).data["value"]) == len(window.subgroups) == 48
+    assert_shows(ex, window.chart())
+
+
+def test_roles_build_a_new_study(ex: Explorer, study: Study) -> None:
+    ex.settings.subgroup.value = ""  # individual values
+    assert ex.state.subgroup is None
+    assert len(source(ex).data["value"]) == len(study.data)
+    assert ex.chart().kind == "imr"
+    ex.settings.subgroup.value = "day"  # daily subgroups: a new Study from study.data
+    assert len(source(ex).data["value"]) == 7
+    assert ex.study_for().subgroup == "day" and "day" not in ex.study_for().factors
+
+
+def test_in_place_refresh_keeps_the_figure(ex: Explorer) -> None:
+    layout, points = ex.slots["chart"].layout, source(ex)
+    before = list(points.data["value"])
+    ex.set(adjust=True)
+    assert ex.slots["chart"].layout is layout and source(ex) is points
+    assert list(points.data["value"]) != before
+    ex.set(by="crew")
+    crew_layout = ex.slots["chart"].layout
+    assert crew_layout is not layout  # a legend appears: draw.needs_rebuild says build
+    ex.set(by=None)
+    ex.set(by="crew")
+    assert ex.slots["chart"].layout is crew_layout  # built once, refreshed after
+
+
+def test_failing_computation_is_reported_and_view_kept(
+    ex: Explorer, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    before = list(source(ex).data["value"])
+
+    def broken(self, *args, **kwargs):
+        raise RuntimeError("the chart engine broke")
+
+    monkeypatch.setattr(Study, "chart", broken)
+    ex.settings.by.value = "shift"  # must not raise
+    assert "the chart engine broke" in ex.status.value and "qcx-error" in ex.status.value
+    assert list(source(ex).data["value"]) == before
+    monkeypatch.undo()
+    ex.set(sigma_level=2.0)  # the next change recomputes the chart
+    assert "qcx-ok" in ex.status.value
+
+
+def test_bad_roles_are_refused_and_controls_go_back(ex: Explorer) -> None:
+    ex.settings.subgroup.value = "crew"  # crew is a factor: the Study refuses it
+    assert "qcx-error" in ex.status.value and "subgroup" in ex.status.value
+    assert ex.state.subgroup == "round" and ex.settings.subgroup.value == "round"
+
+
+def test_tabs_compute_lazily_and_only_what_changed(
+    ex: Explorer, study: Study, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    ex.tabs.selected_index = 1
+    assert "variation" in ex._shown and "qcx-ok" in ex.status.value
+    text = ex.texts["variation"].value
+    assert "Variance components" in text and "residual" in text
+    assert ex.slots["components"].layout is not None
+
+    def broken(self, *args, **kwargs):
+        raise RuntimeError("variation must not be recomputed")
+
+    monkeypatch.setattr(Study, "variation", broken)
+    ex.set(by="crew")  # the chart changes, the sources of variation do not
+    assert "qcx-error" not in ex.status.value
+    assert ex._shown["chart"] != ex.state.chart_key  # the hidden chart waits
+    monkeypatch.undo()
+    ex.tabs.selected_index = 0
+    assert ex._shown["chart"] == ex.state.chart_key
+
+
+def test_time_and_capability_panels(ex: Explorer, study: Study) -> None:
+    ex.tabs.selected_index = 2
+    assert "Ljung-Box" in ex.texts["time"].value
+    assert ex.slots["acf"].layout is not None and ex.slots["shifts"].layout is not None
+    ex.tabs.selected_index = 3
+    indices = study.capability().indices
+    assert "Capability indices" in ex.texts["capability"].value
+    assert set(indices["index"]) <= set(ex.texts["capability"].value.split("<td>"))  or all(
+        f"<td>{i}</td>" in ex.texts["capability"].value for i in indices["index"]
+    )
+
+
+def test_findings_panel(ex: Explorer, study: Study) -> None:
+    ex.tabs.selected_index = 4
+    text = ex.texts["findings"].value
+    assert "do not decide product disposition" in text
+    for finding in study.findings():
+        assert finding.title.replace("'", "&#x27;").replace("<", "&lt;")[:20] in text
+
+
+def test_selection_table_and_exclusion(ex: Explorer, study: Study) -> None:
+    layout = ex.slots["chart"].layout
+    assert layout.select_one({"type": BoxSelectTool}) is not None
+    labels = [str(x) for x in study.subgroups["subgroup"][:5]]
+    source(ex).selected.indices = [0, 1, 2, 3, 4]  # as a box selection in the page does
+    assert ex.selected == tuple(labels)
+    rows = int(study.subgroups["n"][:5].sum())
+    assert f"Rows 1-{PAGE_ROWS} of {rows}" in ex.actions.selection.value
+    assert ex.actions.selection.value.count("<tr>") == PAGE_ROWS + 1  # header + one page
+    ex.actions.next.click()
+    assert f"Rows {PAGE_ROWS + 1}-{rows} of {rows}" in ex.actions.selection.value
+
+    ex.actions.exclude.click()  # no reason typed: refused, nothing excluded
+    assert "reason" in ex.status.value and ex.state.exclusions == ()
+    source(ex).selected.indices = [0, 1]
+    ex.actions.reason.value = "scale recalibrated <that hour>"
+    ex.actions.exclude.click()
+    assert ex.state.excluded == tuple(labels[:2])
+    expected = study.chart(exclude=tuple(study.subgroups["subgroup"][:2]))
+    assert_shows(ex, expected)
+    assert "&lt;that hour&gt;" in ex.actions.exclusions.value
+    ex.actions.restore_all.click()
+    assert ex.state.exclusions == ()
+    assert_shows(ex, study.chart())
+
+
+def test_log_round_trip(ex: Explorer, study: Study, tmp_path) -> None:
+    ex.set(by="crew", limits="per_stratum", sigma_level=2.5)
+    first = ex.chart().points["subgroup"].iloc[:3]
+    ex._select(tuple(str(x) for x in first))
+    ex.actions.reason.value = "jar dropped"
+    ex.exclude_selected()
+    ex.add_note("Crew B reads high on its own scale.")
+    path = ex.save(tmp_path / "log.json")
+    saved = json.loads(path.read_text())
+    assert saved["fingerprint"] == fingerprint(study.frame, study.roles())
+
+    again = Explorer(demo_study(), log=path)
+    assert again.state == ex.state
+    assert again.state.notes[0].text == "Crew B reads high on its own scale."
+    pd.testing.assert_frame_equal(again.chart().limits, ex.chart().limits)
+    assert list(again.chart().excluded) == list(ex.chart().excluded)
+    assert_shows(again, ex.chart())
+
+
+def test_log_against_other_data_is_refused(ex: Explorer, tmp_path) -> None:
+    path = ex.save(tmp_path / "log.json")
+    other = Explorer(demo_study(seed=1))
+    with pytest.raises(QCDataError, match="other data"):
+        other.load(path)
+    other.actions.path.value = str(path)
+    other.actions.load.click()  # from the button: reported, not raised
+    assert "other data" in other.status.value
+    with pytest.raises(QCDataError, match="not a qcexplore investigation log"):
+        (tmp_path / "x.json").write_text("{}")
+        other.load(tmp_path / "x.json")
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    by=st.sampled_from([None, "crew", "shift"]),
+    level=st.floats(1.0, 6.0),
+    method=st.sampled_from(["within", "between_means", "overall"]),
+    notes=st.lists(st.text(max_size=20), max_size=3),
+)
+def test_state_json_round_trip(by, level, method, notes) -> None:
+    state = ExplorerState(value="net_g", subgroup="round", by=by, sigma_level=level,
+                          sigma_method=method)
+    for text in notes:
+        state = state.note(text)
+    assert ExplorerState.from_dict(json.loads(json.dumps(state.to_dict()))) == state
+
+
+def test_stable_classes_and_bokehjs_outside_kernel(ex: Explorer) -> None:
+    assert "qcx-explorer" in ex._dom_classes
+    assert "qcx-split-by" in ex.settings.by._dom_classes
+    assert "qcx-exclude" in ex.actions.exclude._dom_classes
+    assert "qcx-panel-findings" in ex.panels["findings"]._dom_classes
+    assert "qcx-status" in ex.status._dom_classes
+    assert resources.load_bokehjs() is False  # no kernel, no page: nothing sent
+    bundle = ex._repr_mimebundle_()
+    assert "application/vnd.jupyter.widget-view+json" in bundle
