@@ -30,7 +30,7 @@ REPEATS = 5
 def make_result(k: int, seed: int) -> ChartResult:
     rng = np.random.default_rng(seed)
     stat = rng.normal(500.0, 2.0, k)
-    signal = rng.random(k) < 0.003
+    signal = rng.random(k) < 0.0002
     points = pd.DataFrame(
         {
             "subgroup": pd.Categorical(np.arange(1, k + 1), ordered=True),
@@ -67,7 +67,7 @@ def make_result(k: int, seed: int) -> ChartResult:
         "imr",
         points,
         limits,
-        secondary=ChartResult("mr", mr, limits),
+        secondary=ChartResult("mr", mr, limits, statistic="moving range"),
         statistic="value",
         sigma_method="within",
     )

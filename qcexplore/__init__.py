@@ -21,6 +21,7 @@ __version__ = "0.1.0"
 _LAZY = {
     "constants": "qcexplore.stats.constants",
     "arl": "qcexplore.stats.arl",
+    "arl_detail": "qcexplore.stats.arl",
     "gauge_study": "qcexplore.stats.gauge",
     "Finding": "qcexplore.findings",
 }
@@ -42,6 +43,7 @@ __all__ = [
     "Spec",
     "Study",
     "arl",
+    "arl_detail",
     "constants",
     "demo",
     "explore",

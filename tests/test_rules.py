@@ -10,7 +10,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from qcexplore.errors import QCDataError
-from qcexplore.stats.rules import RULE_SETS, RULE_TEXT, evaluate_rules, resolve_rules
+from qcexplore.stats.rules import (
+    RULE_SETS,
+    RULE_TEXT,
+    evaluate_rows,
+    evaluate_rules,
+    resolve_rules,
+)
 
 ALL = RULE_SETS["western_electric"] + RULE_SETS["nelson"]
 
@@ -242,3 +248,20 @@ def test_empty_series() -> None:
     assert signal.shape == (0,) and fired == []
     signal, fired = evaluate_rules([1.0, np.nan], 0.0, 1.0, ())
     assert signal.tolist() == [False, False] and fired == [(), ()]
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(grid, min_size=1, max_size=40), st.integers(1, 4), st.sampled_from([2.5, 3.0]))
+def test_rows_agree_with_segments(values: list[float], rows: int, level: float) -> None:
+    z = np.tile(np.asarray(values), (rows, 1)) * np.arange(1, rows + 1)[:, None] / 2
+    labels = np.repeat(np.arange(rows), len(values))
+    expected, _ = evaluate_rules(z.ravel(), 0.0, 1.0, ALL, sigma_level=level, segments=labels)
+    got = evaluate_rows(z, ALL, sigma_level=level)
+    np.testing.assert_array_equal(got.ravel(), expected)
+
+
+def test_rows_reject_nan_and_1d() -> None:
+    with pytest.raises(QCDataError, match="z"):
+        evaluate_rows(np.array([0.0, 1.0]), "nelson")
+    with pytest.raises(QCDataError, match="z"):
+        evaluate_rows(np.array([[0.0, np.nan]]), "nelson")

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -286,6 +288,48 @@ def test_balanced_within_factor_ems_agrees_with_reml():
     assert a.to_numpy() == pytest.approx(b.to_numpy(), rel=2e-3)
 
 
+@pytest.mark.parametrize("with_crew", [False, True])
+def test_unbalanced_nested_reml_matches_mixedlm(with_crew):
+    # statsmodels MixedLM (REML): crew random intercept with subgroups as a variance
+    # component inside crew, or subgroups alone; unequal subgroup sizes
+    rng = np.random.default_rng(21)
+    k = 60
+    sizes = rng.integers(1, 9, k)
+    sg = np.repeat(np.arange(k), sizes)
+    crew = ((np.arange(k) // 4) % 5)[sg]
+    y = 100 + rng.normal(size=sg.size) + rng.normal(size=k)[sg] + rng.normal(0, 0.5, 5)[crew]
+    f = pd.DataFrame({"sg": pd.Categorical(sg, ordered=True), "crew": pd.Categorical(crew), "y": y})
+    r = variation(f, value="y", subgroup="sg", factors=["crew"] if with_crew else [])
+    assert r.method.endswith("REML (nested, from sufficient statistics)")
+    c = r.components.set_index("source")["variance"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        if with_crew:
+            fit = smf.mixedlm(
+                "y ~ 1", f, groups="crew", re_formula="1", vc_formula={"s": "0 + C(sg)"}
+            ).fit(reml=True)
+            assert c["crew"] == pytest.approx(float(fit.cov_re.iloc[0, 0]), rel=1e-3)
+            assert c["subgroup"] == pytest.approx(float(fit.vcomp[0]), rel=1e-3)
+        else:
+            fit = smf.mixedlm("y ~ 1", f, groups="sg").fit(reml=True)
+            assert c["subgroup"] == pytest.approx(float(fit.cov_re.iloc[0, 0]), rel=1e-3)
+    assert c["residual"] == pytest.approx(fit.scale, rel=1e-3)
+
+
+def test_single_values_unbalanced_reml_matches_mixedlm():
+    # statsmodels MixedLM (REML, random intercept per spray) on InsectSprays without its
+    # first three rows (unbalanced)
+    f = _single_values(data("InsectSprays").iloc[3:], "count", ["spray"])
+    r = variation(f, value="count", subgroup="obs", factors=["spray"])
+    assert "REML" in r.method
+    c = r.components.set_index("source")["variance"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fit = smf.mixedlm("count ~ 1", f, groups="spray").fit(reml=True)
+    assert c["spray"] == pytest.approx(float(fit.cov_re.iloc[0, 0]), rel=1e-3)
+    assert c["residual"] == pytest.approx(fit.scale, rel=1e-3)
+
+
 def test_negative_component_set_to_zero_with_note():
     rng = np.random.default_rng(11)
     f = pd.DataFrame(
@@ -510,3 +554,46 @@ def test_result_shapes_and_input_untouched():
         ]
     assert "table" in r.to_frame().columns
     assert "Sources of variation" in r._repr_html_()
+
+
+def test_factor_that_is_the_subgroup_is_confounded_with_it():
+    sg = np.repeat(np.arange(6), 4)
+    f = pd.DataFrame(
+        {
+            "sg": pd.Categorical(sg, ordered=True),
+            "day": pd.Categorical(sg.astype(str)),
+            "y": np.random.default_rng(20).normal(size=24),
+        }
+    )
+    r = variation(f, value="y", subgroup="sg", factors=["day"])
+    row = r.structure.iloc[0]
+    assert (row["relation"], row["with_"]) == ("confounded", "sg")
+    assert "day" not in set(r.anova["source"])
+    assert any("single subgroup" in n for n in r.notes)
+
+
+@settings(max_examples=20, deadline=None)
+@given(
+    sizes=st.lists(st.integers(1, 6), min_size=3, max_size=12),
+    levels=st.integers(1, 4),
+    seed=st.integers(0, 1000),
+    constant=st.booleans(),
+)
+def test_any_small_layout_gives_valid_tables(sizes, levels, seed, constant):
+    rng = np.random.default_rng(seed)
+    sg = np.repeat(np.arange(len(sizes)), sizes)
+    f = pd.DataFrame(
+        {
+            "sg": pd.Categorical(sg, ordered=True),
+            "noz": pd.Categorical(rng.integers(0, levels, sg.size).astype(str)),
+            "crew": pd.Categorical(rng.integers(0, 2, len(sizes))[sg].astype(str)),
+            "y": np.ones(sg.size) if constant else rng.normal(size=sg.size),
+        }
+    )
+    r = variation(f, value="y", subgroup="sg", factors=["crew", "noz"], components="ems")
+    p = r.anova["p"].dropna()
+    assert ((p >= 0) & (p <= 1)).all()
+    assert (r.components["variance"].dropna() >= 0).all()
+    share = r.components["share"]
+    assert share.isna().all() or share.sum() == pytest.approx(1.0)
+    assert set(r.structure["relation"]) <= {"within_subgroup", "between_subgroups", "confounded"}

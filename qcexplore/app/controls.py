@@ -190,9 +190,10 @@ class Settings:
         """
         self._muted = True
         try:
-            with self.by.hold_trait_notifications():
-                self.by.options = [("no split", NONE)] + [(f, f) for f in split_choices]
-                self.by.value = state.by if state.by in split_choices else NONE
+            options = [("no split", NONE)] + [(f, f) for f in split_choices]
+            if list(self.by.options) != options:
+                self.by.options = options
+            self.by.value = state.by if state.by in split_choices else NONE
             self.value.value = state.value
             self.subgroup.value = state.subgroup or NONE
             self.time.value = state.time or NONE

@@ -476,7 +476,8 @@ class Explorer(widgets.VBox):
         else:
             study = self.study_for()
             column = study.frame[study.subgroup_column]
-            chosen = [i for i, c in enumerate(column.cat.categories) if str(c) in set(labels)]
+            names = column.cat.categories.astype(str)
+            chosen = np.flatnonzero(np.isin(np.asarray(names, dtype=object), labels))
             rows = np.isin(column.cat.codes.to_numpy(), chosen)
             self._selected_rows = study.data.loc[rows]
         self._show_page()

@@ -28,6 +28,7 @@ import tempfile
 import threading
 import time
 from collections.abc import Callable, Mapping, Sequence
+from dataclasses import asdict, dataclass
 from importlib.resources import files
 from pathlib import Path
 from typing import Any
@@ -70,8 +71,15 @@ def new_token() -> str:
     return secrets.token_urlsafe(24)
 
 
-def free_port(host: str = "127.0.0.1") -> int:
-    """A TCP port that is free on ``host`` right now (the system picks it).
+def free_port(host: str = "127.0.0.1", port: int = 0) -> int:
+    """A TCP port that can be listened on at ``host`` right now.
+
+    ``port=0`` lets the system pick a free one; a given port is checked.
+
+    Raises
+    ------
+    QCDataError
+        When the address cannot be listened on (port in use, unknown host).
 
     Examples
     --------
@@ -80,11 +88,33 @@ def free_port(host: str = "127.0.0.1") -> int:
     """
     family = socket.AF_INET6 if ":" in host else socket.AF_INET
     with socket.socket(family, socket.SOCK_STREAM) as probe:
-        probe.bind((host, 0))
+        try:
+            probe.bind((host, port))
+        except (OSError, OverflowError) as error:
+            reason = getattr(error, "strerror", None) or str(error)
+            raise QCDataError(
+                f"Cannot listen on {host} port {port or 'any'} ({reason}): choose another "
+                "--port (or leave it out for a free one) or check --host."
+            ) from None
         return int(probe.getsockname()[1])
 
 
-def write_app_folder(study: Study, folder: Path, *, title: str) -> Path:
+@dataclass(frozen=True)
+class AppSettings:
+    """What the served page shows besides the study.
+
+    ``workdir``: the folder the kernel works in (where the explorer saves and loads
+    investigation logs): the folder ``qcexplore app`` was started in, not the
+    temporary app folder that is removed when the server stops. ``log``: an
+    investigation log to open the explorer with.
+    """
+
+    title: str = ""
+    workdir: str | None = None
+    log: str | None = None
+
+
+def write_app_folder(study: Study, folder: Path, settings: AppSettings | None = None) -> Path:
     """Write the study, the page's settings and the notebook into ``folder``.
 
     Returns the settings file, to be named by :data:`CONFIG_ENV` for the kernel.
@@ -93,8 +123,8 @@ def write_app_folder(study: Study, folder: Path, *, title: str) -> Path:
     --------
     >>> import tempfile
     >>> from qcexplore.demo import filling_line
-    >>> s = Study(filling_line()[0], value="net_g", subgroup="round")
-    >>> config = write_app_folder(s, Path(tempfile.mkdtemp()), title="demo")
+    >>> s = Study(filling_line(days=2)[0], value="net_g", subgroup="round")
+    >>> config = write_app_folder(s, Path(tempfile.mkdtemp()), AppSettings(title="demo"))
     >>> sorted(p.name for p in config.parent.iterdir())
     ['app.ipynb', 'app.json', 'study.pickle']
     """
@@ -104,21 +134,24 @@ def write_app_folder(study: Study, folder: Path, *, title: str) -> Path:
     with (folder / _STUDY_FILE).open("wb") as handle:
         pickle.dump(study, handle, protocol=pickle.HIGHEST_PROTOCOL)
     config = folder / _CONFIG_FILE
-    config.write_text(json.dumps({"study": _STUDY_FILE, "title": title}), encoding="utf-8")
+    content = {"study": _STUDY_FILE, **asdict(settings or AppSettings())}
+    config.write_text(json.dumps(content), encoding="utf-8")
     (folder / NOTEBOOK).write_bytes(files("qcexplore.app").joinpath(NOTEBOOK).read_bytes())
     return config
 
 
-def load_app_study(config: str | os.PathLike | None = None) -> tuple[Study, str]:
-    """The study and page title that :func:`serve` handed to the notebook.
+def load_app_study(config: str | os.PathLike | None = None) -> tuple[Study, AppSettings]:
+    """The study and settings that :func:`serve` handed to the notebook.
+
+    ``config``: the settings file (default: the one :data:`CONFIG_ENV` names).
 
     Examples
     --------
     >>> import tempfile
     >>> from qcexplore.demo import filling_line
-    >>> s = Study(filling_line()[0], value="net_g", subgroup="round")
-    >>> config = write_app_folder(s, Path(tempfile.mkdtemp()), title="demo")
-    >>> load_app_study(config)[1]
+    >>> s = Study(filling_line(days=2)[0], value="net_g", subgroup="round")
+    >>> config = write_app_folder(s, Path(tempfile.mkdtemp()), AppSettings(title="demo"))
+    >>> load_app_study(config)[1].title
     'demo'
     """
     path = config if config is not None else os.environ.get(CONFIG_ENV)
@@ -128,10 +161,10 @@ def load_app_study(config: str | os.PathLike | None = None) -> tuple[Study, str]
             "start it with `qcexplore app DATA ...`."
         )
     path = Path(path)
-    settings = json.loads(path.read_text(encoding="utf-8"))
-    with (path.parent / settings["study"]).open("rb") as handle:
+    content = json.loads(path.read_text(encoding="utf-8"))
+    with (path.parent / content.pop("study")).open("rb") as handle:
         study = pickle.load(handle)
-    return study, str(settings.get("title", ""))
+    return study, AppSettings(**content)
 
 
 def app_view(config: str | os.PathLike | None = None) -> Any:
@@ -141,8 +174,8 @@ def app_view(config: str | os.PathLike | None = None) -> Any:
     --------
     >>> import tempfile
     >>> from qcexplore.demo import filling_line
-    >>> s = Study(filling_line()[0], value="net_g", subgroup="round")
-    >>> config = write_app_folder(s, Path(tempfile.mkdtemp()), title="demo")
+    >>> s = Study(filling_line(days=2)[0], value="net_g", subgroup="round")
+    >>> config = write_app_folder(s, Path(tempfile.mkdtemp()), AppSettings(title="demo"))
     >>> type(app_view(config).children[1]).__name__
     'Explorer'
     """
@@ -152,10 +185,12 @@ def app_view(config: str | os.PathLike | None = None) -> Any:
 
     from qcexplore.app.resources import load_bokehjs
 
-    study, title = load_app_study(config)
-    explorer = study.explore()
+    study, settings = load_app_study(config)
+    if settings.workdir and Path(settings.workdir).is_dir():
+        os.chdir(settings.workdir)
+    explorer = study.explore(log=settings.log)
     heading = widgets.HTML(
-        f"<h2 class='qcexplore-app-title'>{html.escape(title)}</h2>",
+        f"<h2 class='qcexplore-app-title'>{html.escape(settings.title)}</h2>",
         layout=widgets.Layout(margin="0 0 0 8px"),
     )
     # The explorer loads BokehJS when it is displayed itself; wrapped, it is loaded here.
@@ -190,8 +225,10 @@ def voila_arguments(
         f"--Voila.root_dir={notebook.parent}",
         "--theme=light",
         f"--MappingKernelManager.cull_idle_timeout={int(idle_timeout)}",
-        f"--MappingKernelManager.cull_interval={max(5, min(60, int(idle_timeout) // 2))}",
+        f"--MappingKernelManager.cull_interval={max(1, min(60, int(idle_timeout) // 2))}",
         "--Voila.log_level=ERROR",
+        # Kernels talk to the server over local sockets: no TCP ports, nothing in plain text.
+        "--KernelManager.transport=ipc",
     ]
     if preheat:
         args += ["--preheat_kernel=True", "--pool_size=1"]
@@ -220,7 +257,7 @@ def app_address(host: str, port: int, token: str | None) -> str:
 def serve(
     study: Study,
     *,
-    title: str = "",
+    settings: AppSettings | None = None,
     host: str = "127.0.0.1",
     port: int | None = None,
     token: str | None = None,
@@ -233,7 +270,8 @@ def serve(
     Parameters
     ----------
     study : the study to explore
-    title : heading of the page (e.g. the data file's name)
+    settings : the page's title, the kernel's working folder and an investigation log
+        to open (default: no title, the current folder, no log)
     host : address to listen on; anything other than loopback needs ``token``
     port : TCP port (default: a free one)
     token : access token; requests without it are refused
@@ -257,21 +295,18 @@ def serve(
             "(or use the default host 127.0.0.1)."
         )
     from tornado.ioloop import IOLoop
+    from tornado.web import GZipContentEncoding
     from voila.app import Voila
 
     say = announce or (lambda line: print(line, flush=True))
-    port = port or free_port("127.0.0.1" if host in ("0.0.0.0", "") else host)
+    port = free_port(host or "0.0.0.0", port or 0)
     address = app_address(host, port, token)
-
-    class _AppServer(Voila):
-        def listen(self) -> None:
-            IOLoop.current().add_callback(say, f"qcexplore app: {address} (Ctrl-C stops)")
-            super().listen()
 
     folder = Path(tempfile.mkdtemp(prefix="qcexplore-app-"))
     previous = os.environ.get(CONFIG_ENV)
     try:
-        os.environ[CONFIG_ENV] = str(write_app_folder(study, folder, title=title))
+        settings = settings or AppSettings(workdir=os.getcwd())
+        os.environ[CONFIG_ENV] = str(write_app_folder(study, folder, settings))
         server = Voila()
         server.stop = lambda: _stop_kernels(server)
         server.initialize(
@@ -284,8 +319,13 @@ def serve(
                 preheat=preheat,
             )
         )
-        # Runs once the server listens (Voila starts this same loop after binding the port).
-        IOLoop.current().add_callback(say, f"qcexplore app: {address} (Ctrl-C stops)")
+
+        def listening() -> None:  # Voila starts this loop once the port is bound
+            if not is_loopback(host):  # the page carries BokehJS (MB): gzip it on a network
+                server.app.add_transform(GZipContentEncoding)
+            say(f"qcexplore app: {address} (Ctrl-C stops)")
+
+        IOLoop.current().add_callback(listening)
         server.start()  # returns after Ctrl-C or SIGTERM, kernels shut down
     finally:
         if previous is None:
@@ -316,6 +356,40 @@ def _stop_kernels(server: Any) -> None:
                 run_sync(manager.shutdown_kernel)(kernel_id, now=True)
             except Exception as gone:  # already stopped on its own
                 server.log.info("Kernel %s: %s", kernel_id, gone)
+
+
+def private_environment(
+    home: str | os.PathLike,
+    base: Mapping[str, str] | None = None,
+    *,
+    python_path: Sequence[str | os.PathLike] = (),
+) -> dict[str, str]:
+    """An environment in which Jupyter (Voila, JupyterLab, kernels) writes only under ``home``.
+
+    For tests and throw-away servers: ``HOME``, the Jupyter config, data and runtime
+    folders and the IPython folder all point into ``home``. ``base``: the environment
+    to start from (default: this process's); ``python_path``: folders put first on
+    ``PYTHONPATH`` (e.g. a source checkout, so kernels import it).
+
+    Examples
+    --------
+    >>> env = private_environment("/tmp/h", {})
+    >>> env["HOME"], env["JUPYTER_RUNTIME_DIR"], env["JUPYTER_PLATFORM_DIRS"]
+    ('/tmp/h', '/tmp/h/runtime', '1')
+    """
+    home = Path(home)
+    env = dict(os.environ if base is None else base)
+    env.update(
+        HOME=str(home),
+        JUPYTER_PLATFORM_DIRS="1",
+        JUPYTER_CONFIG_DIR=str(home / "config"),
+        JUPYTER_DATA_DIR=str(home / "data"),
+        JUPYTER_RUNTIME_DIR=str(home / "runtime"),
+        IPYTHONDIR=str(home / "ipython"),
+    )
+    paths = [str(p) for p in python_path] + [env.get("PYTHONPATH", "")]
+    env["PYTHONPATH"] = os.pathsep.join(p for p in paths if p)
+    return env
 
 
 def launch(

@@ -227,8 +227,11 @@ def chart_arguments(state: ExplorerState, study: Any) -> dict[str, Any]:
     >>> chart_arguments(ExplorerState(value="net_g", subgroup="round"), s)["limits"]
     'pooled'
     """
-    labels = study.frame[study.subgroup_column].cat.categories
-    by_label = {str(c): c for c in labels}
+    exclude: tuple[Any, ...] = ()
+    if state.exclusions:
+        categories = study.frame[study.subgroup_column].cat.categories
+        position = pd.Index(categories.astype(str)).get_indexer(list(state.excluded))
+        exclude = tuple(categories[i] for i in position if i >= 0)
     return {
         "kind": state.kind,
         "by": state.by,
@@ -237,6 +240,6 @@ def chart_arguments(state: ExplorerState, study: Any) -> dict[str, Any]:
         "sigma_method": state.sigma_method,
         "center": state.center,
         "rules": state.rules,
-        "exclude": tuple(by_label[x] for x in state.excluded if x in by_label),
+        "exclude": exclude,
         "adjust_for": True if state.adjust else None,
     }

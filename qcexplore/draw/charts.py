@@ -10,17 +10,23 @@ Layout and names (stable, for :func:`qcexplore.draw.refresh` and for browser tes
   ``"secondary_chart_0"``, ... below them, one column per stratum level;
 - data sources, shared by all panels (each panel shows its rows through a filter on
   the ``panel`` column): ``"chart_points"``, ``"chart_signals"``, ``"chart_line"``,
-  ``"chart_limits"`` and the same four with the ``"secondary_"`` prefix.
+  ``"chart_limits"`` and the same four with the ``"secondary_"`` prefix, plus
+  ``"chart_legend"``.
 
 Source columns:
 
-- ``*_points`` and ``*_signals``: ``x, value, subgroup, stratum, n, rules, color``, plus
-  ``time`` (milliseconds since the epoch) when the points have a ``start`` and
-  ``panel`` when split. ``*_signals`` holds exactly the rows with ``signal`` true.
+- ``*_points``: ``x, value, subgroup, n``, plus ``stratum`` and ``color`` when there
+  are strata, ``time`` (milliseconds since the epoch, wall clock) when the points have
+  a ``start`` and ``panel`` when split. ``subgroup`` holds numbers when the subgroups
+  are numbers, else text.
+- ``*_signals``: exactly the rows with ``signal`` true, the same columns plus
+  ``rules`` (the rule ids that fired with their plain-words description).
 - ``*_line`` (thin joining line, as segments): ``x0, y0, x1, y1`` (+ ``panel``). Empty
   above :data:`~qcexplore.draw.theme.LINE_UP_TO` points.
 - ``*_limits`` (centre and limits as step lines): ``x0, y0, x1, y1, role`` with role
   ``"center"`` or ``"limit"`` (+ ``panel``).
+- ``"chart_legend"`` (overlay with strata only): ``stratum, color, x, value``, one row
+  per level shown (positions NaN: it only feeds the legend).
 
 The x position of a point is its subgroup's position 1..k in time order (the code of
 the ordered subgroup Categorical, or the order of first appearance), or the
@@ -135,18 +141,21 @@ def _chart_sources(
     data: dict[str, Any] = {
         "x": x,
         "value": y,
-        "subgroup": theme.labels(points["subgroup"]),
-        "stratum": stratum_text,
+        "subgroup": theme.hover_values(points["subgroup"]),
         "n": points["n"].to_numpy(),
-        "rules": theme.rule_words(points["rules"]),
-        "color": theme.colors_for(stratum.astype(object).map(str).where(stratum.notna()), levels),
     }
+    # Text columns are what makes a long chart slow to send and decode in the page:
+    # stratum and colour only when there are strata.
+    if spec["strata"]:
+        data["stratum"] = stratum_text
+        data["color"] = theme.colors_for(stratum_text, levels)
     if spec["time"]:
         data["time"] = theme.time_ms(points["start"])
     if panelled:
         data["panel"] = panel
     signal = points["signal"].to_numpy(dtype=bool)
     signals = {k: v[signal] for k, v in data.items()}
+    signals["rules"] = theme.rule_words(points["rules"][signal])
 
     # Join within a stratum when strata share positions (a factor that varies inside
     # subgroups), else join all points in time order.
@@ -201,6 +210,14 @@ def chart_sources(result: ChartResult, spec: dict[str, Any]) -> dict[str, dict[s
     stratum = result.points["stratum"] if "stratum" in result.points else pd.Series([])
     levels = [str(v) for v in theme.levels_of(stratum)]
     out = _chart_sources(result, spec, "chart", levels)
+    if spec["strata"] and spec["panels"] == ["all"]:
+        shown = [v for v in levels if v in set(out["chart_points"]["stratum"])]
+        out["chart_legend"] = {
+            "stratum": np.array(shown, dtype=object),
+            "color": theme.colors_for(shown, levels),
+            "x": np.full(len(shown), np.nan),
+            "value": np.full(len(shown), np.nan),
+        }
     if result.secondary is not None:
         out.update(_chart_sources(result.secondary, spec, "secondary", levels))
     return out
@@ -254,37 +271,28 @@ def chart_texts(result: ChartResult, spec: dict[str, Any]) -> dict[str, str]:
     return texts
 
 
-def _tooltips(spec: dict[str, Any]) -> list[tuple[str, str]]:
+def _tooltips(spec: dict[str, Any], rules: bool) -> list[tuple[str, str]]:
     tips = [("time", "@time{%F %H:%M}")] if spec["time"] else []
-    return tips + [
-        ("subgroup", "@subgroup"),
-        ("stratum", "@stratum"),
-        ("n", "@n"),
-        ("value", "@value{0,0.[0000]}"),
-        ("rules", "@rules"),
-    ]
+    tips.append(("subgroup", "@subgroup"))
+    if spec["strata"]:
+        tips.append(("stratum", "@stratum"))
+    tips += [("n", "@n"), ("value", "@value{0,0.[0000]}")]
+    return tips + [("rules", "@rules")] if rules else tips
 
 
 def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec: dict) -> None:
     line, limits = sources[f"{prefix}_line"], sources[f"{prefix}_limits"]
     points, signals = sources[f"{prefix}_points"], sources[f"{prefix}_signals"]
     flt = None if panel == "all" else panel
-    styles = (
-        (line, theme.view(flt), {"line_color": theme.LINE, "line_width": theme.LINE_WIDTH}),
-        (limits, theme.view(flt, "center"), {"line_color": theme.CENTER, "line_width": 1.5}),
-        (
-            limits,
-            theme.view(flt, "limit"),
-            {"line_color": theme.LIMIT, "line_width": 1.5, "line_dash": "dashed"},
-        ),
-    )
-    for src, rows, style in styles:
-        fig.segment("x0", "y0", "x1", "y1", source=src, view=rows, **style)
-    # The legend sits above the main chart only, so the panels below keep its x extent.
-    legend = (
-        {"legend_field": "stratum"}
-        if spec["strata"] and panel == "all" and prefix == "chart"
-        else {}
+    fig.segment(
+        "x0",
+        "y0",
+        "x1",
+        "y1",
+        source=line,
+        view=theme.view(flt),
+        line_color=theme.LINE,
+        line_width=theme.LINE_WIDTH,
     )
     dots = fig.scatter(
         "x",
@@ -292,9 +300,29 @@ def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec
         source=points,
         view=theme.view(flt),
         size=theme.POINT_SIZE,
-        color="color",
-        line_color="color",
-        **legend,
+        color="color" if spec["strata"] else theme.POINT,
+    )
+    # Centre and limits above the points: on a dense chart they would vanish below them.
+    fig.segment(
+        "x0",
+        "y0",
+        "x1",
+        "y1",
+        source=limits,
+        view=theme.view(flt, "center"),
+        line_color=theme.CENTER,
+        line_width=1.5,
+    )
+    fig.segment(
+        "x0",
+        "y0",
+        "x1",
+        "y1",
+        source=limits,
+        view=theme.view(flt, "limit"),
+        line_color=theme.LIMIT,
+        line_width=1.5,
+        line_dash="dashed",
     )
     marks = fig.scatter(
         "x",
@@ -306,16 +334,28 @@ def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec
         line_color=theme.ACCENT,
         line_width=2,
     )
-    fig.add_tools(
-        HoverTool(
-            renderers=[dots, marks],
-            tooltips=_tooltips(spec),
-            formatters={"@time": "datetime"},
+    # The rules that fired are in the signals' hover text (a signal shows both tips).
+    for renderers, rules in (([dots], False), ([marks], True)):
+        fig.add_tools(
+            HoverTool(
+                renderers=renderers,
+                tooltips=_tooltips(spec, rules),
+                formatters={"@time": "datetime"},
+            )
         )
-    )
-    if legend:
+    if spec["strata"] and panel == "all" and prefix == "chart":
+        # One legend row per level from the small "chart_legend" source (nothing drawn:
+        # its positions are NaN); grouping 250,000 points in the page would be slow. It
+        # sits above the main chart only, so the chart below keeps the same x extent.
+        fig.scatter(
+            "x",
+            "value",
+            source=sources["chart_legend"],
+            color="color",
+            size=theme.POINT_SIZE + 3,
+            legend_field="stratum",
+        )
         fig.legend.orientation = "horizontal"
-        fig.legend.click_policy = "hide"
         fig.legend.border_line_color = None
         fig.add_layout(fig.legend[0], "above")
     fig.xaxis.axis_label = (

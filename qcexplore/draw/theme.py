@@ -107,17 +107,18 @@ def levels_of(column: pd.Series) -> list[Any]:
         return list(present)
 
 
-def colors_for(column: pd.Series, levels: Sequence[Any]) -> np.ndarray:
-    """One colour per row: its level's colour, or :data:`POINT` where the level is missing.
+def colors_for(column: Sequence[Any], levels: Sequence[Any]) -> np.ndarray:
+    """One colour per row: its level's colour, or :data:`POINT` where it is not a level.
 
     Examples
     --------
-    >>> colors_for(pd.Series(["b", None]), ["a", "b"]).tolist()
+    >>> colors_for(["b", None], ["a", "b"]).tolist()
     ['#E69F00', '#3b3b3b']
     """
     palette = palette_for(levels)
-    mapped = column.astype(object).map(palette)
-    return mapped.where(mapped.notna(), POINT).to_numpy(dtype=object)
+    codes = pd.Index(list(palette), dtype=object).get_indexer(np.asarray(column, dtype=object))
+    colours = np.array([*palette.values(), POINT], dtype=object)
+    return colours[np.where(codes >= 0, codes, len(palette))]
 
 
 def labels(column: pd.Series) -> np.ndarray:
@@ -125,43 +126,54 @@ def labels(column: pd.Series) -> np.ndarray:
 
     Examples
     --------
-    >>> labels(pd.Series(["a", None])).tolist()
+    >>> labels(pd.Series(["a", None, "a"])).tolist()
+    ['a', '', 'a']
+    """
+    codes, uniques = pd.factorize(column)
+    texts = np.array([*(str(u) for u in uniques), ""], dtype=object)
+    return texts[codes]  # code -1 (missing) picks the trailing empty text
+
+
+def hover_values(column: pd.Series) -> np.ndarray:
+    """Values for hover text only: numbers stay numbers (sent to the page as compact
+    binary arrays), anything else becomes :func:`labels`.
+
+    Examples
+    --------
+    >>> hover_values(pd.Series(pd.Categorical([3, 1]))).tolist()
+    [3, 1]
+    >>> hover_values(pd.Series(["a", None])).tolist()
     ['a', '']
     """
-    return column.astype(object).where(column.notna(), "").astype(str).to_numpy(dtype=object)
+    values = column.cat.categories if isinstance(column.dtype, pd.CategoricalDtype) else column
+    if pd.api.types.is_numeric_dtype(values.dtype) and not pd.api.types.is_bool_dtype(values.dtype):
+        if isinstance(column.dtype, pd.CategoricalDtype):
+            codes = column.cat.codes.to_numpy()
+            if (codes >= 0).all():
+                return values.to_numpy()[codes]
+        elif column.notna().all():
+            return column.to_numpy()
+    return labels(column)
 
 
 def rule_words(rules: pd.Series) -> np.ndarray:
     """The rules that fired, as ids with their plain-words description, one text per row.
 
-    Rows where no rule fired get an empty text; only the signalled rows are formatted,
-    so a long series without signals costs one pass.
+    Rows where no rule fired get an empty text.
 
     Examples
     --------
     >>> rule_words(pd.Series([("N1",), ()])).tolist()
     ['N1: one point beyond the control limits', '']
     """
-    out = np.full(len(rules), "", dtype=object)
-    fired = rules.map(lambda ids: bool(ids) if isinstance(ids, (tuple, list)) else False)
-    idx = np.flatnonzero(fired.to_numpy(dtype=bool))
     values = rules.to_numpy(dtype=object)
-    for i in idx:
+    out = np.full(values.size, "", dtype=object)
+    fired = np.fromiter(
+        (isinstance(r, (tuple, list)) and len(r) > 0 for r in values), bool, count=values.size
+    )
+    for i in np.flatnonzero(fired):
         out[i] = "; ".join(f"{r}: {RULE_TEXT.get(r, r)}" for r in values[i])
     return out
-
-
-def rule_ids(rules: pd.Series) -> np.ndarray:
-    """The rule ids that fired, joined with commas, one text per row.
-
-    Examples
-    --------
-    >>> rule_ids(pd.Series([("N1", "N5"), ()])).tolist()
-    ['N1, N5', '']
-    """
-    return np.array(
-        [", ".join(r) if isinstance(r, (tuple, list)) else "" for r in rules], dtype=object
-    )
 
 
 def time_ms(column: pd.Series) -> np.ndarray:

@@ -166,7 +166,12 @@ def shifts_sources(result: TimeResult, spec: dict[str, Any]) -> dict[str, dict]:
     )
     y = series["mean"].to_numpy(dtype=float)
     labels = theme.labels(series["subgroup"])
-    points: dict[str, Any] = {"x": x, "value": y, "subgroup": labels, "n": series["n"].to_numpy()}
+    points: dict[str, Any] = {
+        "x": x,
+        "value": y,
+        "subgroup": theme.hover_values(series["subgroup"]),
+        "n": series["n"].to_numpy(),
+    }
     if spec["time"]:
         points["time"] = theme.time_ms(series["start"])
     keep = np.arange(len(series)) if len(series) <= theme.LINE_UP_TO else np.arange(0)

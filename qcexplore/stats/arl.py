@@ -19,8 +19,9 @@ Methods, by design:
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy import sparse, special
@@ -72,15 +73,12 @@ def _positive(name: str, value: object, *, upper: float = math.inf) -> float:
     return value
 
 
-def _tail(x: np.ndarray | float) -> np.ndarray | float:
-    return special.ndtr(x)
-
-
 def _shewhart_exact(delta: float, level: float) -> ArlResult:
     p = special.ndtr(-level - delta) + special.ndtr(-level + delta)
     return ArlResult(float(1.0 / p), "exact")
 
 
+@lru_cache(maxsize=256)
 def _zone_chain(delta: float, ids: tuple[str, ...], level: float) -> ArlResult:
     """Zero-state ARL from the Markov chain over the zone history (Champ and Woodall 1987)."""
     has = set(ids)
@@ -148,6 +146,7 @@ def _zone_chain(delta: float, ids: tuple[str, ...], level: float) -> ArlResult:
     return ArlResult(float(np.atleast_1d(times)[0]), "markov_chain")
 
 
+@lru_cache(maxsize=256)
 def _monte_carlo(
     delta: float, ids: tuple[str, ...], level: float, n_sim: int, seed: int
 ) -> ArlResult:
@@ -172,7 +171,7 @@ def _monte_carlo(
     return ArlResult(float(runs.mean()), "monte_carlo", float(runs.std(ddof=1) / math.sqrt(n_sim)))
 
 
-def _richardson(solve: callable, size: callable) -> float:  # type: ignore[valid-type]
+def _richardson(solve: Callable[[int], float], size: Callable[[int], float]) -> float:
     """Combine grids of _GRID and 2*_GRID states; the grid error falls as the cell width^2."""
     coarse, fine = solve(_GRID), solve(2 * _GRID)
     wc, wf = size(_GRID) ** 2.0, size(2 * _GRID) ** 2.0
@@ -184,13 +183,14 @@ def _cusum_one_sided(delta: float, k: float, h: float, m: int) -> float:
     width = 2.0 * h / (2 * m - 1)
     centre = np.arange(m) * width
     move = k - delta - centre[:, None]
-    upper = _tail((np.arange(m)[None, :] + 0.5) * width + move)
-    lower = _tail((np.arange(m)[None, :] - 0.5) * width + move)
+    upper = special.ndtr((np.arange(m)[None, :] + 0.5) * width + move)
+    lower = special.ndtr((np.arange(m)[None, :] - 0.5) * width + move)
     p = upper - lower
     p[:, 0] = upper[:, 0]
     return float(np.linalg.solve(np.eye(m) - p, np.ones(m))[0])
 
 
+@lru_cache(maxsize=256)
 def _cusum(delta: float, k: float, h: float) -> ArlResult:
     def cells(m: int) -> float:
         return 2 * m - 1
@@ -206,11 +206,12 @@ def _ewma_chain(delta: float, lam: float, limit: float, m: int) -> float:
     width = 2.0 * limit / m
     centre = -limit + width * (np.arange(m) + 0.5)
     carried = (1.0 - lam) * centre[:, None]
-    upper = _tail((centre[None, :] + width / 2 - carried) / lam - delta)
-    lower = _tail((centre[None, :] - width / 2 - carried) / lam - delta)
+    upper = special.ndtr((centre[None, :] + width / 2 - carried) / lam - delta)
+    lower = special.ndtr((centre[None, :] - width / 2 - carried) / lam - delta)
     return float(np.linalg.solve(np.eye(m) - (upper - lower), np.ones(m))[m // 2])
 
 
+@lru_cache(maxsize=256)
 def _ewma(delta: float, lam: float, big_l: float) -> ArlResult:
     # Asymptotic limits, as in the published tables (Lucas and Saccucci 1990).
     limit = big_l * math.sqrt(lam / (2.0 - lam))
@@ -268,10 +269,11 @@ def arl_detail(
     level = _positive("sigma_level", sigma_level)
     delta = float(shift) * math.sqrt(int(n))
     if kind == "cusum":
-        k_value = 0.5 if k is None else float(k)
-        if not (math.isfinite(k_value) and k_value >= 0.0):
+        k_value = 0.5 if k is None else k
+        numeric = isinstance(k_value, (int, float, np.integer, np.floating))
+        if isinstance(k_value, bool) or not numeric or not 0.0 <= float(k_value) < math.inf:
             raise _bad("k", k, "the CUSUM allowance must be a non-negative number of sigma.")
-        return _cusum(delta, k_value, _positive("h", 5.0 if h is None else h))
+        return _cusum(delta, float(k_value), _positive("h", 5.0 if h is None else h))
     if kind == "ewma":
         lam_value = _positive("lam", 0.2 if lam is None else lam, upper=1.0)
         return _ewma(delta, lam_value, _positive("L", level if L is None else L))
@@ -284,7 +286,9 @@ def arl_detail(
         return _zone_chain(delta, ids, level)
     if isinstance(n_sim, bool) or not isinstance(n_sim, (int, np.integer)) or n_sim < 2:
         raise _bad("n_sim", n_sim, "must be a whole number of at least 2 simulated runs.")
-    return _monte_carlo(delta, ids, level, int(n_sim), seed)
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise _bad("seed", seed, "must be a non-negative whole number.")
+    return _monte_carlo(delta, ids, level, int(n_sim), int(seed))
 
 
 def arl(
@@ -314,7 +318,8 @@ def arl(
     sigma_level : float, default 3.0
         Control limits in standard errors (Shewhart kinds; default L of the EWMA).
     rules : str or sequence of str, default ("N1",)
-        Run rules of the Shewhart kinds (see :func:`qcexplore.stats.rules.resolve_rules`).
+        Run rules of the Shewhart kinds (see :func:`qcexplore.stats.rules.resolve_rules`);
+        not used by the EWMA and CUSUM, which signal on their own limits.
     lam, L : float, optional
         EWMA weight in (0, 1] (default 0.2) and limit width in sigma of the EWMA
         (default ``sigma_level``); asymptotic limits.

@@ -6,7 +6,8 @@ attribute charts) over integer point codes: the subgroups, or the subgroup x
 stratum cells when a chart is split ``by`` a factor. Centre and sigma are then
 estimated per segment (the whole chart, or each stratum with
 ``limits="per_stratum"``) with ``np.bincount`` over segment codes, and every point
-gets its own limits from its own size. Nothing loops over points or subgroups.
+gets its own limits from its own size. Nothing loops over points or subgroups (the
+EWMA and CUSUM recursions run as array filters, one call per stratum).
 
 Choices, with their sources:
 
@@ -97,8 +98,12 @@ class _Fit:
     t_ucl: np.ndarray
 
 
-def _fit(stat, center, se, sigma, t_n, t_center, t_se, level, *, low=-np.inf, high=np.inf,
-         t_high=np.inf) -> _Fit:  # fmt: skip
+def _fit(
+    stat: np.ndarray, center: np.ndarray, se: np.ndarray, sigma: np.ndarray, t_n: np.ndarray,
+    t_center: np.ndarray, t_se: np.ndarray, level: float, *, low: float = -np.inf,
+    high: np.ndarray | float = np.inf, t_high: np.ndarray | float = np.inf,
+) -> _Fit:  # fmt: skip
+    """Limits at ``level`` standard errors, cut to [low, high]: per point and at typical size."""
     lcl, ucl = _limits_from(center, se, level, low, high)
     t_lcl, t_ucl = _limits_from(t_center, t_se, level, low, t_high)
     return _Fit(stat, center, se, lcl, ucl, sigma, t_n, t_center, t_se, t_lcl, t_ucl)
@@ -131,7 +136,9 @@ def _numeric(frame: pd.DataFrame, column: str, role: str) -> np.ndarray:
     return values
 
 
-def _categorical(frame: pd.DataFrame, column: str, role: str, *, in_time_order: bool):
+def _categorical(
+    frame: pd.DataFrame, column: str, role: str, *, in_time_order: bool
+) -> pd.Categorical:
     if column not in frame.columns:
         _fail(f"{role}={column!r}: no such column; columns are {list(frame.columns)}.")
     col = frame[column]
@@ -250,7 +257,10 @@ def _require(ok: np.ndarray, points: _Points, what: str) -> None:
         _fail(f"{where}: {what}")
 
 
-def _limits_from(center, se, level, low=-np.inf, high=np.inf):
+def _limits_from(
+    center: np.ndarray, se: np.ndarray, level: float, low: float = -np.inf,
+    high: np.ndarray | float = np.inf,
+) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
     return np.maximum(center - level * se, low), np.minimum(center + level * se, high)
 
 
@@ -399,12 +409,14 @@ def _cusum_chart(
     )  # fmt: skip
     high, low = upper > h, lower > h
     signal = high | low
-    fired = [(rule,) if s else () for s in signal.tolist()]
+    choices = np.empty(2, dtype=object)
+    choices[0], choices[1] = (), (rule,)
+    fired = choices[signal.astype(np.intp)].tolist()
     start = np.where(high, up_start, down_start)
     change = pd.Categorical.from_codes(
         np.where(signal, points.sub[start], -1), categories=points.sub_labels, ordered=True
     )
-    return fit, signal, fired, {"stat_lower": -lower * unit, "change_start": change}
+    return fit, signal, fired, {"stat_lower": 0.0 - lower * unit, "change_start": change}
 
 
 # -------------------------------------------------------------------- attribute charts
@@ -970,8 +982,11 @@ def control_chart(
     words = _describe(kind, base, value, by, per_stratum, sigma_method, sigma is not None,
                       laney, lam, k)  # fmt: skip
     title = f"{words['stat']}, limits from {words['limits']}, {level_word}{words['split']}"
+    method_level = level_word if kind == "cusum" else (
+        f"{level_word} (single-point false-alarm rate {2.0 * norm.sf(level):.3%})"
+    )  # fmt: skip
     methods = _method_texts(
-        kind, base, primary, m, used, points, sigma_method, sigma, center, level_word, laney
+        kind, base, primary, m, used, points, sigma_method, sigma, center, method_level, laney
     )
     if attribute:
         extra = {"count": count}

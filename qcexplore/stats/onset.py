@@ -107,11 +107,26 @@ def stream_onset(
     >>> stream_onset(f, value="y", subgroup="sg", factor="f", level="a").position
     40
     """
-    if factor not in frame.columns or subgroup not in frame.columns:
-        raise QCDataError(f"stream_onset: columns {factor!r} and {subgroup!r} are needed.")
+    needed = [c for c in (value, subgroup, factor, time) if c is not None]
+    missing = [c for c in needed if c not in frame.columns]
+    if missing:
+        raise QCDataError(f"stream_onset: column(s) {missing} not found; pass existing columns.")
+    if not isinstance(frame[subgroup].dtype, pd.CategoricalDtype):
+        raise QCDataError(
+            f"stream_onset: the subgroup column {subgroup!r} must be an ordered categorical "
+            "in time order (the Study's frame has one)."
+        )
+    if int(min_points) < 1:
+        raise QCDataError(f"stream_onset: min_points={min_points!r} must be at least 1.")
+    values = pd.to_numeric(frame[value], errors="coerce").to_numpy(dtype=np.float64)
+    bad = np.flatnonzero(~np.isfinite(values))
+    if bad.size:
+        raise QCDataError(
+            f"stream_onset: value column {value!r} is not a finite number at rows "
+            f"{frame.index[bad[:5]].tolist()}; drop or fix those rows first."
+        )
     codes = frame[subgroup].cat.codes.to_numpy()
     k = len(frame[subgroup].cat.categories)
-    values = frame[value].to_numpy(dtype=np.float64)
     is_level = (frame[factor] == level).to_numpy()
     inside = group_moments(values[is_level], codes[is_level], k)
     outside = group_moments(values[~is_level], codes[~is_level], k)

@@ -91,8 +91,11 @@ class _Result:
 class ChartResult(_Result):
     """A control chart: plotted points with their limits and the run-rule signals.
 
-    ``points``: ``subgroup, stratum, stat, center, lcl, ucl, n, signal, rules`` (plus
-    ``start``, the subgroup's first time when the study has a time column).
+    ``points``: ``subgroup, stratum, stat, center, lcl, ucl, n, signal, rules`` plus
+    ``se`` (the point's standard error: the zone width), ``excluded`` (left out of the
+    limit estimate), ``start`` (the subgroup's first time, when there is a time column);
+    attribute charts add ``count`` (``n`` is then the number inspected); CUSUM adds
+    ``stat_lower`` (-C-) and ``change_start`` (where a signalling run began).
     ``limits``: ``stratum, center, lcl, ucl, sigma, method`` (one row per stratum
     with ``limits="per_stratum"``, else one row with ``stratum`` missing).
     """

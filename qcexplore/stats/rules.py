@@ -189,10 +189,12 @@ def evaluate_rules(
     -----
     Points whose stat, center or sigma is NaN are skipped: they never fire and the patterns
     run on across them. The point that completes a pattern is flagged (for "m of w" rules,
-    only a point that is itself on the far side of the zone line). Trends and alternation
-    are read on stat - center. Rule definitions follow Western Electric (Statistical Quality
-    Control Handbook, 1956) and Nelson (J. Quality Technology 16, 1984) (common practice);
-    each is checked against sequences built to have, and to just miss, its pattern.
+    only a point that is itself on the far side of the zone line). A point exactly on the
+    centre line breaks a same-side run; an exactly equal neighbour breaks a trend or an
+    alternation. Trends and alternation are read on stat - center. Rule definitions follow
+    the Western Electric Statistical Quality Control Handbook (1956) and Nelson, Journal of
+    Quality Technology 16 (1984) (common practice); each is checked against sequences built
+    to have, and to just miss, its pattern, and against a plain per-point loop.
 
     Examples
     --------
@@ -291,4 +293,3 @@ def evaluate_rows(
     for mask in masks.values():
         hit |= mask
     return hit.reshape(rows, width)
-

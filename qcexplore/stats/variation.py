@@ -29,7 +29,7 @@ from functools import lru_cache
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import optimize, sparse, stats
 
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import VariationResult
@@ -45,9 +45,9 @@ __all__ = [
 
 #: Goodman-Kruskal lambda at or above which one factor is taken to fix another.
 CONFOUNDING_THRESHOLD = 0.95
-#: Above this many rows or random levels, unbalanced data get moment estimates, not REML.
-_REML_MAX_ROWS = 5000
-_REML_MAX_LEVELS = 300
+#: Unbalanced data get REML up to this much work (see ``_reml_cost``: under about a second
+#: here), moment estimates beyond it.
+_REML_MAX_COST = 3e6
 
 _ANOVA_COLUMNS = ["source", "df", "ss", "ms", "f", "p", "error_term"]
 _COMPARISON_COLUMNS = ["test", "level", "versus", "estimate", "statistic", "p", "lower", "upper"]
@@ -182,8 +182,12 @@ def _structure_rows(
                 if single
                 else "constant inside each subgroup; compared through subgroup means"
             )
-            if counts.max() <= 1:
-                note += "; every level has one subgroup, so nothing is left to test it against"
+            if counts.max() <= 1 and not single:
+                relation[f.name] = "confounded"
+                note = (
+                    "every level is a single subgroup: the factor and the subgroup are the "
+                    "same thing, so its effect is the subgroup-to-subgroup variation"
+                )
         else:
             relation[f.name] = "within_subgroup"
             share = float(np.mean(first < 0))
@@ -241,7 +245,9 @@ def design_structure(
 
     One row per factor with its relation to the subgroups (``"within_subgroup"``: it
     changes inside subgroups, so it is crossed with time; ``"between_subgroups"``: it is
-    constant inside each subgroup) and ``with_`` the subgroup column; then, for every
+    constant inside each subgroup; ``"confounded"`` when each of its levels is a single
+    subgroup, so that it is the subgroup under another name) and ``with_`` the subgroup
+    column; then, for every
     pair of factors where the levels of one fix those of the other in at least
     ``threshold`` of the cases that are not already explained by the commonest level
     (Goodman and Kruskal's lambda), two rows with ``relation == "confounded"``, one for
@@ -250,9 +256,9 @@ def design_structure(
 
     Examples
     --------
-    >>> f = pd.DataFrame({"day": pd.Categorical([1, 1, 2, 2]),
-    ...                   "crew": pd.Categorical(list("aabb")),
-    ...                   "scale": pd.Categorical(list("xxyy"))})
+    >>> f = pd.DataFrame({"day": pd.Categorical([1, 1, 2, 2, 3, 3, 4, 4]),
+    ...                   "crew": pd.Categorical(list("aabbaabb")),
+    ...                   "scale": pd.Categorical(list("xxyyxxyy"))})
     >>> design_structure(f, subgroup="day", factors=["crew", "scale"])["relation"].tolist()
     ['between_subgroups', 'between_subgroups', 'confounded', 'confounded']
     """
@@ -273,8 +279,6 @@ class _Gram:
     xy: np.ndarray
     yy: float  # within-block sum of squares of y
     sizes: list[int]  # indicator columns per factor
-    n_blocks: int
-    weight: float  # total weight (rows, or rows behind the means)
 
 
 def _gram(
@@ -287,13 +291,11 @@ def _gram(
     resid = y - ybar[blocks]
     yy = float(np.sum(w * resid * resid))
     present = wb > 0
+    inv = sparse.diags(np.where(present, 1.0 / np.where(present, wb, 1.0), 0.0))
+    # block x level weighted counts, sparse: many subgroups times many levels stays small
     cell = [
-        np.bincount(
-            blocks * f.n_levels + f.codes, weights=w, minlength=n_blocks * f.n_levels
-        ).reshape(n_blocks, f.n_levels)[present]
-        for f in factors
+        sparse.csr_matrix((w, (blocks, f.codes)), shape=(n_blocks, f.n_levels)) for f in factors
     ]
-    inv = 1.0 / wb[present]
     blocks_xx = []
     for i, a in enumerate(factors):
         row = []
@@ -301,9 +303,9 @@ def _gram(
             raw = (
                 np.diag(np.bincount(a.codes, weights=w, minlength=a.n_levels))
                 if i == j
-                else (_crosstab(a, b, w))
+                else _crosstab(a, b, w)
             )
-            row.append(raw - cell[i].T @ (cell[j] * inv[:, None]))
+            row.append(raw - (cell[i].T @ (inv @ cell[j])).toarray())
         blocks_xx.append(row)
     xx = np.block(blocks_xx) if factors else np.zeros((0, 0))
     xy = (
@@ -313,7 +315,7 @@ def _gram(
         if factors
         else np.zeros(0)
     )
-    return _Gram(xx, xy, yy, [f.n_levels for f in factors], int(present.sum()), float(wb.sum()))
+    return _Gram(xx, xy, yy, [f.n_levels for f in factors])
 
 
 def _coding(sizes: list[int], keep: Sequence[int], kind: str) -> np.ndarray:
@@ -413,8 +415,8 @@ def _design(frame: pd.DataFrame, value: str, subgroup: str, factors: Sequence[st
     dropped: set[str] = set()
     for row in structure[structure["relation"] == "confounded"].itertuples():
         order = [f.name for f in fs]
-        if row.factor in dropped or row.with_ in dropped:
-            continue
+        if row.with_ not in order or row.factor in dropped or row.with_ in dropped:
+            continue  # confounded with the subgroup itself: handled below
         later = max(row.factor, row.with_, key=order.index)
         earlier = min(row.factor, row.with_, key=order.index)
         dropped.add(later)
@@ -426,6 +428,12 @@ def _design(frame: pd.DataFrame, value: str, subgroup: str, factors: Sequence[st
         if f.n_levels < 2 and f.name not in dropped:
             dropped.add(f.name)
             notes.append(f"{f.name!r} has a single level and is left out.")
+        elif relation[f.name] == "confounded" and f.name not in dropped:
+            dropped.add(f.name)
+            notes.append(
+                f"each level of {f.name!r} is a single subgroup: it cannot be told apart from "
+                "the subgroup-to-subgroup variation (the 'subgroup' row) and is left out."
+            )
     m = group_moments(y, sg.codes, sg.n_levels)
     between = [
         _Factor(f.name, per_subgroup[f.name], f.levels)
@@ -563,6 +571,59 @@ def _moment_components(d: _Design, anova: pd.DataFrame, level: float) -> tuple[l
     return out, method
 
 
+def _reml_nested(d: _Design) -> list[dict]:
+    """REML for value = mean + level of one between factor + subgroup + residual, from
+    sufficient statistics (subgroup sizes and means, the within-subgroup sum of squares).
+    With single values the subgroup term is the residual.
+
+    The likelihood splits into the within-subgroup part (chi-square, residual variance
+    only) and the subgroup means, whose covariance within a level of the factor is
+    diag(s2_sub + s2_e / n_i) + s2_factor (Sherman-Morrison gives its inverse and
+    determinant in closed form). Checked against statsmodels MixedLM
+    (tests/test_variation.py).
+    """
+    top = d.between[0].codes if d.between else np.arange(d.k)
+    n_top = int(top.max()) + 1
+    ybar = d.means - np.average(d.means, weights=d.sizes)
+    within_df = d.n - d.k
+    scale = float(np.var(d.y)) or 1.0
+
+    def objective(theta: np.ndarray) -> float:
+        e2, s2, b2 = np.exp(theta) * scale
+        w = 1.0 / (s2 + e2 / d.sizes)
+        big_w = np.bincount(top, weights=w, minlength=n_top)
+        t = np.bincount(top, weights=w * ybar, minlength=n_top)
+        shrink = 1.0 + b2 * big_w
+        info = float(np.sum(big_w / shrink))
+        mu = float(np.sum(t / shrink)) / info
+        r = ybar - mu
+        q = float(np.sum(w * r * r)) - float(
+            np.sum(b2 * np.bincount(top, weights=w * r, minlength=n_top) ** 2 / shrink)
+        )
+        logdet = float(np.sum(np.log(1.0 / w)) + np.sum(np.log(shrink)))
+        within = within_df * np.log(e2) + d.within_ss / e2 if within_df > 0 else 0.0
+        return 0.5 * (within + logdet + q + np.log(info))
+
+    floor, free = np.log(1e-10), (np.log(1e-10), np.log(1e3))
+    # single values: subgroup and residual variation are one thing, kept as the residual
+    start = np.log([0.5, 1e-10 if d.single else 0.3, 0.2 if d.between else 1e-10])
+    bounds = [free, (floor, floor) if d.single else free, free if d.between else (floor, floor)]
+    best = optimize.minimize(objective, start, method="L-BFGS-B", bounds=bounds)
+    e2, s2, b2 = np.exp(best.x) * scale
+    # a component sitting on the lower bound is zero
+    e2, s2, b2 = (v if v > 1e-8 * scale else 0.0 for v in (e2, s2, b2))
+    rows = [{"source": d.between[0].name, "variance": b2}] if d.between else []
+    rows += [] if d.single else [{"source": "subgroup", "variance": s2}]
+    rows += [{"source": "residual", "variance": e2}]
+    return [{**r, "lower": np.nan, "upper": np.nan} for r in rows]
+
+
+def _reml_cost(d: _Design) -> float:
+    """Rough work of one MixedLM iteration: rows x (random levels)^2 in one dense group."""
+    levels = sum(f.n_levels for f in [*d.between, *d.within]) + (0 if d.single else d.k)
+    return float(d.n) * levels**2
+
+
 def _reml_components(d: _Design) -> tuple[list[dict], list[str]]:
     """REML with statsmodels MixedLM: every term a variance component in one group."""
     import statsmodels.formula.api as smf
@@ -590,21 +651,12 @@ def _reml_components(d: _Design) -> tuple[list[dict], list[str]]:
         warnings.simplefilter("always")
         fit = model.fit(reml=True, method=["lbfgs", "powell"])
     notes = sorted({f"REML: {w.message}" for w in caught})
-    out = [
-        {"source": names[key], "variance": float(v) * scale**2, "lower": np.nan, "upper": np.nan}
-        for key, v in zip(model.exog_vc.names, fit.vcomp, strict=True)
-    ]
-    order = list(terms)
-    out.sort(key=lambda r: order.index(r["source"]))
-    out.append(
-        {
-            "source": "residual",
-            "variance": float(fit.scale) * scale**2,
-            "lower": np.nan,
-            "upper": np.nan,
-        }
-    )
-    return out, notes
+    variance = {names[key]: float(v) for key, v in zip(model.exog_vc.names, fit.vcomp, strict=True)}
+    variance["residual"] = float(fit.scale)
+    return [
+        {"source": name, "variance": variance[name] * scale**2, "lower": np.nan, "upper": np.nan}
+        for name in [*terms, "residual"]
+    ], notes
 
 
 def _components(
@@ -612,10 +664,12 @@ def _components(
 ) -> tuple[pd.DataFrame, str, list[str]]:
     notes: list[str] = []
     balanced = _balanced(d)
-    n_levels = sum(f.n_levels for f in [*d.between, *d.within]) + (0 if d.single else d.k)
-    small = d.n <= _REML_MAX_ROWS and n_levels <= _REML_MAX_LEVELS
-    use_reml = method == "reml" or (method == "auto" and not balanced and small)
-    if use_reml:
+    nested = not d.within and len(d.between) <= 1
+    small = _reml_cost(d) <= _REML_MAX_COST
+    use_reml = method == "reml" or (method == "auto" and not balanced and (nested or small))
+    if use_reml and nested:
+        rows, used = _reml_nested(d), "REML (nested, from sufficient statistics)"
+    elif use_reml:
         rows, notes = _reml_components(d)
         used = "REML (statsmodels MixedLM)"
     else:
@@ -669,7 +723,7 @@ def _comparisons(y: np.ndarray, codes: np.ndarray, levels: pd.Index, alpha: floa
     i, j = np.triu_indices(k, 1)
     diff = mean[i] - mean[j]
     se_pair = s * np.sqrt(0.5 * (1 / n[i] + 1 / n[j]))
-    q = np.abs(diff) / se_pair if s > 0 else np.full(diff.size, np.inf)
+    q = np.abs(diff) / se_pair if s > 0 else np.full(diff.size, np.nan)
     p = stats.studentized_range.sf(q, k, df)
     qcrit = _tukey_critical(alpha, k, df)
     for a, b, est, qq, pp, half in zip(i, j, diff, q, p, qcrit * se_pair, strict=True):
@@ -689,7 +743,8 @@ def _comparisons(y: np.ndarray, codes: np.ndarray, levels: pd.Index, alpha: floa
     # Level effects (sum of effects weighted by n is zero) and analysis of means
     grand = float(np.sum(n * mean) / total)
     se = s * np.sqrt((total - n) / (total * n))
-    t = (mean - grand) / se
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t = (mean - grand) / se
     p_raw = 2 * stats.t.sf(np.abs(t), df)
     t_each = stats.t.ppf(1 - alpha / 2, df)
     h = stats.t.ppf(1 - (1 - (1 - alpha) ** (1 / k)) / 2, df)  # Sidak
@@ -724,8 +779,9 @@ def _comparisons(y: np.ndarray, codes: np.ndarray, levels: pd.Index, alpha: floa
     groups = np.split(y[np.argsort(codes, kind="stable")], np.cumsum(m.n)[:-1])
     groups = [g for g in groups if g.size]
     try:
-        h_stat, h_p = stats.kruskal(*groups)
-    except ValueError:  # all values identical
+        with np.errstate(invalid="ignore", divide="ignore"):  # all values tied: NaN
+            h_stat, h_p = stats.kruskal(*groups)
+    except ValueError:
         h_stat, h_p = float("nan"), float("nan")
     rows.append(
         {
@@ -903,7 +959,10 @@ def multivari_table(
     >>> multivari_table(f, value="w", subgroup="h", factors=["nozzle"])["mean"].tolist()
     [1.0, 2.0, 3.0, 5.0, 1.5, 4.0]
     """
-    y, sg, fs = _prepare(frame, value, subgroup, factors)
+    return _multivari(*_prepare(frame, value, subgroup, factors))
+
+
+def _multivari(y: np.ndarray, sg: _Factor, fs: list[_Factor]) -> pd.DataFrame:
     cats = sg.levels
     parts = []
     for f in fs:
@@ -984,10 +1043,17 @@ def variation(
         against "subgroups within <those factors>", the subgroups and within-subgroup
         factors tested "within subgroups" (within cells when there are replicates, with the
         subgroup x factor interaction as its own row); ``components`` (random-effects
-        variances, negative estimates set to zero with a note; ``lower``/``upper`` are
-        Satterthwaite intervals, chi-square for the residual, NaN for REML); per-factor
-        ``comparisons`` (``tukey`` pairs, ``effect`` rows with ``se``, ``anom`` rows with
-        Sidak decision limits, ``kruskal_wallis``) on subgroup means for between-subgroup
+        variances of an additive model: every factor and the subgroup random, the
+        subgroup x factor interaction pooled into the residual; negative estimates set to
+        zero with a note; ``lower``/``upper`` are Satterthwaite intervals, chi-square for
+        the residual, NaN for REML); per-factor
+        ``comparisons`` (``tukey`` pairs (Tukey-Kramer, ``statistic`` the studentized
+        range q); ``effect`` rows: level mean minus the size-weighted overall mean with its
+        ``se`` and t test; ``anom`` rows: level mean, ``lower``/``upper`` the decision
+        limits of the analysis of means with a Sidak critical value
+        t(1 - (1 - (1 - alpha)^(1/k)) / 2, df), a documented approximation that is slightly
+        conservative against the exact equal-n values, and ``p`` Sidak-adjusted;
+        ``kruskal_wallis``) on subgroup means for between-subgroup
         factors and on subgroup-centred values otherwise; ``spread`` (Levene and
         Brown-Forsythe on deviations from the subgroup mean, or on single values);
         ``offsets`` (:func:`measurement_offsets`); ``multivari`` (:func:`multivari_table`).
@@ -1037,7 +1103,7 @@ def variation(
         comparisons=comparisons,
         spread=spread,
         offsets=offsets,
-        multivari=multivari_table(frame, value=value, subgroup=subgroup, factors=factors),
+        multivari=_multivari(d.y, d.subgroup, d.factors),
         method=f"Type II sums of squares; components by {method}",
         notes=tuple(notes),
     )

@@ -1,0 +1,106 @@
+"""Benchmark: the explorer on a 200,000-row study (server side, no browser).
+
+Measures, in one run on the same data:
+
+- building the explorer (Study given, imports already loaded): target < 2 s;
+- changing split-by with the chart panel visible (the Python callback: chart from the
+  Study, data swapped into the figure's sources, the patch serialised for the page):
+  target < 150 ms, median of 10 changes; once with the Study's cache cleared before
+  each change (every chart computed afresh) and once warm (each split seen before);
+- the floor: ``Study.chart`` alone on the same data with its cache cleared, so the
+  ratio says what the figure update adds to the statistics.
+
+Run: ``python benchmarks/bench_explorer.py`` (prints medians and ratios).
+"""
+
+from __future__ import annotations
+
+import statistics
+import time
+
+import pandas as pd
+
+from qcexplore.app.explorer import Explorer
+from qcexplore.demo import filling_line
+from qcexplore.spec import Spec
+from qcexplore.study import Study
+
+ROWS = 200_000
+SPLITS = ("crew", "shift", "weekday", "hour", None)
+
+
+def median_ms(times: list[float]) -> float:
+    return statistics.median(times) * 1000
+
+
+def tiled_demo(rows: int) -> pd.DataFrame:
+    """The four-week demo repeated back to back (times shifted) until it has ``rows`` rows."""
+    frame, _ = filling_line()
+    span = pd.Timedelta(days=28)
+    copies = -(-rows // len(frame))
+    parts = []
+    for i in range(copies):
+        part = frame.copy()
+        part["taken_at"] += i * span
+        part["round"] += i * span
+        part["day"] += i * 28
+        parts.append(part)
+    return pd.concat(parts, ignore_index=True).head(rows)
+
+
+def main() -> None:
+    frame = tiled_demo(ROWS)
+    study = Study(
+        frame,
+        value="net_g",
+        subgroup="round",
+        time="taken_at",
+        factors=["crew", "shift", "nozzle"],
+        measured_by=["crew"],
+        spec=Spec(lsl=500),
+        units="g",
+    )
+    print(f"{len(study.frame):,} rows in {len(study.subgroups):,} subgroups")
+    Explorer(Study(frame.head(2000), value="net_g", subgroup="round"))  # warm the imports
+
+    began = time.perf_counter()
+    ex = Explorer(study)
+    build = time.perf_counter() - began
+    print(f"build the explorer: {build * 1000:.0f} ms  (target < 2000 ms)  {ex.status.value}")
+
+    floor = []
+    for by in SPLITS * 2:
+        study._cache.clear()  # the floor is a fresh chart each time
+        began = time.perf_counter()
+        study.chart(by=by)
+        floor.append(time.perf_counter() - began)
+
+    for by in SPLITS:  # every split's figure seen once
+        ex.set(by=by)
+    cold, warm = [], []
+    for by in SPLITS * 2:
+        study._cache.clear()
+        began = time.perf_counter()
+        ex.set(by=by)
+        cold.append(time.perf_counter() - began)
+    for by in SPLITS * 2:
+        began = time.perf_counter()
+        ex.set(by=by)
+        warm.append(time.perf_counter() - began)
+    assert "qcx-error" not in ex.status.value, ex.status.value
+
+    f, c, w = median_ms(floor), median_ms(cold), median_ms(warm)
+    print(f"floor, Study.chart alone (uncached): median {f:.0f} ms")
+    print(
+        f"split-by change, chart computed afresh: median {c:.0f} ms "
+        f"(target < 150 ms), {c / f:.1f}x the floor"
+    )
+    print(
+        f"split-by change, chart cached: median {w:.0f} ms (target < 150 ms), "
+        f"{w / f:.1f}x the floor"
+    )
+    print(f"build / floor: {build * 1000 / f:.1f}x")
+
+
+if __name__ == "__main__":
+    main()

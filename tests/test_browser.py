@@ -1,0 +1,359 @@
+"""The explorer in a real browser: the served app (``qcexplore app``, Voila) and JupyterLab.
+
+Chromium (Debian's, /usr/bin/chromium) is driven by playwright. Nothing is skipped: a
+missing browser or package fails with a message that says what to install. One app
+server is shared by the Voila steps, one JupyterLab by its check; both are stopped by
+process group in the fixture teardown. Each step leaves a screenshot in a temporary
+folder whose path is printed.
+
+What is checked, through the page's BokehJS models (``Bokeh.documents``):
+- the chart is drawn (a canvas) and its points source ``chart_points`` is in the page,
+  within 30 s of opening the page; the time from starting the server is printed;
+- a split-by change re-colours the points: one colour per stratum level;
+- excluding a point from the limits (selected on the chart, as a tap would) moves the
+  limits drawn from ``chart_limits``;
+- the findings panel lists the demo's injected effects (crew B's measurement offset, the
+  nozzle 4 drift, the autocorrelation), as named by the ground truth of
+  ``qcexplore.demo.filling_line``;
+- in JupyterLab, ``s.explore()`` run from the page draws the chart and re-colours on a
+  split-by change.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+import urllib.request
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from qcexplore.app import serve
+from qcexplore.cli import DEMO_ROLES
+from qcexplore.demo import filling_line
+from qcexplore.study import Study
+
+pytestmark = pytest.mark.browser
+
+REPO = Path(__file__).resolve().parents[1]
+
+
+def environment(home: Path) -> dict[str, str]:
+    """Jupyter writes only under ``home``; kernels import this checkout."""
+    return serve.private_environment(home, python_path=[REPO])
+
+
+CHROMIUM = Path("/usr/bin/chromium")
+CHROMIUM_ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--no-first-run",
+]
+CHART_WAIT_MS = 30_000
+UPDATE_WAIT_MS = 30_000
+#: The newest BokehJS model of a name (a rebuilt figure lands in a newer document).
+FIND = (
+    "name => { const found = (window.Bokeh ? Bokeh.documents : [])"
+    ".map(d => d.get_model_by_name(name)).filter(m => m);"
+    " return found.length ? found[found.length - 1] : null; }"
+)
+
+
+def js(body: str) -> str:
+    """A page function with ``find(name)`` in scope."""
+    return f"(arg) => {{ const find = {FIND}; {body} }}"
+
+
+# ---- browser and screenshots ------------------------------------------------------------
+@pytest.fixture(scope="module")
+def shots() -> Path:
+    folder = Path(tempfile.mkdtemp(prefix="qcexplore-browser-shots-"))
+    print(f"\nscreenshots: {folder}")
+    return folder
+
+
+@pytest.fixture(scope="module")
+def browser() -> Iterator[Any]:
+    try:
+        from playwright.sync_api import sync_playwright
+    except ImportError:
+        pytest.fail("the browser tests need playwright: pip install playwright")
+    if not CHROMIUM.exists():
+        pytest.fail(f"the browser tests need Debian's chromium at {CHROMIUM}: "
+                    "apt-get update && apt-get install -y chromium")  # fmt: skip
+    with sync_playwright() as driver:
+        chromium = driver.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            yield chromium
+        finally:
+            chromium.close()
+
+
+@dataclass
+class Tab:
+    """A browser page and the script errors it raised."""
+
+    page: Any
+    errors: list[str] = field(default_factory=list)
+    timing: dict[str, float] = field(default_factory=dict)
+
+
+def new_tab(browser: Any) -> Tab:
+    tab = Tab(browser.new_page(viewport={"width": 1400, "height": 1000}))
+    tab.page.on("pageerror", lambda error: tab.errors.append(str(error)))
+    return tab
+
+
+def snap(page: Any, shots: Path, name: str) -> None:
+    page.screenshot(path=str(shots / f"{name}.png"), full_page=True)
+
+
+def wait_for_chart(page: Any) -> None:
+    """The chart canvas is on screen and the points source is in BokehJS."""
+    page.locator("canvas").first.wait_for(state="visible", timeout=CHART_WAIT_MS)
+    page.wait_for_function(js("const m = find('chart_points'); return m && m.get_length() > 0;"),
+                           timeout=CHART_WAIT_MS)  # fmt: skip
+
+
+def point_colours(page: Any) -> dict[str, list[str]]:
+    """Stratum label to the distinct colours of its points, from the page's model."""
+    return page.evaluate(
+        js(
+            "const d = find('chart_points').data; const out = {};"
+            "for (let i = 0; i < d.color.length; i++) {"
+            "  const k = String(d.stratum[i]); out[k] = out[k] || [];"
+            "  if (!out[k].includes(d.color[i])) out[k].push(d.color[i]); }"
+            "return out;"
+        )
+    )
+
+
+def split_by(page: Any, label: str, levels: int) -> dict[str, list[str]]:
+    """Choose a split in the explorer and wait until the points take ``levels`` colours."""
+    page.select_option(".qcx-split-by select", label=label)
+    page.wait_for_function(
+        js("const m = find('chart_points'); return m && new Set(m.data.color).size === arg;"),
+        arg=levels,
+        timeout=UPDATE_WAIT_MS,
+    )
+    return point_colours(page)
+
+
+# ---- the served app (Voila) ------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def app(browser: Any, shots: Path, tmp_path_factory: pytest.TempPathFactory) -> Iterator[Tab]:
+    """``qcexplore app`` (the demo) on loopback and one page on it, chart drawn."""
+    home = tmp_path_factory.mktemp("app-home")
+    started = time.perf_counter()
+    process, address = serve.launch(["--idle-timeout", "120"], env=environment(home))
+    try:
+        listening = time.perf_counter() - started
+        tab = new_tab(browser)
+        tab.page.goto(address, timeout=CHART_WAIT_MS)
+        opened = time.perf_counter()
+        wait_for_chart(tab.page)
+        drawn = time.perf_counter()
+        tab.timing = {
+            "server start to address": listening,
+            "server start to chart on screen": drawn - started,
+            "page open to chart on screen": drawn - opened,
+        }
+        snap(tab.page, shots, "1-chart")
+        yield tab
+    finally:
+        serve.stop(process)
+
+
+def test_served_chart_is_on_screen(app: Tab, capsys: pytest.CaptureFixture) -> None:
+    page = app.page
+    with capsys.disabled():
+        for what, seconds in app.timing.items():
+            print(f"\n{what}: {seconds:.1f} s (target for the chart: under 15 s)", end="")
+        print()
+    assert page.locator("canvas").first.is_visible()
+    count = page.evaluate(js("return find('chart_points').get_length();"))
+    expected = len(Study(filling_line()[0], **DEMO_ROLES).subgroups)
+    assert count == expected  # one point per hourly round of the demo
+    colours = point_colours(page)
+    assert len(colours) == 1 and len(next(iter(colours.values()))) == 1  # no split: one colour
+    assert app.errors == []
+
+
+def test_split_by_recolours_the_points(app: Tab, shots: Path) -> None:
+    page = app.page
+    colours = split_by(page, "crew", 3)
+    snap(page, shots, "2-split-by-crew")
+    assert sorted(colours) == ["A", "B", "C"]
+    assert all(len(c) == 1 for c in colours.values())  # one colour per crew
+    assert len({c[0] for c in colours.values()}) == 3  # and a different one for each
+    colours = split_by(page, "nozzle", 6)
+    snap(page, shots, "3-split-by-nozzle")
+    assert sorted(colours) == ["1", "2", "3", "4", "5", "6"]
+    assert all(len(c) == 1 for c in colours.values())
+    split_by(page, "no split", 1)
+    assert app.errors == []
+
+
+def test_excluding_a_point_changes_the_limits(app: Tab, shots: Path) -> None:
+    page = app.page
+    limits = js("const d = find('chart_limits').data; return Array.from(d.y0).map(Number);")
+    before = page.evaluate(limits)
+    # The point farthest from the centre line, selected as a tap on it would.
+    chosen = page.evaluate(
+        js(
+            "const v = Array.from(find('chart_points').data.value);"
+            "const mean = v.reduce((a, b) => a + b, 0) / v.length;"
+            "let best = 0; v.forEach((x, i) => { if (Math.abs(x - mean) > Math.abs(v[best] - mean))"
+            " best = i; });"
+            "find('chart_points').selected.indices = [best];"
+            "return String(find('chart_points').data.subgroup[best]);"
+        )
+    )
+    table = page.locator(".qcx-selection-table")
+    table.get_by_text("selected subgroup").wait_for(timeout=UPDATE_WAIT_MS)
+    page.locator(".qcx-exclude-reason input").fill("browser test: jar knocked off the scale")
+    page.locator("button.qcx-exclude").click()
+    page.wait_for_function(
+        js("const d = find('chart_limits'); return d && JSON.stringify(Array.from(d.data.y0)"
+           ".map(Number)) !== JSON.stringify(arg);"),
+        arg=before,
+        timeout=UPDATE_WAIT_MS,
+    )  # fmt: skip
+    snap(page, shots, "4-excluded")
+    after = page.evaluate(limits)
+    assert after != before
+    assert chosen in page.locator(".qcx-exclusions").inner_text()
+    assert app.errors == []
+
+
+def test_findings_list_the_injected_effects(app: Tab, shots: Path) -> None:
+    page = app.page
+    frame, truth = filling_line()
+    found = Study(frame, **DEMO_ROLES).findings()
+
+    def title(kinds: set[str], factor: str | None = None, level: str | None = None) -> str:
+        matches = [
+            f.title for f in found
+            if f.kind in kinds and (factor is None or (f.factor, str(f.level)) == (factor, level))
+        ]  # fmt: skip
+        assert matches, f"no {kinds} finding for {factor} {level} among {found}"
+        return matches[0]
+
+    # The injected effects, named by the demo's ground truth.
+    expected = [
+        title({"measurement_offset"}, "crew", truth["crew_offset"]["crew"]),
+        title({"stream_difference", "process_shift"}, "nozzle", truth["nozzle_drift"]["nozzle"]),
+        title({"autocorrelation"}),
+    ]
+    page.get_by_role("tab", name="What the data say").click()
+    titles = page.locator(".qcx-findings li b")
+    titles.first.wait_for(timeout=60_000)
+    snap(page, shots, "5-findings")
+    shown = titles.all_inner_texts()
+    for wanted in expected:
+        assert wanted in shown, (wanted, shown)
+    assert app.errors == []
+
+
+# ---- JupyterLab ----------------------------------------------------------------------------------
+NOTEBOOK_CELLS = [
+    "from qcexplore.cli import DEMO_ROLES\n"
+    "from qcexplore.demo import filling_line\n"
+    "from qcexplore.study import Study\n\n"
+    "s = Study(filling_line()[0], **DEMO_ROLES)",
+    "s.explore()",
+]
+
+
+def _write_notebook(path: Path) -> None:
+    cells = [
+        {"cell_type": "code", "execution_count": None, "id": f"cell{i}", "metadata": {},
+         "outputs": [], "source": source}
+        for i, source in enumerate(NOTEBOOK_CELLS)
+    ]  # fmt: skip
+    notebook = {
+        "cells": cells,
+        "metadata": {"kernelspec": {"name": "python3", "display_name": "Python 3",
+                                    "language": "python"}},
+        "nbformat": 4,
+        "nbformat_minor": 5,
+    }  # fmt: skip
+    path.write_text(json.dumps(notebook), encoding="utf-8")
+
+
+@pytest.fixture(scope="module")
+def lab(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
+    """JupyterLab on loopback in a temporary folder with the demo notebook; its address."""
+    if shutil.which("jupyter") is None:
+        pytest.fail("the JupyterLab check needs jupyterlab: pip install jupyterlab")
+    root = tmp_path_factory.mktemp("lab")
+    home = tmp_path_factory.mktemp("lab-home")
+    _write_notebook(root / "explore.ipynb")
+    port = serve.free_port()
+    log = (home / "lab.log").open("w")
+    process = subprocess.Popen(
+        [sys.executable, "-m", "jupyter", "lab", "--no-browser", "--allow-root",
+         "--ip=127.0.0.1", f"--port={port}", "--IdentityProvider.token=",
+         "--LabApp.expose_app_in_browser=True", "--ServerApp.port_retries=0",
+         "--LabApp.news_url=", "--LabApp.check_for_updates_class=jupyterlab.NeverCheckForUpdate",
+         f"--ServerApp.root_dir={root}"],
+        cwd=root, env=environment(home), stdout=log, stderr=subprocess.STDOUT,
+        start_new_session=True,
+    )  # fmt: skip
+    address = f"http://127.0.0.1:{port}"
+    try:
+        deadline = time.monotonic() + 90
+        while True:
+            try:
+                with urllib.request.urlopen(f"{address}/api/status", timeout=5):
+                    break
+            except OSError:
+                if process.poll() is not None or time.monotonic() > deadline:
+                    log.flush()
+                    tail = (home / "lab.log").read_text()[-1500:]
+                    pytest.fail(f"JupyterLab did not start on {address}:\n{tail}")
+                time.sleep(0.5)
+        yield address
+    finally:
+        serve.stop(process)
+        log.close()
+
+
+def test_explorer_renders_and_updates_in_jupyterlab(
+    lab: str, browser: Any, shots: Path, capsys: pytest.CaptureFixture
+) -> None:
+    tab = new_tab(browser)
+    page = tab.page
+    try:
+        page.goto(f"{lab}/lab/tree/explore.ipynb", timeout=60_000)
+        page.wait_for_function(
+            "() => { const w = window.jupyterapp && window.jupyterapp.shell.currentWidget;"
+            " return !!(w && w.sessionContext && w.sessionContext.session"
+            " && w.sessionContext.session.kernel"
+            " && w.sessionContext.session.kernel.status === 'idle'); }",
+            timeout=90_000,
+        )
+        started = time.perf_counter()
+        page.evaluate("() => window.jupyterapp.commands.execute('notebook:run-all-cells')")
+        wait_for_chart(page)
+        with capsys.disabled():
+            print(f"\nJupyterLab: run all cells to chart on screen: "
+                  f"{time.perf_counter() - started:.1f} s")  # fmt: skip
+        snap(page, shots, "6-jupyterlab-chart")
+        colours = split_by(page, "crew", 3)
+        snap(page, shots, "7-jupyterlab-split-by-crew")
+        assert sorted(colours) == ["A", "B", "C"]
+        assert len({c[0] for c in colours.values()}) == 3
+        assert tab.errors == []
+    finally:
+        page.close()

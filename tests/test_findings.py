@@ -1,0 +1,293 @@
+"""Tests for qcexplore.findings: planted effects are found, absent effects are not.
+
+The demo filling line (qcexplore.demo, our own invented scenario) carries its ground
+truth; the statistical references are scipy's binomial distribution, statsmodels'
+multiple-testing and OLS code.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections import Counter
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import stats
+from statsmodels.stats.multitest import multipletests
+
+import qcexplore as qx
+from qcexplore.demo import filling_line
+from qcexplore.errors import QCDataError
+from qcexplore.findings import CAUTION, KINDS, Finding, findings, findings_frame, holm
+
+ROLES = dict(
+    value="net_g",
+    subgroup="round",
+    time="taken_at",
+    factors=["crew", "shift", "nozzle"],
+    measured_by=["crew"],
+    units="g",
+)
+NULL_EFFECTS = dict(crew_offset=0.0, drift=0.0, phi=0.0, missed=0.0)
+
+
+def production_day(when) -> int:
+    """The demo's 1-based production day (days start at 06:00 on 2026-09-07)."""
+    return int((pd.Timestamp(when) - pd.Timestamp("2026-09-07 06:00")) // pd.Timedelta(days=1)) + 1
+
+
+@pytest.fixture(scope="module")
+def demo():
+    frame, truth = filling_line()
+    study = qx.Study(frame, spec=qx.Spec(lsl=500), **ROLES)
+    return study, truth, findings(study)
+
+
+# --------------------------------------------------------------------------- Holm
+
+
+def test_holm_matches_statsmodels():
+    # Reference: statsmodels.stats.multitest.multipletests(method="holm").
+    p = np.array([0.01, 0.04, 0.03, 0.005, 0.2, 0.04])
+    assert holm(p) == pytest.approx(multipletests(p, method="holm")[1])
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.lists(st.floats(0.0, 1.0), min_size=1, max_size=30))
+def test_holm_properties_and_definition(p):
+    # Holm (1979): the i-th smallest p is multiplied by m - i + 1, then made monotone
+    # (running maximum), capped at 1; written out here as a loop.
+    adjusted = holm(p)
+    order = np.argsort(p, kind="stable")
+    m = len(p)
+    expected = np.empty(m)
+    running = 0.0
+    for i, j in enumerate(order):
+        running = max(running, min(1.0, (m - i) * p[j]))
+        expected[j] = running
+    assert adjusted == pytest.approx(expected, abs=1e-12)
+    assert np.all(adjusted >= np.asarray(p) - 1e-15) and np.all(adjusted <= 1.0)
+
+
+def test_holm_ignores_missing_p_values():
+    assert holm([np.nan, 0.02, 0.03]).tolist()[1:] == pytest.approx([0.04, 0.04])
+    assert np.isnan(holm([np.nan, 0.02])[0])
+
+
+# --------------------------------------------------------------------------- the demo
+
+
+def test_demo_names_the_high_reading_crew(demo):
+    # Ground truth of the demo: crew B's scale reads 1.5 g high. The finding's effect is
+    # the offset against the mean of the other crews, within 3 standard errors of 1.5 g.
+    study, truth, found = demo
+    offsets = [f for f in found if f.kind == "measurement_offset"]
+    assert [(f.factor, f.level) for f in offsets] == [("crew", truth["crew_offset"]["crew"])]
+    f = offsets[0]
+    assert abs(f.effect - truth["crew_offset"]["size_g"]) <= 3 * f.se
+    assert "1.5 g higher" in f.title
+    assert "subgroup-to-subgroup" in f.detail  # crew is constant within each round
+
+
+def test_demo_names_the_drifting_nozzle_and_when(demo):
+    # Ground truth: nozzle 4 drifts 0.35 g/day from production day 15. The onset (or a
+    # step in the averages) is found within one production day. Simulated precision of
+    # the ramp's hinge on this demo (20 seeds): 17 within 24 h, all within 1.4 days;
+    # seed 0 puts it 26 h late, on day 16.
+    study, truth, found = demo
+    drift = truth["nozzle_drift"]
+    streams = [f for f in found if f.kind == "stream_difference"]
+    assert [(f.factor, f.level) for f in streams] == [("nozzle", drift["nozzle"])]
+    days = [production_day(f.start) for f in streams if f.start is not None]
+    days += [production_day(f.start) for f in found if f.kind == "process_shift"]
+    assert any(abs(day - drift["start_day"]) <= 1 for day in days)
+    assert "ramp of" in streams[0].detail and "per day" in streams[0].detail
+
+
+def test_demo_reports_the_autocorrelation(demo):
+    # Ground truth: the hourly level is AR(1) with phi = 0.6 (a level sd of 0.7 g, so the
+    # averages of 5 jars show a smaller phi); the finding must be there with phi > 0.
+    study, truth, found = demo
+    auto = [f for f in found if f.kind == "autocorrelation"]
+    assert len(auto) == 1 and auto[0].effect > 0
+    ts = study.time_structure()
+    assert auto[0].effect == ts.ar1["phi"]
+    assert f"{ts.effective_n:.0f} independent" in auto[0].detail
+
+
+def test_demo_ranking_and_fields(demo):
+    study, truth, found = demo
+    assert {f.kind for f in found} <= set(KINDS)
+    tested = [f for f in found if np.isfinite(f.p_adjusted)]
+    notes = found[len(tested) :]
+    assert all(f.kind in ("confounded", "capability") for f in notes)
+    strengths = [f.strength for f in tested]
+    assert strengths == sorted(strengths, reverse=True) and min(strengths) > 0
+    assert all(f.p_adjusted < 0.05 and f.p_adjusted >= f.p for f in tested if np.isfinite(f.p))
+    top = found[0]
+    assert top.effect_sd == pytest.approx(top.effect / float(study.chart().limits["sigma"][0]))
+
+
+def test_out_of_control_count_and_binomial_p(demo):
+    # Reference: scipy.stats.binom.sf for P(X >= count) at the rate 2 * P(Z > 3).
+    study, truth, found = demo
+    ooc = [f for f in found if f.kind == "out_of_control"][0]
+    points = study.chart().points
+    beyond = int(((points["stat"] > points["ucl"]) | (points["stat"] < points["lcl"])).sum())
+    assert ooc.title.startswith(f"{beyond} of {len(points)} points")
+    rate = 2 * stats.norm.sf(3.0)
+    assert ooc.p == pytest.approx(stats.binom.sf(beyond - 1, len(points), rate), rel=1e-6)
+    assert "autocorrelation" in ooc.detail and "measurement offset" in ooc.detail
+
+
+def test_capability_finding_carries_the_caution(demo):
+    study, truth, found = demo
+    cap = [f for f in found if f.kind == "capability"]
+    assert len(cap) == 1
+    assert CAUTION in cap[0].detail and cap[0].caveat == CAUTION
+    assert "weights-and-measures" in CAUTION and "quality system" in CAUTION
+    index = study.capability().indices.set_index("index")["value"]
+    assert cap[0].effect == pytest.approx(index["ppk"])  # points beyond limits: Ppk
+
+
+def test_no_spec_no_capability_finding():
+    frame, _ = filling_line()
+    study = qx.Study(frame, **ROLES)
+    assert not [f for f in study.findings() if f.kind == "capability"]
+
+
+def test_confounded_crew_and_scale():
+    # The demo's crews each weigh on their own scale (truth["confounded"]).
+    frame, truth = filling_line()
+    study = qx.Study(frame, **{**ROLES, "factors": ["crew", "shift", "nozzle", "scale"]})
+    found = study.findings()
+    conf = [f for f in found if f.kind == "confounded"]
+    assert len(conf) == 1
+    assert "crew" in conf[0].title.lower() and "scale" in conf[0].title
+    assert np.isnan(conf[0].p)
+    offset = [f for f in found if f.kind == "measurement_offset"][0]
+    assert "cannot tell crew from scale" in offset.detail
+
+
+# --------------------------------------------------------------------------- planted streams
+
+
+def planted_streams(high="2", low="5", size=3.0):
+    frame, _ = filling_line(seed=4, **NULL_EFFECTS)
+    shift = np.where(frame["nozzle"] == high, size, 0.0) - np.where(frame["nozzle"] == low, size, 0)
+    return frame.assign(net_g=frame["net_g"] + shift)
+
+
+def test_two_planted_streams_are_both_named_and_only_them():
+    # Invented: nozzle 2 fills 3 g more, nozzle 5 3 g less; the other four nozzles must
+    # not be named merely for sitting below nozzle 2 or above nozzle 5.
+    study = qx.Study(planted_streams(), **ROLES)
+    streams = [f for f in study.findings() if f.kind == "stream_difference"]
+    assert sorted((f.level, round(np.sign(f.effect))) for f in streams) == [("2", 1), ("5", -1)]
+    # The first is compared with the five others (3 + 3/5 = 3.6 g), the second with the
+    # four unnamed nozzles (3 g).
+    assert [abs(f.effect) for f in streams] == pytest.approx([3.6, 3.0], abs=0.3)
+    assert all(f.start is None for f in streams)  # a constant difference has no onset
+
+
+def test_stratified_subgroups_inflation_matches_least_squares():
+    # Reference: numpy least squares with the round absorbed by centring within rounds
+    # (Frisch-Waugh-Lovell): the residual sd of net_g ~ round + nozzle is the within-round
+    # sigma without the nozzle differences, that of net_g ~ round the sigma with them. The
+    # finding's inflation sqrt((component + residual) / residual) must match their ratio
+    # within 5 %.
+    study = qx.Study(planted_streams(), **ROLES)
+    strat = [f for f in study.findings() if f.kind == "stratified_subgroups"]
+    assert len(strat) == 1 and strat[0].factor == "nozzle"
+    data = study.data
+    rounds = data["round"].astype(str)
+    centre = lambda x: x - x.groupby(rounds).transform("mean")  # noqa: E731
+    y = centre(data["net_g"]).to_numpy()
+    dummies = pd.get_dummies(data["nozzle"], drop_first=True, dtype=float)
+    x = dummies.apply(centre).to_numpy()
+    n, k = len(y), rounds.nunique()
+    resid = y - x @ np.linalg.lstsq(x, y, rcond=None)[0]
+    mixed = np.sqrt(y @ y / (n - k))
+    clean = np.sqrt(resid @ resid / (n - k - x.shape[1]))
+    assert 1 + strat[0].effect == pytest.approx(mixed / clean, rel=0.05)
+    assert strat[0].share >= 0.10
+
+
+# --------------------------------------------------------------------------- no effects
+
+
+@pytest.mark.slow
+def test_no_effects_no_findings_beyond_alpha():
+    # Every planted effect off (the hourly level still varies, independently, so points
+    # beyond the within-subgroup limits are real and out_of_control is not counted).
+    # With alpha = 0.05 family-wise, a kind may appear in at most 4 of 20 seeds:
+    # P(X >= 5) for X ~ Binomial(20, 0.05) is 0.26 % (scipy.stats.binom.sf(4, 20, 0.05)).
+    # About 16 s on a quiet 2-core machine (20 demo studies, ~0.8 s each, mostly variation()).
+    assert stats.binom.sf(4, 20, 0.05) < 0.003
+    counts: Counter[str] = Counter()
+    for seed in range(20):
+        frame, _ = filling_line(seed, **NULL_EFFECTS)
+        counts.update({f.kind for f in findings(qx.Study(frame, **ROLES))})
+    for kind in (
+        "measurement_offset",
+        "stream_difference",
+        "process_shift",
+        "autocorrelation",
+        "spread_difference",
+    ):
+        assert counts[kind] <= 4, (kind, counts)
+
+
+# --------------------------------------------------------------------------- the API
+
+
+def test_min_effect_suppresses_small_effects():
+    frame, _ = filling_line()
+    study = qx.Study(frame, **ROLES)
+    found = findings(study, min_effect=5.0)  # larger than any planted effect (g)
+    assert not {f.kind for f in found} & {"measurement_offset", "stream_difference"}
+    assert {f.kind for f in found} >= {"autocorrelation", "out_of_control"}
+
+
+@pytest.mark.parametrize(
+    "options, match",
+    [({"alpha": 0.0}, "alpha"), ({"alpha": 1.5}, "alpha"), ({"min_effect": -1.0}, "min_effect"),
+     ({"min_share": 2.0}, "min_share")],
+)  # fmt: skip
+def test_bad_options_raise_qcdataerror(demo, options, match):
+    with pytest.raises(QCDataError, match=match):
+        findings(demo[0], **options)
+
+
+def test_study_findings_is_the_module_function(demo):
+    study, _, found = demo
+    assert [f.title for f in study.findings()] == [f.title for f in found]
+
+
+def test_findings_frame_and_html(demo):
+    found = demo[2]
+    table = findings_frame(found)
+    assert list(table.columns) == [f.name for f in dataclasses.fields(Finding)]
+    assert table["kind"].tolist() == [f.kind for f in found]
+    assert list(table.columns[:8]) == [
+        "kind", "title", "detail", "factor", "level", "effect", "p", "share",
+    ]  # fmt: skip
+    assert findings_frame([]).empty
+    html = found[0]._repr_html_()
+    assert "Crew B&#x27;s readings" in html and "adjusted p" in html
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        found[0].title = "x"
+
+
+def test_individual_values_and_no_factors_run():
+    frame, _ = filling_line(days=3)
+    for study in (
+        qx.Study(frame, value="net_g", time="taken_at", factors=["crew", "nozzle"], units="g"),
+        qx.Study(frame, value="net_g", subgroup="round", time="taken_at"),
+        qx.Study(frame.head(20), value="net_g", subgroup="round", factors=["nozzle"]),
+    ):
+        found = study.findings()
+        assert all(isinstance(f, Finding) for f in found)
