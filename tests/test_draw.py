@@ -523,6 +523,19 @@ def test_refresh_changes_data_in_place_and_round_trips(build, make):
     assert events  # the document saw the changes (what jupyter_bokeh sends to the page)
 
 
+def test_refresh_inside_a_jupyter_widget_sends_data_patches_only():
+    from jupyter_bokeh import BokehModel
+
+    layout = draw.chart_figure(chart_result(seed=1))
+    widget = BokehModel(layout)
+    sent = []
+    widget.send = lambda content, buffers=None: sent.append(content)  # no kernel here
+    draw.refresh(layout, chart_result(seed=2))
+    payload = "".join(m.get("payload", "") for m in sent if isinstance(m, dict))
+    assert "ColumnDataChanged" in payload
+    assert "RootAdded" not in payload and '"type":"object"' not in payload  # no new models
+
+
 def test_refresh_recolours_by_data_only():
     layout = draw.chart_figure(chart_result(strata=("A", "B")))
     ids = {m.id for m in layout.references()}
@@ -567,8 +580,11 @@ def test_any_chart_builds_with_one_point_per_row(k, n_strata, flags, split, star
     points = data_of(layout, "chart_points")
     assert len(points["x"]) == k
     assert len(data_of(layout, "chart_signals")["x"]) == int(result.points["signal"].sum())
-    frame = pd.DataFrame({"s": points["stratum"], "c": points["color"]})
-    assert (frame.groupby("s")["c"].nunique() == 1).all()
+    if strata:
+        frame = pd.DataFrame({"s": points["stratum"], "c": points["color"]})
+        assert (frame.groupby("s")["c"].nunique() == 1).all()
+    else:
+        assert "color" not in points
     assert not draw.needs_rebuild(layout, result)
 
 

@@ -97,3 +97,39 @@ def test_measured_by_is_added_to_factors_and_subgroup_cannot_be_factor(frame) ->
         qx.Study(frame, value="net_g", factors=["weekday"])
     with pytest.raises(QCDataError, match="not a factor"):
         qx.Study(frame, value="net_g", subgroup="round").chart(by="nozzle")
+
+
+@pytest.fixture(scope="module")
+def demo_study() -> qx.Study:
+    frame, _ = qx.demo.filling_line(seed=6, days=10)
+    return qx.Study(
+        frame, value="net_g", subgroup="round", time="taken_at", factors=["crew", "nozzle"],
+        measured_by=["crew"], spec=qx.Spec(lsl=500), units="g",
+    )  # fmt: skip
+
+
+def test_adjust_for_removes_the_measurement_offsets(demo_study) -> None:
+    raw = demo_study.frame.groupby("crew", observed=True)["net_g"].mean()
+    adjusted_frame = demo_study.adjusted_frame(True)
+    adjusted = adjusted_frame.groupby("crew", observed=True)["net_g"].mean()
+    assert raw.max() - raw.min() > 1.0  # crew B's scale reads high in the demo
+    assert adjusted.max() - adjusted.min() < raw.max() - raw.min()
+    offsets = demo_study.variation().offsets.set_index("level")["offset"]
+    # value minus its level's offset, row by row (the contract of adjusted_values)
+    expected = demo_study.frame["net_g"] - demo_study.frame["crew"].map(offsets).astype(float)
+    np.testing.assert_allclose(adjusted_frame["net_g"].to_numpy(), expected.to_numpy(), atol=1e-9)
+    chart = demo_study.chart(adjust_for=True)
+    assert chart.points["stat"].std() < demo_study.chart().points["stat"].std()
+    assert demo_study.chart(adjust_for=["crew"]) is chart  # cached by its arguments
+    with pytest.raises(QCDataError, match="not measured_by"):
+        demo_study.chart(adjust_for=["nozzle"])
+
+
+def test_capability_uses_the_chart_sigma_and_spec(demo_study) -> None:
+    result = demo_study.capability()
+    sigma = float(demo_study.chart().limits["sigma"].iloc[0])
+    assert result.sigma_within == pytest.approx(sigma)
+    assert result.lsl == 500 and result.usl is None
+    assert set(result.indices["index"]) >= {"cpk", "ppk"}
+    with pytest.raises(QCDataError, match="specification"):
+        qx.Study(demo_study.data, value="net_g", subgroup="round").capability()

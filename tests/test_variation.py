@@ -231,6 +231,29 @@ def test_effects_match_sum_coded_ols_on_balanced_data():
         assert i in (0, 1)
 
 
+def test_within_factor_effects_match_blocked_ols():
+    # statsmodels OLS y ~ C(noz, Sum) + C(sg) on a balanced layout (each nozzle once per
+    # subgroup): effects, standard errors and p-values of the subgroup-blocked comparison
+    rng = np.random.default_rng(22)
+    sg = np.repeat(np.arange(12), 4)
+    noz = np.tile(np.arange(4), 12)
+    f = pd.DataFrame(
+        {
+            "sg": pd.Categorical(sg, ordered=True),
+            "noz": pd.Categorical(np.array(list("abcd"))[noz]),
+            "y": rng.normal(size=48) + rng.normal(0, 2, 12)[sg] + 0.5 * (noz == 1),
+        }
+    )
+    table = variation(f, value="y", subgroup="sg", factors=["noz"]).comparisons["noz"]
+    effects = table[table["test"] == "effect"].set_index("level")
+    fit = smf.ols("y ~ C(noz, Sum) + C(sg)", f).fit()
+    for lev in "abc":
+        name = f"C(noz, Sum)[S.{lev}]"
+        assert effects.loc[lev, "estimate"] == pytest.approx(fit.params[name], rel=1e-8)
+        assert effects.loc[lev, "se"] == pytest.approx(fit.bse[name], rel=1e-8)
+        assert effects.loc[lev, "p"] == pytest.approx(fit.pvalues[name], rel=1e-6)
+
+
 def test_anom_limits_sidak():
     # ANOM decision limits with a Sidak critical value (documented approximation):
     # grand mean +- t(1 - (1 - (1-alpha)^(1/k))/2, N-k) * s * sqrt((k-1)/(k n)) for equal n

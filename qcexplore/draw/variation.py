@@ -270,8 +270,8 @@ def anom_texts(result: VariationResult, spec: dict[str, Any]) -> dict[str, str]:
     """
     factor = spec["options"]["factor"]
     return {
-        "anom": f"Analysis of means: {factor} level means against decision limits "
-        f"around the overall mean (outside = differs from the rest)"
+        "anom": f"Analysis of means: {factor} level means with decision limits "
+        "around the overall mean"
     }
 
 

@@ -776,7 +776,8 @@ def control_chart(
         Time column; each point gets ``start``, the first time of its rows.
     kind : str
         ``"xbar_r"``, ``"xbar_s"``, ``"imr"``, ``"ewma"``, ``"cusum"``, ``"p"``, ``"np"``,
-        ``"c"``, ``"u"`` or ``"auto"`` (typical subgroup size 1: imr, 2 to 9: xbar_r,
+        ``"c"``, ``"u"`` or ``"auto"`` (all subgroups of one: imr; else by the typical size of
+        the subgroups with several values, 2 to 9: xbar_r,
         10 or more: xbar_s).
     by : str, optional
         A factor; the points become the subgroup x level cells.
@@ -856,7 +857,12 @@ def control_chart(
     user_out, user_labels = _exclude_mask(exclude, points)
     rows = np.bincount(points.row_point, minlength=n_points)
     if kind == "auto":
-        typical = int(_typical(rows, np.zeros(n_points, np.intp), 1)[0])
+        # Individuals only when every point is one value: a few lone values (missed
+        # samples) must not turn a chart of subgroups into one that refuses them.
+        several = rows[rows > 1]
+        typical = (
+            int(_typical(several, np.zeros(several.size, np.intp), 1)[0]) if several.size else 1
+        )
         kind = "imr" if typical == 1 else "xbar_r" if typical <= 9 else "xbar_s"
     attribute = kind in ATTRIBUTE_KINDS
     m: GroupMoments | None = None

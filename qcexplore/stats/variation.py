@@ -693,13 +693,15 @@ def _components(
 # --------------------------------------------------------------------------- comparisons
 
 
-def _level_data(d: _Design, f: _Factor) -> tuple[np.ndarray, np.ndarray]:
-    """Values and level codes to compare: subgroup means for a factor constant inside
-    subgroups, values centred on their subgroup mean (the subgroup as a block) otherwise."""
+def _level_data(d: _Design, f: _Factor) -> tuple[np.ndarray, np.ndarray, int]:
+    """Values and level codes to compare, and the error degrees of freedom already used:
+    subgroup means for a factor constant inside subgroups; otherwise values centred on
+    their subgroup mean (the subgroup as a block, which uses one df per subgroup but one).
+    """
     per_subgroup = _constant_within(f.codes, d.subgroup.codes, d.k)
     if np.all(per_subgroup >= 0):
-        return d.means, per_subgroup
-    return d.y - d.means[d.subgroup.codes] + d.y.mean(), f.codes
+        return d.means, per_subgroup, 0
+    return d.y - d.means[d.subgroup.codes] + d.y.mean(), f.codes, d.k - 1
 
 
 @lru_cache(maxsize=256)
@@ -707,13 +709,15 @@ def _tukey_critical(alpha: float, k: int, df: float) -> float:
     return float(stats.studentized_range.ppf(1 - alpha, k, df))
 
 
-def _comparisons(y: np.ndarray, codes: np.ndarray, levels: pd.Index, alpha: float) -> pd.DataFrame:
+def _comparisons(
+    y: np.ndarray, codes: np.ndarray, used_df: int, levels: pd.Index, alpha: float
+) -> pd.DataFrame:
     m = group_moments(y, codes, len(levels))
     keep = m.n > 0
     n, mean = m.n[keep], m.mean[keep]
     labels = [str(v) for v in np.asarray(levels)[keep]]
     k, total = n.size, n.sum()
-    df = total - k
+    df = total - k - used_df
     rows: list[dict] = []
     if k < 2 or df <= 0:
         return pd.DataFrame(columns=[*_COMPARISON_COLUMNS, "se"])
@@ -1054,7 +1058,8 @@ def variation(
         t(1 - (1 - (1 - alpha)^(1/k)) / 2, df), a documented approximation that is slightly
         conservative against the exact equal-n values, and ``p`` Sidak-adjusted;
         ``kruskal_wallis``) on subgroup means for between-subgroup
-        factors and on subgroup-centred values otherwise; ``spread`` (Levene and
+        factors and on subgroup-centred values otherwise (error df reduced by the
+        number of subgroups less one); ``spread`` (Levene and
         Brown-Forsythe on deviations from the subgroup mean, or on single values);
         ``offsets`` (:func:`measurement_offsets`); ``multivari`` (:func:`multivari_table`).
 
