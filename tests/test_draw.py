@@ -553,6 +553,9 @@ def test_needs_rebuild_when_the_structure_changes():
     assert draw.needs_rebuild(layout, chart_result(start=False))
     assert draw.needs_rebuild(layout, chart_result(strata=None))
     assert draw.needs_rebuild(layout, variation_result())
+    wide = draw.chart_figure(chart_result(k=theme.WEBGL_FROM, start=False))
+    assert draw.needs_rebuild(wide, chart_result(k=theme.WEBGL_FROM + 1, start=False))
+    assert not draw.needs_rebuild(wide, chart_result(k=theme.WEBGL_FROM - 1, start=False))
     split = draw.chart_figure(chart_result(), split=True)
     assert draw.needs_rebuild(split, chart_result(strata=("A", "B", "C")))
     assert not draw.needs_rebuild(split, chart_result(seed=3))
@@ -619,3 +622,31 @@ def test_every_figure_is_a_plot_with_a_title():
     for layout in layouts:
         for plot in layout.select({"type": Plot}):
             assert plot.title.text, plot.name
+
+
+def test_figures_build_from_the_study_results_of_the_demo():
+    import qcexplore as qx
+
+    frame, _ = qx.demo.filling_line(seed=0)
+    study = qx.Study(
+        frame,
+        value="net_g",
+        subgroup="round",
+        time="taken_at",
+        factors=("crew", "shift", "nozzle"),
+        spec=qx.Spec(lsl=495, usl=515, target=505),
+    )
+    by_crew = study.chart(by="crew")
+    layout = draw.chart_figure(by_crew)
+    assert len(data_of(layout, "chart_points")["x"]) == len(by_crew.points)
+    by_shift = study.chart(by="shift")
+    assert not draw.needs_rebuild(layout, by_shift)  # another factor, same structure
+    draw.refresh(layout, by_shift)
+    assert set(data_of(layout, "chart_legend")["stratum"]) == {"early", "late", "night"}
+    variation = study.variation()
+    for build in (draw.multivari_figure, draw.components_figure):
+        assert build(variation).name.endswith("_layout")
+    time_structure = study.time_structure()
+    draw.acf_figure(time_structure)
+    draw.shifts_figure(time_structure)
+    draw.capability_figure(study.capability())

@@ -147,7 +147,9 @@ def test_no_spec_and_log_file(tmp_path: Path) -> None:
     s = Study(frame, value="net_g", subgroup="round", time="taken_at", factors=["crew", "shift"])
     from qcexplore.app.explorer import Explorer
 
-    log = Explorer(s).set(by="crew").save(tmp_path / "log.json")
+    explorer = Explorer(s)
+    explorer.set(by="crew")
+    log = explorer.save(tmp_path / "log.json")
     out = write_report(s, tmp_path / "r.html", log=log)
     assert out == tmp_path / "r.html"
     assert "No specification was given" in parse(out).visible

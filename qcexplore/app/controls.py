@@ -76,7 +76,7 @@ def role_options(frame: pd.DataFrame) -> dict[str, list[tuple[str, str]]]:
     --------
     >>> f = pd.DataFrame({"w": [1.0], "lot": ["a"]})
     >>> role_options(f)["value"], role_options(f)["time"]
-    ([('w', 'w')], [('none (row order)', '')])
+    ([('w', 'w')], [('none (row order)', ''), ('w', 'w')])
     """
     numeric = [c for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c].dtype)]
     timed = [

@@ -135,7 +135,8 @@ class Explorer(widgets.VBox):
     >>> frame, truth = filling_line(days=3)
     >>> ex = Explorer(Study(frame, value="net_g", subgroup="round", time="taken_at",
     ...                     factors=["crew", "nozzle"], measured_by=["crew"]))
-    >>> ex.set(by="crew").state.by
+    >>> ex.set(by="crew")
+    >>> ex.state.by
     'crew'
     """
 
@@ -263,10 +264,13 @@ class Explorer(widgets.VBox):
         self.status.value = f"<span class='qcx-ok'>{html.escape(text)}</span>"
 
     # ---- state -------------------------------------------------------------------
-    def set(self, **changes: Any) -> Explorer:
-        """Change state fields from Python (as the controls would) and update the view."""
+    def set(self, **changes: Any) -> None:
+        """Change state fields from Python (as the controls would) and update the view.
+
+        Returns nothing, so that a cell ending in ``explorer.set(...)`` does not show
+        the explorer a second time.
+        """
         self._apply(self.state.replace(**changes))
-        return self
 
     def _from_controls(self) -> None:
         self._apply(self.state.replace(**self.settings.read()))

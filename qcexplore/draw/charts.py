@@ -35,6 +35,7 @@ subgroup's start time when every point has one (``x="auto"``).
 
 from __future__ import annotations
 
+import html
 from typing import Any
 
 import numpy as np
@@ -43,7 +44,6 @@ from bokeh.layouts import column, gridplot
 from bokeh.models import Div, HoverTool, LayoutDOM
 
 from qcexplore.draw import theme
-from qcexplore.errors import QCDataError
 from qcexplore.stats.results import ChartResult
 
 _KIND_WORDS = {
@@ -60,22 +60,6 @@ _KIND_WORDS = {
     "s": "Subgroup standard deviations (S chart)",
     "mr": "Moving ranges (MR chart)",
 }
-_POSITION_PAD = 0.5
-_TIME_PAD = 30 * 60 * 1000.0  # half an hour, for a single timed point
-
-
-def _x_kind(result: ChartResult, x: str) -> str:
-    if x not in ("auto", "position", "time"):
-        raise QCDataError(f"x: {x!r} is not one of 'auto', 'position', 'time'.")
-    has_time = "start" in result.points and result.points["start"].notna().all()
-    if x == "time" and not has_time:
-        raise QCDataError(
-            "x='time': the chart points have no 'start' time on every row; "
-            "use x='position' or give the study a time column."
-        )
-    if x == "auto":
-        return "time" if has_time and len(result.points) else "position"
-    return x
 
 
 def chart_spec(result: ChartResult, *, split: bool = False, x: str = "auto") -> dict[str, Any]:
@@ -111,7 +95,7 @@ def chart_spec(result: ChartResult, *, split: bool = False, x: str = "auto") -> 
         "options": {"split": bool(split), "x": x},
         "panels": panels,
         "strata": strata,
-        "x": _x_kind(result, x),
+        "x": theme.x_kind(x, points),
         "time": "start" in points and bool(points["start"].notna().any()),
         "secondary": result.secondary is not None,
         "webgl": len(points) > theme.WEBGL_FROM,
@@ -165,13 +149,10 @@ def _chart_sources(
         group = stratum_text
     else:
         group = np.zeros(size, dtype=object)
-    if size > theme.LINE_UP_TO:
-        keep = np.zeros(size, dtype=bool)
-        line = theme.segments(x[keep], y[keep], group[keep])
-    else:
-        line = theme.segments(x, y, group)
+    keep = theme.line_rows(size)
+    line = theme.segments(x[keep], y[keep], group[keep])
 
-    pad = _TIME_PAD if spec["x"] == "time" else _POSITION_PAD
+    pad = theme.TIME_PAD if spec["x"] == "time" else theme.POSITION_PAD
     limit_cols = {k: points[k].to_numpy(dtype=float) for k in ("center", "lcl", "ucl")}
     limit_data = theme.concat(
         [
@@ -254,8 +235,8 @@ def chart_texts(result: ChartResult, spec: dict[str, Any]) -> dict[str, str]:
         if sec is not None:
             texts["secondary_chart"] = _title(sec)
         return texts
-    texts["chart_title"] = f"<b>{_title(result)}</b>" + (
-        f"<br>below: {_title(sec)}" if sec is not None else ""
+    texts["chart_title"] = f"<b>{html.escape(_title(result))}</b>" + (
+        f"<br>below: {html.escape(_title(sec))}" if sec is not None else ""
     )
     by = result.by or "stratum"
     names = zip(

@@ -11,8 +11,9 @@ BokehModel. A different description needs a new figure (:func:`needs_rebuild`):
   secondary chart appearing or disappearing, strata appearing or disappearing, the x
   axis switching between positions and times, or the point count crossing
   :data:`~qcexplore.draw.theme.WEBGL_FROM` (WebGL on/off);
-- multi-vari: another set of factors; ANOM: another factor or other levels;
-  components: other sources; step changes: the x axis switching position/time;
+- multi-vari: another set of factors or WebGL on/off; ANOM: another factor or other
+  levels; components: other sources; step changes: the x axis switching between
+  positions and times, or WebGL on/off;
 - ACF and capability: never (their layout does not depend on the data);
 - a result of another type than the one the layout was built from.
 

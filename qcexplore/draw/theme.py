@@ -21,6 +21,7 @@ import pandas as pd
 from bokeh.models import AdaptiveTicker, CDSView, ColumnDataSource, GroupFilter, LayoutDOM
 from bokeh.plotting import figure
 
+from qcexplore.errors import QCDataError
 from qcexplore.stats.rules import RULE_TEXT
 
 #: Strata colours: the Okabe-Ito set without its vermillion (kept for signals), with the
@@ -52,6 +53,11 @@ WEBGL_FROM = 5_000
 #: Above this many points the joining line is left out: at that density the points
 #: read as a band, and a quarter of a million line segments would slow every redraw.
 LINE_UP_TO = 20_000
+
+#: Half-width of a point's slot at either end of a step line: half a position, or half
+#: an hour on a time axis with a single point (in milliseconds).
+POSITION_PAD = 0.5
+TIME_PAD = 30 * 60 * 1000.0
 
 WIDTH = 900
 HEIGHT = 300
@@ -195,6 +201,27 @@ def time_ms(column: pd.Series) -> np.ndarray:
     return ns / 1e6
 
 
+def x_kind(x: str, frame: pd.DataFrame) -> str:
+    """The x axis to draw: ``"position"`` (1..k in time order) or ``"time"`` (``start``).
+
+    ``x="auto"`` takes the start times when every row of ``frame`` has one.
+
+    Examples
+    --------
+    >>> x_kind("auto", pd.DataFrame({"start": pd.to_datetime(["2026-01-01"])}))
+    'time'
+    """
+    if x not in ("auto", "position", "time"):
+        raise QCDataError(f"x: {x!r} is not one of 'auto', 'position', 'time'.")
+    has_time = len(frame) > 0 and "start" in frame and bool(frame["start"].notna().all())
+    if x == "time" and not has_time:
+        raise QCDataError(
+            "x='time': not every subgroup has a 'start' time; use x='position' or give the "
+            "study a time column."
+        )
+    return ("time" if has_time else "position") if x == "auto" else x
+
+
 def boundaries(x: np.ndarray, pad: float) -> tuple[np.ndarray, np.ndarray]:
     """Left and right edge of each sorted position: halfway to its neighbours.
 
@@ -297,6 +324,17 @@ def spec_of(layout: LayoutDOM) -> dict[str, Any] | None:
         if isinstance(tag, dict) and "figure" in tag:
             return tag
     return None
+
+
+def line_rows(size: int) -> np.ndarray:
+    """Rows joined by the thin line: all of them, or none above :data:`LINE_UP_TO`.
+
+    Examples
+    --------
+    >>> line_rows(3).tolist(), line_rows(LINE_UP_TO + 1).size
+    ([0, 1, 2], 0)
+    """
+    return np.arange(size if size <= LINE_UP_TO else 0)
 
 
 def segments(

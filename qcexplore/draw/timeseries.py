@@ -27,8 +27,6 @@ from qcexplore.draw import theme
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import TimeResult
 
-_TIME_PAD = 30 * 60 * 1000.0
-
 
 def acf_spec(result: TimeResult) -> dict[str, Any]:
     """Build description of the ACF layout (nothing in it depends on the data).
@@ -130,16 +128,15 @@ def shifts_spec(result: TimeResult, *, x: str = "auto") -> dict[str, Any]:
     ...                        series=series))["x"]
     'position'
     """
-    if x not in ("auto", "position", "time"):
-        raise QCDataError(f"x: {x!r} is not one of 'auto', 'position', 'time'.")
     series = result.series
-    has_time = len(series) > 0 and "start" in series and bool(series["start"].notna().all())
-    if x == "time" and not has_time:
-        raise QCDataError(
-            "x='time': the series has no 'start' time on every subgroup; use x='position'."
-        )
-    kind = ("time" if has_time else "position") if x == "auto" else x
-    return {"figure": "shifts", "options": {"x": x}, "x": kind, "time": has_time}
+    has_time = "start" in series and bool(series["start"].notna().any())
+    return {
+        "figure": "shifts",
+        "options": {"x": x},
+        "x": theme.x_kind(x, series),
+        "time": has_time,
+        "webgl": len(series) > theme.WEBGL_FROM,
+    }
 
 
 def shifts_sources(result: TimeResult, spec: dict[str, Any]) -> dict[str, dict]:
@@ -174,7 +171,7 @@ def shifts_sources(result: TimeResult, spec: dict[str, Any]) -> dict[str, dict]:
     }
     if spec["time"]:
         points["time"] = theme.time_ms(series["start"])
-    keep = np.arange(len(series)) if len(series) <= theme.LINE_UP_TO else np.arange(0)
+    keep = theme.line_rows(len(series))
     line = theme.segments(x[keep], y[keep], np.zeros(keep.size))
     line.pop("panel")
 
@@ -188,7 +185,7 @@ def shifts_sources(result: TimeResult, spec: dict[str, Any]) -> dict[str, dict]:
         )
     order = np.argsort(at, kind="stable")
     at = at[order]
-    left, right = theme.boundaries(x, _TIME_PAD if spec["x"] == "time" else 0.5)
+    left, right = theme.boundaries(x, theme.TIME_PAD if spec["x"] == "time" else theme.POSITION_PAD)
     edge = left[at]
     start = np.concatenate([[left[0]], edge[:-1]]) if at.size else edge
     stop = np.concatenate([edge[1:], [right[-1]]]) if at.size else edge
@@ -249,7 +246,7 @@ def shifts_figure(result: TimeResult, *, x: str = "auto") -> LayoutDOM:
     fig = theme.new_figure(
         "shifts",
         shifts_texts(result, spec)["shifts"],
-        webgl=len(result.series) > theme.WEBGL_FROM,
+        webgl=spec["webgl"],
         **({"x_axis_type": "datetime"} if spec["x"] == "time" else {}),
     )
     fig.segment(

@@ -57,7 +57,12 @@ def multivari_spec(result: VariationResult) -> dict[str, Any]:
             "variation(...) with at least one factor."
         )
     factors = [str(f) for f in pd.unique(mv["factor"])]
-    return {"figure": "multivari", "options": {}, "panels": factors}
+    return {
+        "figure": "multivari",
+        "options": {},
+        "panels": factors,
+        "webgl": len(mv) > theme.WEBGL_FROM,
+    }
 
 
 def multivari_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str, dict]:
@@ -105,7 +110,8 @@ def multivari_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str
     }
     # One group per (factor, subgroup): the level means of a subgroup are joined.
     group = pd.factorize(factor)[0] * (position.max(initial=0.0) + 1.0) + position
-    line = theme.segments(x, y, group, panel)
+    keep = theme.line_rows(len(mv))
+    line = theme.segments(x[keep], y[keep], group[keep], panel[keep])
     if len(spec["panels"]) == 1:
         points.pop("panel")
         line.pop("panel")
@@ -152,7 +158,7 @@ def multivari_figure(result: VariationResult) -> LayoutDOM:
     height = theme.HEIGHT if len(panels) == 1 else max(200, 2 * theme.HEIGHT // len(panels))
     for name, panel in zip(theme.panel_names("multivari", len(panels)), panels, strict=True):
         shared = {"x_range": figs[0].x_range, "y_range": figs[0].y_range} if figs else {}
-        fig = theme.new_figure(name, texts[name], height=height, **shared)
+        fig = theme.new_figure(name, texts[name], height=height, webgl=spec["webgl"], **shared)
         fig.segment(
             "x0",
             "y0",
