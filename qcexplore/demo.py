@@ -71,7 +71,7 @@ def filling_line(
     --------
     >>> frame, truth = filling_line(seed=1)
     >>> sorted(frame.columns)
-    ['crew', 'day', 'nozzle', 'net_g', 'round', 'scale', 'shift', 'taken_at']
+    ['crew', 'day', 'net_g', 'nozzle', 'round', 'scale', 'shift', 'taken_at']
     >>> truth["crew_offset"]["crew"]
     'B'
     """

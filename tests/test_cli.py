@@ -128,6 +128,20 @@ def test_network_host_without_token_is_refused_before_anything_starts(
         real_serve(Study(filling_line(days=1)[0], value="net_g"), host="0.0.0.0")
 
 
+def test_busy_port_exits_2_before_serving(
+    capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import socket
+
+    with socket.socket() as taken:
+        taken.bind(("127.0.0.1", 0))
+        taken.listen()
+        port = taken.getsockname()[1]
+        code, _, err = run(["app", "--port", str(port)], capsys)
+    assert code == 2
+    assert f"port {port}" in one_line_error(err) and "in use" in err
+
+
 # ---- bad data ----------------------------------------------------------------------------
 def test_bad_data_exit_2_with_one_line_naming_the_problem(
     demo_csv: Path, tmp_path: Path, capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch
