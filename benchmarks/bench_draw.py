@@ -2,7 +2,9 @@
 
 Prints the median of 5 runs of
 - building ``chart_figure`` (main chart with a secondary chart, three strata overlaid),
-- ``refresh`` of that layout with another result of the same shape,
+- ``refresh`` of that layout with another result of the same shape, alone and inside a
+  jupyter_bokeh widget (the data patch serialised into the messages for the page; the
+  sending itself is left out: no kernel),
 - the floor: a bare bokeh figure with one scatter of the same x and y arrays,
 and the ratios against the floor, all measured in the same run.
 
@@ -20,6 +22,7 @@ import numpy as np
 import pandas as pd
 from bokeh.models import ColumnDataSource
 from bokeh.plotting import figure
+from jupyter_bokeh import BokehModel
 
 from qcexplore.draw import chart_figure, refresh
 from qcexplore.stats.results import ChartResult
@@ -97,10 +100,16 @@ def main(k: int = 250_000) -> None:
     build = median_seconds(lambda: chart_figure(first))
     swaps = iter([second, first] * REPEATS)
     update = median_seconds(lambda: refresh(layout, next(swaps)))
+    shown = chart_figure(first)
+    widget = BokehModel(shown)
+    widget.send = lambda content, buffers=None: None  # no kernel: serialise, do not send
+    swaps = iter([second, first] * REPEATS)
+    patched = median_seconds(lambda: refresh(shown, next(swaps)))
     print(f"points: {k:,}  (median of {REPEATS})")
     print(f"bare figure, one scatter: {floor * 1e3:8.1f} ms")
     print(f"chart_figure:             {build * 1e3:8.1f} ms  ratio {build / floor:6.1f}")
     print(f"refresh:                  {update * 1e3:8.1f} ms  ratio {update / floor:6.1f}")
+    print(f"refresh in a widget:      {patched * 1e3:8.1f} ms  ratio {patched / floor:6.1f}")
 
 
 if __name__ == "__main__":

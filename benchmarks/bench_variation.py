@@ -9,7 +9,11 @@ Run: ``python benchmarks/bench_variation.py``. Prints the median of 5 runs of
 * the same without the per-factor comparisons and spread tests (``compare=False``);
 * ``variation()`` on a nested/crossed layout (subgroups of 6, nozzle within subgroups,
   crew between subgroups, crew also as measured_by), which statsmodels cannot fit
-  directly at this size (33,334 subgroup dummies).
+  directly at this size (33,334 subgroup dummies), balanced and with 1.5% of the rows
+  dropped at random (unbalanced: REML components from sufficient statistics);
+* ``variation()`` on the demo study (qcexplore.demo.filling_line) over 7 and 28 days, the
+  call the explorer makes when the date window changes, against the floor of the same
+  call with moment components and no comparisons.
 """
 
 from __future__ import annotations
@@ -23,7 +27,9 @@ import pandas as pd
 import statsmodels.api as sm
 import statsmodels.formula.api as smf
 
+from qcexplore.demo import filling_line
 from qcexplore.stats.variation import variation
+from qcexplore.study import Study
 
 ROWS = 200_004  # a multiple of the subgroup size 6
 REPEATS = 5
@@ -109,6 +115,37 @@ def main() -> None:
     print(f"ratio (no compare) / statsmodels       : {ours_core / reference:8.2f}")
     print(f"variation() nested + crossed, full      : {nested_time * 1e3:8.1f} ms")
     print(f"variation() nested + crossed, no compare: {anova_only * 1e3:8.1f} ms")
+    keep = np.random.default_rng(1).random(len(nested)) > 0.015
+    unbalanced = nested[keep].reset_index(drop=True)
+    unbalanced_time = _median_seconds(
+        lambda: variation(
+            unbalanced,
+            value="weight",
+            subgroup="sg",
+            factors=["crew", "nozzle"],
+            measured_by=["crew"],
+        )
+    )
+    print(f"variation() unbalanced {keep.sum():,} rows, full: {unbalanced_time * 1e3:8.1f} ms")
+    args = {"value": "net_g", "subgroup": "round", "factors": ["crew", "shift", "nozzle"]}
+    for days in (7, 28):
+        frame, _ = filling_line(days=days)
+        study = Study(
+            frame,
+            value="net_g",
+            subgroup="round",
+            time="taken_at",
+            factors=["crew", "shift", "nozzle"],
+            measured_by=["crew"],
+        )
+        demo = _median_seconds(lambda s=study: variation(s.frame, measured_by=["crew"], **args))
+        floor = _median_seconds(
+            lambda s=study: variation(s.frame, components="ems", compare=False, **args)
+        )
+        method = variation(study.frame, **args).method
+        print(f"demo {days:2d} days ({len(study.frame):,} rows), full   : {demo * 1e3:8.1f} ms")
+        print(f"demo {days:2d} days, floor (ems, no compare)  : {floor * 1e3:8.1f} ms")
+        print(f"ratio full / floor                     : {demo / floor:8.2f}  ({method})")
 
 
 if __name__ == "__main__":

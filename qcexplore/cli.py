@@ -10,22 +10,13 @@ import argparse
 import os
 import sys
 import traceback
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any, NoReturn
 
+from qcexplore.app.serve import DEMO_ROLES, DEMO_TITLE
 from qcexplore.errors import QCDataError
-
-#: The roles of the built-in demo (qcexplore.demo.filling_line).
-DEMO_ROLES: dict[str, Any] = {
-    "value": "net_g",
-    "subgroup": "round",
-    "time": "taken_at",
-    "factors": ["crew", "shift", "nozzle"],
-    "measured_by": ["crew"],
-    "spec": {"lsl": 500.0},
-    "units": "g",
-}
+from qcexplore.study import Study
 
 _EXAMPLES = """\
 examples:
@@ -69,7 +60,8 @@ def _shifts(text: str) -> dict[str, str]:
 def _add_study_options(parser: argparse.ArgumentParser) -> None:
     roles = parser.add_argument_group(
         "study options",
-        "Roles of the data's columns. Lists take spaces or commas: --factors crew nozzle.",
+        "Roles of the data's columns. Lists take spaces or commas (--factors crew nozzle); "
+        "give DATA before them.",
     )
     roles.add_argument("--value", help="the measured characteristic (numeric column)")
     roles.add_argument("--subgroup", help="column naming the rational subgroup (hour, lot)")
@@ -153,7 +145,9 @@ def build_parser() -> argparse.ArgumentParser:
     server.add_argument(
         "--log", metavar="FILE", help="open the explorer with an investigation log saved earlier"
     )
-    server.add_argument("--seed", type=int, default=0, help="seed of the demo data (default 0)")
+    app.add_argument_group("demo (without DATA)").add_argument(
+        "--seed", type=int, default=0, help="seed of the demo data (default 0)"
+    )
 
     report = commands.add_parser(
         "report",
@@ -194,7 +188,7 @@ def _flat(names: Sequence[str] | None) -> list[str] | None:
     return [part for name in names for part in _names(name)]
 
 
-def study_roles(args: argparse.Namespace, defaults: dict[str, Any] | None = None) -> dict:
+def study_roles(args: argparse.Namespace, defaults: dict[str, Any] | None = None) -> dict[str, Any]:
     """The ``Study`` keyword arguments given on the command line (over ``defaults``).
 
     Examples
@@ -224,7 +218,7 @@ def study_roles(args: argparse.Namespace, defaults: dict[str, Any] | None = None
     return roles
 
 
-def _progress(name: str):
+def _progress(name: str) -> Callable[[float], None]:
     """A progress callback that writes the share of ``name`` read so far to stderr."""
     shown = {"last": -1}
     live = sys.stderr.isatty()
@@ -241,7 +235,7 @@ def _progress(name: str):
     return report
 
 
-def load_study(data: str, roles: dict[str, Any], *, sheet: str | None = None):
+def load_study(data: str, roles: dict[str, Any], *, sheet: str | None = None) -> Study:
     """Read ``data`` (progress on stderr for large files) and build the Study.
 
     Examples
@@ -253,14 +247,13 @@ def load_study(data: str, roles: dict[str, Any], *, sheet: str | None = None):
     'w'
     """
     from qcexplore.data.io import read
-    from qcexplore.study import Study
 
     frame = read(data, sheet=sheet, progress=_progress(Path(data).name))
     return Study(frame, **roles)
 
 
 def _run_app(args: argparse.Namespace) -> int:
-    from qcexplore.app.serve import AppSettings, is_loopback, new_token, serve
+    from qcexplore.app.serve import AppSettings, demo_study, is_loopback, new_token, serve
 
     token = new_token() if args.token == "auto" else args.token
     if not is_loopback(args.host) and not token:
@@ -269,11 +262,8 @@ def _run_app(args: argparse.Namespace) -> int:
             "(or --token auto to generate one), or leave --host out for this machine only."
         )
     if args.data is None:
-        from qcexplore.demo import filling_line
-        from qcexplore.study import Study
-
-        study = Study(filling_line(seed=args.seed)[0], **study_roles(args, DEMO_ROLES))
-        title = f"Demo: honey filling line (seed {args.seed})"
+        study = demo_study(args.seed, **study_roles(args, DEMO_ROLES))
+        title = DEMO_TITLE.format(seed=args.seed)
     else:
         study = load_study(args.data, study_roles(args), sheet=args.sheet)
         title = Path(args.data).name

@@ -36,9 +36,7 @@ from typing import Any
 import pytest
 
 from qcexplore.app import serve
-from qcexplore.cli import DEMO_ROLES
 from qcexplore.demo import filling_line
-from qcexplore.study import Study
 
 pytestmark = pytest.mark.browser
 
@@ -125,24 +123,55 @@ def wait_for_chart(page: Any) -> None:
                            timeout=CHART_WAIT_MS)  # fmt: skip
 
 
+#: Stratum label to the distinct colours of its points ("" when there are no strata), read
+#: from what BokehJS draws: the fill colour of the glyph that shows ``chart_points``, a
+#: colour column or a colour-mapped code column (mapped as BokehJS maps it), or one value.
+POINT_COLOURS = """
+const src = find('chart_points');
+const n = src.get_length();
+const renderer = [...src.document.all_models].find(m => m.data_source === src && m.glyph);
+const spec = renderer.glyph.properties.fill_color.get_value();
+const hex = c => typeof c === 'number'
+  ? '#' + ((c >>> 8) & 0xffffff).toString(16).padStart(6, '0').toUpperCase()
+  : String(c).toUpperCase();
+let colours;
+if (spec.field === undefined) {
+  colours = Array(n).fill(hex(spec.value));
+} else {
+  const column = Array.from(src.data[spec.field]);
+  colours = (spec.transform ? Array.from(spec.transform.v_compute(column)) : column).map(hex);
+}
+const strata = src.document.get_model_by_name('chart_strata');
+const labels = src.data.stratum !== undefined ? Array.from(src.data.stratum, String)
+  : src.data.stratum_code !== undefined
+    ? Array.from(src.data.stratum_code, c => strata ? String(strata.data.stratum[c]) : String(c))
+    : Array(n).fill('');
+const out = {};
+labels.forEach((label, i) => {
+  out[label] = out[label] || [];
+  if (!out[label].includes(colours[i])) out[label].push(colours[i]);
+});
+return out;
+"""
+
+
 def point_colours(page: Any) -> dict[str, list[str]]:
-    """Stratum label to the distinct colours of its points, from the page's model."""
-    return page.evaluate(
-        js(
-            "const d = find('chart_points').data; const out = {};"
-            "for (let i = 0; i < d.color.length; i++) {"
-            "  const k = String(d.stratum[i]); out[k] = out[k] || [];"
-            "  if (!out[k].includes(d.color[i])) out[k].push(d.color[i]); }"
-            "return out;"
-        )
-    )
+    """Stratum label to the distinct colours of its points, as drawn in the page."""
+    return page.evaluate(js(POINT_COLOURS))
 
 
 def split_by(page: Any, label: str, levels: int) -> dict[str, list[str]]:
     """Choose a split in the explorer and wait until the points take ``levels`` colours."""
     page.select_option(".qcx-split-by select", label=label)
     page.wait_for_function(
-        js("const m = find('chart_points'); return m && new Set(m.data.color).size === arg;"),
+        js(
+            "if (!find('chart_points')) return false;"
+            f"const colours = (() => {{ {POINT_COLOURS} }})();"
+            "const labels = Object.keys(colours);"
+            "return new Set(Object.values(colours).flat()).size === arg"
+            " && labels.length === arg && !labels.includes('undefined')"
+            " || arg === 1 && labels.length === 1 && labels[0] === '';"
+        ),
         arg=levels,
         timeout=UPDATE_WAIT_MS,
     )
@@ -182,10 +211,10 @@ def test_served_chart_is_on_screen(app: Tab, capsys: pytest.CaptureFixture) -> N
         print()
     assert page.locator("canvas").first.is_visible()
     count = page.evaluate(js("return find('chart_points').get_length();"))
-    expected = len(Study(filling_line()[0], **DEMO_ROLES).subgroups)
+    expected = len(serve.demo_study().subgroups)
     assert count == expected  # one point per hourly round of the demo
     colours = point_colours(page)
-    assert len(colours) == 1 and len(next(iter(colours.values()))) == 1  # no split: one colour
+    assert list(colours) == [""] and len(colours[""]) == 1  # no split: one colour for all
     assert app.errors == []
 
 
@@ -200,7 +229,7 @@ def test_split_by_recolours_the_points(app: Tab, shots: Path) -> None:
     snap(page, shots, "3-split-by-nozzle")
     assert sorted(colours) == ["1", "2", "3", "4", "5", "6"]
     assert all(len(c) == 1 for c in colours.values())
-    split_by(page, "no split", 1)
+    assert list(split_by(page, "no split", 1)) == [""]
     assert app.errors == []
 
 
@@ -209,19 +238,19 @@ def test_excluding_a_point_changes_the_limits(app: Tab, shots: Path) -> None:
     limits = js("const d = find('chart_limits').data; return Array.from(d.y0).map(Number);")
     before = page.evaluate(limits)
     # The point farthest from the centre line, selected as a tap on it would.
-    chosen = page.evaluate(
+    page.evaluate(
         js(
             "const v = Array.from(find('chart_points').data.value);"
             "const mean = v.reduce((a, b) => a + b, 0) / v.length;"
             "let best = 0; v.forEach((x, i) => { if (Math.abs(x - mean) > Math.abs(v[best] - mean))"
             " best = i; });"
             "find('chart_points').selected.indices = [best];"
-            "return String(find('chart_points').data.subgroup[best]);"
         )
     )
     table = page.locator(".qcx-selection-table")
     table.get_by_text("selected subgroup").wait_for(timeout=UPDATE_WAIT_MS)
-    page.locator(".qcx-exclude-reason input").fill("browser test: jar knocked off the scale")
+    reason = "browser test: jar knocked off the scale"
+    page.locator(".qcx-exclude-reason input").fill(reason)
     page.locator("button.qcx-exclude").click()
     page.wait_for_function(
         js("const d = find('chart_limits'); return d && JSON.stringify(Array.from(d.data.y0)"
@@ -232,14 +261,15 @@ def test_excluding_a_point_changes_the_limits(app: Tab, shots: Path) -> None:
     snap(page, shots, "4-excluded")
     after = page.evaluate(limits)
     assert after != before
-    assert chosen in page.locator(".qcx-exclusions").inner_text()
+    listed = page.locator(".qcx-exclusions tbody tr").all_inner_texts()
+    assert len(listed) == 1 and reason in listed[0], listed
     assert app.errors == []
 
 
 def test_findings_list_the_injected_effects(app: Tab, shots: Path) -> None:
     page = app.page
-    frame, truth = filling_line()
-    found = Study(frame, **DEMO_ROLES).findings()
+    _, truth = filling_line()
+    found = serve.demo_study().findings()
 
     def title(kinds: set[str], factor: str | None = None, level: str | None = None) -> str:
         matches = [
@@ -267,10 +297,7 @@ def test_findings_list_the_injected_effects(app: Tab, shots: Path) -> None:
 
 # ---- JupyterLab ----------------------------------------------------------------------------------
 NOTEBOOK_CELLS = [
-    "from qcexplore.cli import DEMO_ROLES\n"
-    "from qcexplore.demo import filling_line\n"
-    "from qcexplore.study import Study\n\n"
-    "s = Study(filling_line()[0], **DEMO_ROLES)",
+    "from qcexplore.app.serve import demo_study\n\ns = demo_study()  # the demo in its roles",
     "s.explore()",
 ]
 

@@ -85,7 +85,7 @@ def test_study_options_become_study_roles() -> None:
 
 def test_demo_roles_build_the_demo_study() -> None:
     args = cli.build_parser().parse_args(["app"])
-    study = Study(filling_line(days=2)[0], **cli.study_roles(args, cli.DEMO_ROLES))
+    study = Study(filling_line(days=2)[0], **cli.study_roles(args, serve.DEMO_ROLES))
     assert study.value == "net_g" and study.subgroup == "round" and study.time == "taken_at"
     assert study.factors == ("crew", "shift", "nozzle") and study.measured_by == ("crew",)
     assert study.spec.lsl == 500.0 and study.units == "g"
@@ -229,9 +229,31 @@ def test_demo_then_report(demo_csv: Path, tmp_path: Path, capsys: pytest.Capture
     assert "net_g" in text and "<html" in text.lower()
 
 
+def test_report_passes_the_log_and_title(
+    demo_csv: Path, tmp_path: Path, capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    calls: list[tuple] = []
+
+    def report(study: Study, path: str, **options: object) -> Path:
+        calls.append((study.roles(), path, options))
+        return Path(path)
+
+    monkeypatch.setattr(Study, "report", report)
+    log, out_file = tmp_path / "investigation-log.json", tmp_path / "r.html"
+    shifts = "early=06:00,late=14:00,night=22:00"
+    args = ["report", str(demo_csv), "-o", str(out_file), *DEMO_ARGS, "--shifts", shifts,
+            "--log", str(log), "--title", "Line 3"]  # fmt: skip
+    code, _, err = run(args, capsys)
+    assert code == 0, err
+    ((roles, path, options),) = calls
+    assert path == str(out_file) and options == {"log": str(log), "title": "Line 3"}
+    assert roles["shifts"] == {"early": "06:00", "late": "14:00", "night": "22:00"}
+    assert roles["spec"] == {"lsl": 500.0, "usl": None, "target": None}
+
+
 # ---- the served app ----------------------------------------------------------------------------
 def test_app_folder_round_trip(tmp_path: Path) -> None:
-    study = Study(filling_line(days=2)[0], **cli.DEMO_ROLES)
+    study = Study(filling_line(days=2)[0], **serve.DEMO_ROLES)
     settings = serve.AppSettings(title="fills.csv", workdir=str(tmp_path), log=None)
     config = serve.write_app_folder(study, tmp_path, settings)
     back, settings_back = serve.load_app_study(config)

@@ -22,7 +22,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from qcexplore import draw
-from qcexplore.draw import theme
+from qcexplore.draw import charts, theme
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import CapabilityResult, ChartResult, TimeResult, VariationResult
 from qcexplore.stats.rules import RULE_TEXT
@@ -205,6 +205,33 @@ def data_of(layout, name: str) -> dict:
     return named(layout)[name].data
 
 
+def mapped_colours(mapper, values) -> np.ndarray:
+    """The colours a LinearColorMapper gives ``values``, computed as BokehJS does (bins of
+    equal width over [low, high], low_color/high_color outside, nan_color for NaN)."""
+    v = np.asarray(values, dtype=float)
+    palette = np.array(mapper.palette, dtype=object)
+    k = np.floor((v - mapper.low) / (mapper.high - mapper.low) * palette.size)
+    out = palette[np.clip(np.nan_to_num(k), 0, palette.size - 1).astype(int)]
+    out[v < mapper.low] = mapper.low_color
+    out[v > mapper.high] = mapper.high_color
+    out[np.isnan(v)] = mapper.nan_color
+    return out
+
+
+def point_strata(layout, name: str = "chart_points") -> pd.DataFrame:
+    """Stratum text and drawn colour of each row, decoded as the page does: the text is
+    ``chart_strata.stratum[stratum_code]``, the colour the ``chart_colors`` mapper's."""
+    models = named(layout)
+    data = models[name].data
+    levels = np.array([*models["chart_strata"].data["stratum"], ""], dtype=object)
+    return pd.DataFrame(
+        {
+            "s": levels[np.asarray(data["stratum_code"])],
+            "c": mapped_colours(models["chart_colors"], data["color_code"]),
+        }
+    )
+
+
 def hover_labels(fig) -> list[str]:
     return [label for tool in fig.select({"type": HoverTool}) for label, _ in tool.tooltips]
 
@@ -242,8 +269,13 @@ def test_chart_split_gives_one_panel_per_stratum_with_shared_axes():
     assert len({p.y_range.id for p in panels}) == 1
     assert len({p.x_range.id for p in panels + lower}) == 1
     assert [p.title.text for p in panels] == ["mean, crew = A", "mean, crew = B", "mean, crew = C"]
-    # each panel draws its own stratum's rows of the shared source
-    assert set(models["chart_points"].data["panel"]) == {"A", "B", "C"}
+    # each panel draws its own stratum's rows of the shared source, through a filter on
+    # the panel_code column
+    codes = models["chart_points"].data["panel_code"]
+    assert list(point_strata(layout)["s"]) == [["A", "B", "C"][c] for c in codes]
+    for i, fig in enumerate(panels):
+        dots = [r for r in fig.renderers if r.data_source.name == "chart_points"]
+        assert dots[0].view.filter.args == {"columns": ["panel_code"], "codes": [i]}
 
 
 def test_per_stratum_limits_split_into_panels():
@@ -298,18 +330,16 @@ def test_palette_is_deterministic_and_distinct(levels):
 
 
 def test_one_colour_per_stratum_and_the_same_colour_across_figures():
-    points = data_of(draw.chart_figure(chart_result(strata=("A", "B", "C"))), "chart_points")
-    by_level = pd.DataFrame({"s": points["stratum"], "c": points["color"]}).groupby("s")["c"]
+    points = point_strata(draw.chart_figure(chart_result(strata=("A", "B", "C"))))
+    by_level = points.groupby("s")["c"]
     assert (by_level.nunique() == 1).all()
     assert by_level.first().nunique() == 3
-    split = data_of(
-        draw.chart_figure(chart_result(strata=("A", "B", "C")), split=True), "chart_points"
-    )
-    assert list(split["color"]) == list(points["color"])
+    split = point_strata(draw.chart_figure(chart_result(strata=("A", "B", "C")), split=True))
+    assert list(split["c"]) == list(points["c"])
     multivari = data_of(draw.multivari_figure(variation_result()), "multivari_points")
     crew = multivari["factor"] == "crew"
     mv_colours = dict(zip(multivari["level"][crew], multivari["color"][crew], strict=True))
-    assert mv_colours == dict(zip(points["stratum"], points["color"], strict=True))
+    assert mv_colours == dict(zip(points["s"], points["c"], strict=True))
     anom = data_of(draw.anom_figure(variation_result(), "crew"), "anom_points")
     assert dict(zip(anom["level"], anom["color"], strict=True)) == mv_colours
 
@@ -317,9 +347,7 @@ def test_one_colour_per_stratum_and_the_same_colour_across_figures():
 def test_unused_categories_keep_the_colours_stable():
     full = chart_result(strata=("A", "B", "C"))
     only_c = full.points[full.points["stratum"] == "C"].reset_index(drop=True)
-    colours = data_of(
-        draw.chart_figure(ChartResult("xbar_r", only_c, full.limits)), "chart_points"
-    )["color"]
+    colours = point_strata(draw.chart_figure(ChartResult("xbar_r", only_c, full.limits)))["c"]
     assert set(colours) == {draw.palette_for(["A", "B", "C"])["C"]}
 
 
@@ -335,6 +363,46 @@ def test_legend_lists_each_stratum_once_in_its_colour():
     legend = data_of(draw.chart_figure(chart_result(strata=("A", "B", "C"))), "chart_legend")
     assert list(legend["stratum"]) == ["A", "B", "C"]
     assert list(legend["color"]) == list(draw.palette_for(["A", "B", "C"]).values())
+
+
+def test_colour_mapper_gives_each_code_its_palette_colour():
+    # code i -> STRATA_COLORS[i], as palette_for gives the i-th level; no level -> POINT
+    mapper = named(draw.chart_figure(chart_result()))["chart_colors"]
+    codes = np.arange(-1, len(theme.STRATA_COLORS))
+    assert list(mapped_colours(mapper, codes)) == [theme.POINT, *theme.STRATA_COLORS]
+    levels = [f"L{i}" for i in range(9)]  # more levels than colours: they repeat
+    colours = np.array(theme.STRATA_COLORS, dtype=object)[theme.color_codes(np.arange(9))]
+    assert list(colours) == list(draw.palette_for(levels).values())
+
+
+def test_per_point_and_per_segment_sources_hold_only_number_columns():
+    # Number columns reach the page as binary arrays; text would go element by element.
+    for split in (False, True):
+        layout = draw.chart_figure(chart_result(k=40, strata=("A", "B", "C")), split=split)
+        for prefix in ("chart", "secondary"):
+            for part in ("points", "signals", "line", "limits"):
+                data = data_of(layout, f"{prefix}_{part}")
+                kinds = {c: np.asarray(v).dtype.kind for c, v in data.items()}
+                assert set(kinds.values()) <= set("iuf"), kinds
+
+
+def test_refresh_sends_point_columns_as_binary_buffers():
+    from jupyter_bokeh import BokehModel
+
+    k = 5000
+    signals = tuple(range(0, k, 3))
+    layout = draw.chart_figure(chart_result(k=k, strata=("A", "B", "C"), signals=signals))
+    widget = BokehModel(layout)
+    sent = []
+    widget.send = lambda content, buffers=None: sent.append((content, buffers or []))
+    draw.refresh(layout, chart_result(k=k, strata=("B", "A", "C"), seed=3, signals=signals))
+    text = sum(len(str(c.get("payload", ""))) for c, _ in sent if isinstance(c, dict))
+    binary = sum(memoryview(b).nbytes for _, bufs in sent for b in bufs)
+    # 2 x 5000 points and 2 x 1667 signals, each some 5-7 number columns of 4-8 bytes
+    assert binary > 8 * 2 * k
+    # only the column headers and the small lookup sources as text (some 10,000 characters
+    # here): one text column of the 2 x 5000 points would add at least 4 characters a row
+    assert text < 2 * k
 
 
 # --- hover and signals ------------------------------------------------------------------
@@ -355,14 +423,41 @@ def test_hover_names_time_subgroup_stratum_n_value_and_rules():
     )
 
 
+def test_hover_looks_up_stratum_and_rules_texts_and_formats_times():
+    layout = draw.chart_figure(chart_result())
+    models = named(layout)
+    tools = models["chart"].select({"type": HoverTool})
+    marks = next(t for t in tools if t.renderers[0].data_source.name == "chart_signals")
+    assert dict(marks.tooltips)["stratum"] == "@stratum_code{custom}"
+    assert marks.formatters["@stratum_code"].args["table"] is models["chart_strata"]
+    assert marks.formatters["@rules_code"].args["table"] is models["chart_rules"]
+    assert marks.formatters["@time"] == "datetime"
+    assert list(models["chart_strata"].data["stratum"]) == ["A", "B"]
+    # a subgroup that is a time travels as milliseconds and is shown as a date
+    result = chart_result(strata=None)
+    hours = result.points["start"]
+    timed = ChartResult(
+        "xbar_r", result.points.assign(subgroup=pd.Categorical(hours, ordered=True)), result.limits
+    )
+    layout = draw.chart_figure(timed)
+    np.testing.assert_array_equal(data_of(layout, "chart_points")["subgroup"], theme.time_ms(hours))
+    dots = named(layout)["chart"].select({"type": HoverTool})[0]
+    assert dict(dots.tooltips)["subgroup"] == "@subgroup{%F %H:%M}"
+    assert dots.formatters["@subgroup"] == "datetime"
+
+
 def test_signals_source_holds_exactly_the_signalled_rows_with_rules_in_words():
     result = chart_result(k=30, signals=(0, 4, 29))
     layout = draw.chart_figure(result)
     signals = data_of(layout, "chart_signals")
     flagged = result.points.loc[result.points["signal"], "subgroup"].astype(str).tolist()
     assert [str(s) for s in signals["subgroup"]] == flagged
-    assert all(RULE_TEXT["N1"] in text and "N5" in text for text in signals["rules"])
-    assert "rules" not in data_of(layout, "chart_points")  # only signals have rules
+    # the rules travel as codes into the small chart_rules source that the hover reads
+    texts = data_of(layout, "chart_rules")["rules"]
+    words = [texts[c] for c in signals["rules_code"]]
+    assert len(words) == 3
+    assert all(RULE_TEXT["N1"] in text and "N5" in text for text in words)
+    assert "rules_code" not in data_of(layout, "chart_points")  # only signals have rules
     marks = [r for r in named(layout)["chart"].renderers if r.data_source.name == "chart_signals"]
     assert marks[0].glyph.fill_color is None and marks[0].glyph.line_color == theme.ACCENT
 
@@ -371,6 +466,7 @@ def test_limits_vary_per_point_as_step_lines():
     ucl = np.array([13.0, 13.0, 14.0])
     layout = draw.chart_figure(chart_result(k=3, strata=None, start=False, ucl=ucl))
     limits = pd.DataFrame(data_of(layout, "chart_limits"))
+    limits["role"] = np.array(charts.ROLES)[limits["role_code"]]
     upper = limits[(limits["role"] == "limit") & (limits[["y0", "y1"]].max(axis=1) > 12)]
     pieces = sorted(map(tuple, upper[["x0", "x1", "y0", "y1"]].to_numpy().tolist()))
     # 13 over subgroups 1-2, 14 over subgroup 3, riser at the boundary 2.5
@@ -542,8 +638,9 @@ def test_refresh_recolours_by_data_only():
     swapped = chart_result(strata=("B", "A"))  # same panel structure, other level order
     draw.refresh(layout, swapped)
     assert {m.id for m in layout.references()} == ids
-    colours = data_of(layout, "chart_points")["color"]
-    assert colours[0] == draw.palette_for(["B", "A"])["B"]
+    colours = point_strata(layout)
+    assert colours["s"][0] == "B"
+    assert colours["c"][0] == draw.palette_for(["B", "A"])["B"]
 
 
 def test_needs_rebuild_when_the_structure_changes():
@@ -584,10 +681,11 @@ def test_any_chart_builds_with_one_point_per_row(k, n_strata, flags, split, star
     assert len(points["x"]) == k
     assert len(data_of(layout, "chart_signals")["x"]) == int(result.points["signal"].sum())
     if strata:
-        frame = pd.DataFrame({"s": points["stratum"], "c": points["color"]})
+        frame = point_strata(layout)
         assert (frame.groupby("s")["c"].nunique() == 1).all()
+        assert set(frame["s"]) == set(result.points["stratum"].astype(str))
     else:
-        assert "color" not in points
+        assert "color_code" not in points
     assert not draw.needs_rebuild(layout, result)
 
 

@@ -87,7 +87,15 @@ def test_split_by_gives_one_colour_per_stratum(ex: Explorer, study: Study) -> No
     ex.settings.by.value = "crew"  # as a user's choice in the dropdown
     assert ex.state.by == "crew"
     assert_shows(ex, study.chart(by="crew"))
-    data = pd.DataFrame({k: source(ex).data[k] for k in ("stratum", "color")})
+    # The points carry codes: stratum text from chart_strata, colour from the mapper's
+    # palette (code i is palette[i]; see qcexplore.draw.theme.strata_color_mapper).
+    points = source(ex).data
+    layout = ex.slots["chart"].layout
+    names = np.asarray(source(ex, "chart_strata").data["stratum"], dtype=object)
+    palette = np.asarray(layout.select_one({"name": "chart_colors"}).palette, dtype=object)
+    data = pd.DataFrame(
+        {"stratum": names[points["stratum_code"]], "color": palette[points["color_code"]]}
+    )
     per_level = data.groupby("stratum")["color"].nunique()
     assert per_level.to_dict() == {"A": 1, "B": 1, "C": 1}
     assert data["color"].nunique() == 3

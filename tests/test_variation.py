@@ -16,6 +16,9 @@ from scipy import stats
 
 from qcexplore.errors import QCDataError
 from qcexplore.stats.variation import (
+    _anom_critical,
+    _studentized_range_sf,
+    _tukey_critical,
     adjusted_values,
     design_structure,
     measurement_offsets,
@@ -254,19 +257,79 @@ def test_within_factor_effects_match_blocked_ols():
         assert effects.loc[lev, "p"] == pytest.approx(fit.pvalues[name], rel=1e-6)
 
 
-def test_anom_limits_sidak():
-    # ANOM decision limits with a Sidak critical value (documented approximation):
-    # grand mean +- t(1 - (1 - (1-alpha)^(1/k))/2, N-k) * s * sqrt((k-1)/(k n)) for equal n
+def _anom_exceedance(k: int, df: float, h: float, reps: int, seed: int) -> float:
+    """Brute-force simulation of P(max |Ybar_i - Ybar| / (s sqrt((k-1)/(k n))) > h) for k
+    equal groups of normal values (n = 1 without loss: only the group means and s matter)."""
+    rng = np.random.default_rng(seed)
+    means = rng.normal(size=(reps, k))
+    dev = np.abs(means - means.mean(axis=1, keepdims=True)).max(axis=1)
+    s = np.ones(reps) if np.isinf(df) else np.sqrt(rng.chisquare(df, reps) / df)
+    return float(np.mean(dev / (s * np.sqrt((k - 1) / k)) > h))
+
+
+def test_anom_limits_exact_for_equal_sizes():
+    # PlantGrowth: 3 groups of 10, s on 27 df (residual mean square 10.49209 / 27 from the
+    # R documentation of anova/lm). The exact critical value h(0.05; 3, 27) is checked by
+    # brute-force simulation: 400,000 draws, binomial se 0.00034, tolerance 0.0015.
     f = _single_values(data("PlantGrowth"), "weight", ["group"])
     table = variation(f, value="weight", subgroup="obs", factors=["group"]).comparisons["group"]
     anom = table[table["test"] == "anom"]
-    s = np.sqrt(10.49209 / 27)  # residual mean square of the R example
-    h = stats.t.ppf(1 - (1 - 0.95 ** (1 / 3)) / 2, 27)
-    half = h * s * np.sqrt(2 / 30)
+    s = np.sqrt(10.49209 / 27)
     grand = f["weight"].mean()
-    assert anom["lower"].to_numpy() == pytest.approx(grand - half, rel=1e-6)
-    assert anom["upper"].to_numpy() == pytest.approx(grand + half, rel=1e-6)
+    h = (anom["upper"].to_numpy() - grand) / (s * np.sqrt(2 / 30))
+    assert h == pytest.approx(h[0], rel=1e-12)
+    assert anom["lower"].to_numpy() == pytest.approx(grand - h[0] * s * np.sqrt(2 / 30))
+    assert _anom_exceedance(3, 27, h[0], 400_000, 23) == pytest.approx(0.05, abs=0.0015)
+    # between the single-comparison t quantile and the conservative Sidak value (scipy)
+    assert stats.t.ppf(0.975, 27) < h[0] < stats.t.ppf(1 - (1 - 0.95 ** (1 / 3)) / 2, 27)
+    # a level is outside the limits exactly when its ANOM p-value is below alpha
+    outside = (anom["estimate"] < anom["lower"]) | (anom["estimate"] > anom["upper"])
+    assert (outside == (anom["p"] < 0.05)).all()
     assert set(anom["versus"]) == {"overall"}
+
+
+@pytest.mark.parametrize(
+    ("k", "df", "alpha"), [(3, np.inf, 0.05), (6, np.inf, 0.05), (10, 12.0, 0.05), (4, 30.0, 0.01)]
+)
+def test_anom_critical_value_by_simulation(k, df, alpha):
+    # brute-force simulation, 400,000 draws: binomial se at most 0.00034, tolerance 4.5 se
+    h = _anom_critical(alpha, k, df)
+    se = np.sqrt(alpha * (1 - alpha) / 400_000)
+    assert _anom_exceedance(k, df, h, 400_000, k) == pytest.approx(alpha, abs=4.5 * se)
+
+
+def test_anom_critical_value_references():
+    # Nelson's table of ANOM critical values (J. Quality Technology 1983), from memory:
+    # h(0.05; k=3, df=inf) = 2.34
+    assert _anom_critical(0.05, 3, np.inf) == pytest.approx(2.34, abs=0.005)
+    # two levels: the deviations are +-(Ybar_1 - Ybar_2)/2, so h is the two-sided t
+    # quantile (scipy.stats.t)
+    for df in (5.0, 27.0, np.inf):
+        assert _anom_critical(0.05, 2, df) == pytest.approx(stats.t.ppf(0.975, df), rel=1e-6)
+    # Sidak's inequality: never above the Sidak value, and close to it for many levels
+    for k in (3, 8, 40):
+        sidak = stats.t.ppf(1 - (1 - 0.95 ** (1 / k)) / 2, 20.0)
+        assert _anom_critical(0.05, k, 20.0) <= sidak
+    sidak_inf = stats.norm.ppf(1 - (1 - 0.95 ** (1 / 40)) / 2)
+    assert _anom_critical(0.05, 40, np.inf) == pytest.approx(sidak_inf, rel=2e-3)
+
+
+def test_anom_limits_sidak_for_unequal_sizes():
+    # unequal group sizes: documented Sidak approximation,
+    # grand mean +- t(1 - (1 - (1-alpha)^(1/k))/2, N-k) * s * sqrt((N - n_i) / (N n_i))
+    f = _single_values(data("PlantGrowth").iloc[1:], "weight", ["group"])
+    table = variation(f, value="weight", subgroup="obs", factors=["group"]).comparisons["group"]
+    anom = table[table["test"] == "anom"].set_index("level")
+    fit = smf.ols("weight ~ C(group)", f).fit()  # statsmodels: residual mean square
+    s = np.sqrt(fit.mse_resid)
+    n = f.groupby("group", observed=True).size()
+    total = n.sum()
+    h = stats.t.ppf(1 - (1 - 0.95 ** (1 / 3)) / 2, total - 3)
+    grand = f["weight"].mean()
+    for lev in n.index:
+        half = h * s * np.sqrt((total - n[lev]) / (total * n[lev]))
+        assert anom.loc[lev, "lower"] == pytest.approx(grand - half, rel=1e-10)
+        assert anom.loc[lev, "upper"] == pytest.approx(grand + half, rel=1e-10)
 
 
 def test_spread_matches_scipy_levene():
@@ -323,7 +386,7 @@ def test_unbalanced_nested_reml_matches_mixedlm(with_crew):
     y = 100 + rng.normal(size=sg.size) + rng.normal(size=k)[sg] + rng.normal(0, 0.5, 5)[crew]
     f = pd.DataFrame({"sg": pd.Categorical(sg, ordered=True), "crew": pd.Categorical(crew), "y": y})
     r = variation(f, value="y", subgroup="sg", factors=["crew"] if with_crew else [])
-    assert r.method.endswith("REML (nested, from sufficient statistics)")
+    assert r.method.endswith("REML (from sufficient statistics)")
     c = r.components.set_index("source")["variance"]
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -351,6 +414,118 @@ def test_single_values_unbalanced_reml_matches_mixedlm():
         fit = smf.mixedlm("count ~ 1", f, groups="spray").fit(reml=True)
     assert c["spray"] == pytest.approx(float(fit.cov_re.iloc[0, 0]), rel=1e-3)
     assert c["residual"] == pytest.approx(fit.scale, rel=1e-3)
+
+
+def _crossed_mixedlm(f: pd.DataFrame):
+    """statsmodels MixedLM (REML): crew, subgroup, nozzle and pos as crossed variance
+    components in one group."""
+    vc = {"crew": "0 + C(crew)", "subgroup": "0 + C(sg)", "nozzle": "0 + C(nozzle)"}
+    vc["pos"] = "0 + C(pos)"
+    model = smf.mixedlm("y ~ 1", f.assign(g=0), groups="g", re_formula="0", vc_formula=vc)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fit = model.fit(reml=True, method=["lbfgs"])
+    return model, fit
+
+
+def test_crossed_reml_matches_mixedlm():
+    # statsmodels MixedLM (REML) on an unbalanced layout with a between-subgroup factor,
+    # the subgroup and two crossed within-subgroup factors (every estimate positive)
+    f = _random_layout(31, k=20)
+    r = variation(f, value="y", subgroup="sg", factors=["crew", "nozzle", "pos"], compare=False)
+    assert r.method.endswith("REML (from sufficient statistics)")
+    c = r.components.set_index("source")["variance"]
+    model, fit = _crossed_mixedlm(f)
+    ref = dict(zip(model.exog_vc.names, fit.vcomp, strict=True))
+    for name in ["crew", "subgroup", "nozzle", "pos"]:
+        assert c[name] == pytest.approx(ref[name], rel=2e-3)
+    assert c["residual"] == pytest.approx(fit.scale, rel=2e-3)
+
+
+def test_crossed_reml_likelihood_at_least_mixedlm():
+    # On this layout MixedLM stops at a point inside the space while the REML maximum sets
+    # crew and pos to zero: the statsmodels REML log likelihood (profiled, its own
+    # parametrisation of variance ratios) is higher at our estimates than at its own fit.
+    from statsmodels.regression.mixed_linear_model import MixedLMParams
+
+    f = _random_layout(30, k=20)
+    r = variation(f, value="y", subgroup="sg", factors=["crew", "nozzle", "pos"], compare=False)
+    c = r.components.set_index("source")["variance"]
+    model, fit = _crossed_mixedlm(f)
+    ratios = np.array([max(c[name] / c["residual"], 1e-9) for name in model.exog_vc.names])
+    ours = model.loglike(
+        MixedLMParams.from_components(fe_params=np.zeros(1), cov_re=np.zeros((0, 0)), vcomp=ratios),
+        profile_fe=True,
+    )
+    assert ours >= fit.llf - 1e-6
+    assert c["crew"] == 0.0
+
+
+def test_demo_week_components_are_quick_reml_and_confounding_is_named():
+    # One week of the demo: every crew always works the same shift, the design is crossed
+    # (nozzle within rounds) and unbalanced (jars missed). Components come from the
+    # sufficient-statistics REML (no general mixed-model fit), crew and shift are named
+    # as confounded, and the crew offsets say that they carry the shift effect too.
+    from qcexplore.demo import filling_line
+    from qcexplore.study import Study
+
+    frame, _ = filling_line(days=7)
+    s = Study(
+        frame,
+        value="net_g",
+        subgroup="round",
+        time="taken_at",
+        factors=["crew", "shift", "nozzle"],
+        measured_by=["crew"],
+    )
+    r = s.variation()
+    assert r.method.endswith("REML (from sufficient statistics)")
+    conf = r.structure[r.structure["relation"] == "confounded"]
+    assert set(zip(conf["factor"], conf["with_"], strict=True)) == {
+        ("crew", "shift"),
+        ("shift", "crew"),
+    }
+    assert list(r.offsets["factor"].unique()) == ["crew"]
+    assert r.offsets["note"].str.contains("'shift'").all()
+    assert any("offsets of 'crew'" in n and "'shift'" in n for n in r.notes)
+    assert set(r.components["source"]) == {"crew", "subgroup", "nozzle", "residual"}
+    # the measured_by factor listed after the factor it is confounded with keeps its
+    # offsets (the other one is left out of the offsets model instead)
+    later = variation(
+        s.frame,
+        value="net_g",
+        subgroup="round",
+        factors=["shift", "crew", "nozzle"],
+        measured_by=["crew"],
+    )
+    pd.testing.assert_frame_equal(later.offsets, r.offsets)
+
+
+def test_too_many_levels_for_reml_fall_back_to_moments_with_note():
+    # 500 jar positions within subgroups: more level columns than the REML cap
+    rng = np.random.default_rng(24)
+    sg = np.repeat(np.arange(300), 5)
+    f = pd.DataFrame(
+        {
+            "sg": pd.Categorical(sg, ordered=True),
+            "jar": pd.Categorical(rng.integers(0, 500, sg.size).astype(str)),
+            "y": rng.normal(size=sg.size),
+        }
+    )
+    r = variation(f, value="y", subgroup="sg", factors=["jar"], compare=False)
+    assert r.method.endswith("moment estimates (effective n0)")
+    assert any("too many factor levels for REML" in n for n in r.notes)
+
+
+@pytest.mark.parametrize(("k", "df"), [(2, 4.0), (5, 12.0), (12, 60.0), (30, 200.0)])
+def test_studentized_range_matches_scipy(k, df):
+    # scipy.stats.studentized_range: upper tail and the 0.95 quantile
+    q = np.array([1.0, 3.0, 4.5, 6.0, 8.0])
+    ours = _studentized_range_sf(q, k, df)
+    assert ours == pytest.approx(stats.studentized_range.sf(q, k, df), rel=1e-5, abs=1e-9)
+    assert _tukey_critical(0.05, k, df) == pytest.approx(
+        stats.studentized_range.ppf(0.95, k, df), rel=1e-7
+    )
 
 
 def test_negative_component_set_to_zero_with_note():
@@ -459,7 +634,17 @@ def test_offsets_between_match_weighted_means():
         assert off.loc[lev, "offset"] == pytest.approx(fit.params[name], rel=1e-8)
         assert off.loc[lev, "se"] == pytest.approx(fit.bse[name], rel=1e-8)
     r = variation(f, value="y", subgroup="sg", factors=["crew", "nozzle"], measured_by=["crew"])
-    assert list(r.offsets.columns) == ["factor", "level", "offset", "se", "lower", "upper", "p"]
+    assert list(r.offsets.columns) == [
+        "factor",
+        "level",
+        "offset",
+        "se",
+        "lower",
+        "upper",
+        "p",
+        "note",
+    ]
+    assert (r.offsets["note"] == "").all()
 
 
 def test_adjusted_values_unknown_level():
@@ -601,8 +786,9 @@ def test_factor_that_is_the_subgroup_is_confounded_with_it():
     levels=st.integers(1, 4),
     seed=st.integers(0, 1000),
     constant=st.booleans(),
+    components=st.sampled_from(["ems", "reml"]),
 )
-def test_any_small_layout_gives_valid_tables(sizes, levels, seed, constant):
+def test_any_small_layout_gives_valid_tables(sizes, levels, seed, constant, components):
     rng = np.random.default_rng(seed)
     sg = np.repeat(np.arange(len(sizes)), sizes)
     f = pd.DataFrame(
@@ -613,10 +799,12 @@ def test_any_small_layout_gives_valid_tables(sizes, levels, seed, constant):
             "y": np.ones(sg.size) if constant else rng.normal(size=sg.size),
         }
     )
-    r = variation(f, value="y", subgroup="sg", factors=["crew", "noz"], components="ems")
-    p = r.anova["p"].dropna()
+    r = variation(f, value="y", subgroup="sg", factors=["crew", "noz"], components=components)
+    p = pd.concat([r.anova["p"], *(t["p"] for t in r.comparisons.values())]).dropna()
     assert ((p >= 0) & (p <= 1)).all()
     assert (r.components["variance"].dropna() >= 0).all()
+    if components == "reml":
+        assert np.isfinite(r.components["variance"]).all()
     share = r.components["share"]
     assert share.isna().all() or share.sum() == pytest.approx(1.0)
     assert set(r.structure["relation"]) <= {"within_subgroup", "between_subgroups", "confounded"}

@@ -466,11 +466,16 @@ class Explorer(widgets.VBox):
 
     def select(self, indices: list[int]) -> None:
         """Show the data rows of the selected chart points (as a box or tap selection does)."""
-        source = self._selection_source
-        if source is None:
+        if self._selection_source is None:
             raise QCDataError("The chart has no points to select.")
-        labels = np.asarray(source.data["subgroup"], dtype=object)[list(indices)]
-        self._select(tuple(dict.fromkeys(str(x) for x in labels)))
+        # The source's rows are the chart's points in order; its subgroup column may hold
+        # codes or times, so the labels come from the result, written as _select reads them.
+        subgroup = self.chart().points["subgroup"].iloc[list(indices)]
+        if isinstance(subgroup.dtype, pd.CategoricalDtype):
+            labels = subgroup.cat.categories.astype(str)[subgroup.cat.codes.to_numpy()]
+        else:
+            labels = subgroup.astype(str)
+        self._select(tuple(dict.fromkeys(labels)))
 
     def _select(self, labels: tuple[str, ...]) -> None:
         self._selected = labels

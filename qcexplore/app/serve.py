@@ -42,6 +42,17 @@ CONFIG_ENV = "QCEXPLORE_APP_CONFIG"
 NOTEBOOK = "app.ipynb"
 _STUDY_FILE = "study.pickle"
 _CONFIG_FILE = "app.json"
+#: The roles of the built-in demo (qcexplore.demo.filling_line).
+DEMO_ROLES: dict[str, Any] = {
+    "value": "net_g",
+    "subgroup": "round",
+    "time": "taken_at",
+    "factors": ["crew", "shift", "nozzle"],
+    "measured_by": ["crew"],
+    "spec": {"lsl": 500.0},
+    "units": "g",
+}
+DEMO_TITLE = "Demo: honey filling line (seed {seed})"
 
 
 def is_loopback(host: str) -> bool:
@@ -140,10 +151,26 @@ def write_app_folder(study: Study, folder: Path, settings: AppSettings | None = 
     return config
 
 
+def demo_study(seed: int = 0, **roles: Any) -> Study:
+    """The Study of the built-in demo (``qcexplore.demo.filling_line``) in its roles.
+
+    ``roles`` override :data:`DEMO_ROLES`.
+
+    Examples
+    --------
+    >>> demo_study().measured_by
+    ('crew',)
+    """
+    from qcexplore.demo import filling_line
+
+    return Study(filling_line(seed=seed)[0], **{**DEMO_ROLES, **roles})
+
+
 def load_app_study(config: str | os.PathLike | None = None) -> tuple[Study, AppSettings]:
     """The study and settings that :func:`serve` handed to the notebook.
 
-    ``config``: the settings file (default: the one :data:`CONFIG_ENV` names).
+    ``config``: the settings file (default: the one :data:`CONFIG_ENV` names; without
+    one, as when the notebook is opened by itself, the built-in demo).
 
     Examples
     --------
@@ -156,10 +183,7 @@ def load_app_study(config: str | os.PathLike | None = None) -> tuple[Study, AppS
     """
     path = config if config is not None else os.environ.get(CONFIG_ENV)
     if not path:
-        raise QCDataError(
-            f"The app notebook needs {CONFIG_ENV} (set by `qcexplore app`); "
-            "start it with `qcexplore app DATA ...`."
-        )
+        return demo_study(), AppSettings(title=DEMO_TITLE.format(seed=0))
     path = Path(path)
     content = json.loads(path.read_text(encoding="utf-8"))
     with (path.parent / content.pop("study")).open("rb") as handle:

@@ -18,6 +18,10 @@ CAUTION = (
 )
 
 
+def _joined(cell: Any) -> Any:
+    return ", ".join(map(str, cell)) if isinstance(cell, (tuple, list)) else cell
+
+
 def table_html(frame: pd.DataFrame, caption: str, *, rows: int | None = None) -> str:
     """A small HTML table of a result frame with a heading, every cell escaped.
 
@@ -27,6 +31,8 @@ def table_html(frame: pd.DataFrame, caption: str, *, rows: int | None = None) ->
     True
     """
     shown = frame if rows is None else frame.head(rows)
+    # Rule ids and other sequences read as "N1, N5", not as a Python tuple.
+    shown = shown.apply(lambda column: column.map(_joined) if column.dtype == object else column)
     body = shown.to_html(
         index=False, escape=True, border=0, na_rep="", float_format=lambda v: f"{v:.4g}"
     )

@@ -9,22 +9,33 @@ Layout and names (stable, for :func:`qcexplore.draw.refresh` and for browser tes
   ``Div`` ``"chart_title"`` and figures ``"chart_0"``, ``"chart_1"``, ... with
   ``"secondary_chart_0"``, ... below them, one column per stratum level;
 - data sources, shared by all panels (each panel shows its rows through a filter on
-  the ``panel`` column): ``"chart_points"``, ``"chart_signals"``, ``"chart_line"``,
-  ``"chart_limits"`` and the same four with the ``"secondary_"`` prefix, plus
-  ``"chart_legend"``.
+  the ``panel_code`` column): ``"chart_points"``, ``"chart_signals"``,
+  ``"chart_line"``, ``"chart_limits"`` and the same four with the ``"secondary_"``
+  prefix; the small lookup sources ``"chart_rules"`` and ``"secondary_rules"``, and
+  with strata ``"chart_strata"`` and (overlay only) ``"chart_legend"``;
+- the colour mapper ``"chart_colors"`` (a LinearColorMapper) of the points.
+
+The sources with one row per point or segment hold number columns only: bokeh sends
+those to the page as binary arrays but text columns element by element, which took
+most of a split-by change on a long chart. Texts live in the small lookup sources.
 
 Source columns:
 
-- ``*_points``: ``x, value, subgroup, n``, plus ``stratum`` and ``color`` when there
-  are strata, ``time`` (milliseconds since the epoch, wall clock) when the points have
-  a ``start`` and ``panel`` when split. ``subgroup`` holds numbers when the subgroups
-  are numbers, else text.
-- ``*_signals``: exactly the rows with ``signal`` true, the same columns plus
-  ``rules`` (the rule ids that fired with their plain-words description).
-- ``*_line`` (thin joining line, as segments): ``x0, y0, x1, y1`` (+ ``panel``). Empty
-  above :data:`~qcexplore.draw.theme.LINE_UP_TO` points.
-- ``*_limits`` (centre and limits as step lines): ``x0, y0, x1, y1, role`` with role
-  ``"center"`` or ``"limit"`` (+ ``panel``).
+- ``*_points``: ``x, value, subgroup, n``; with strata ``stratum_code`` (row of the
+  level in ``chart_strata``, -1 for none) and ``color_code`` (row of the colour in the
+  ``chart_colors`` palette: the colour of a point is ``palette[color_code]``, -1 is the
+  neutral colour); ``time`` (milliseconds since the epoch, wall clock) when the points
+  have a ``start``; ``panel_code`` (position of the panel, -1 for none) when split.
+  ``subgroup`` holds numbers when the subgroups are numbers, milliseconds since the
+  epoch when they are times, else text.
+- ``*_signals``: exactly the rows with ``signal`` true, the same columns without
+  ``color_code``, plus ``rules_code``: the row in ``*_rules``, whose column ``rules``
+  holds the rule ids that fired with their plain-words description.
+- ``*_line`` (thin joining line, as segments): ``x0, y0, x1, y1`` (+ ``panel_code``).
+  Empty above :data:`~qcexplore.draw.theme.LINE_UP_TO` points.
+- ``*_limits`` (centre and limits as step lines): ``x0, y0, x1, y1, role_code``, the
+  position of the role in :data:`ROLES` (0 centre, 1 limit) (+ ``panel_code``).
+- ``"chart_strata"`` (with strata): ``stratum, color``, one row per level in code order.
 - ``"chart_legend"`` (overlay with strata only): ``stratum, color, x, value``, one row
   per level shown (positions NaN: it only feeds the legend).
 
@@ -41,10 +52,14 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from bokeh.layouts import column, gridplot
-from bokeh.models import Div, HoverTool, LayoutDOM
+from bokeh.models import Div, HoverTool, LayoutDOM, LinearColorMapper
+from bokeh.transform import transform
 
 from qcexplore.draw import theme
 from qcexplore.stats.results import ChartResult
+
+#: Meaning of the ``role_code`` column of the limits sources.
+ROLES = ("center", "limit")
 
 _KIND_WORDS = {
     "xbar_r": "Subgroup means (X-bar chart, R-based)",
@@ -97,14 +112,14 @@ def chart_spec(result: ChartResult, *, split: bool = False, x: str = "auto") -> 
         "strata": strata,
         "x": theme.x_kind(x, points),
         "time": "start" in points and bool(points["start"].notna().any()),
+        "subgroup_time": theme.is_datetime(points["subgroup"]),
         "secondary": result.secondary is not None,
         "webgl": len(points) > theme.WEBGL_FROM,
     }
 
 
-def _positions(points: pd.DataFrame, spec: dict[str, Any]) -> np.ndarray:
-    if spec["x"] == "time":
-        return theme.time_ms(points["start"])
+def _positions(points: pd.DataFrame) -> np.ndarray:
+    """Position 1..k of each point's subgroup in time order."""
     sub = points["subgroup"]
     if isinstance(sub.dtype, pd.CategoricalDtype):
         return sub.cat.codes.to_numpy().astype(float) + 1.0
@@ -114,61 +129,66 @@ def _positions(points: pd.DataFrame, spec: dict[str, Any]) -> np.ndarray:
 def _chart_sources(
     result: ChartResult, spec: dict[str, Any], prefix: str, levels: list[str]
 ) -> dict[str, dict[str, np.ndarray]]:
+    # Only number columns in the per-point sources: the page receives those as binary
+    # arrays, text columns element by element (seconds for a long chart). Texts live in
+    # the small lookup sources ("chart_strata", "*_rules") that the hover reads.
     points = result.points
     size = len(points)
     stratum = points["stratum"] if "stratum" in points else pd.Series([None] * size)
-    stratum_text = theme.labels(stratum)
-    x = _positions(points, spec)
+    codes = theme.codes_for(stratum, levels) if spec["strata"] else np.full(size, -1, np.int32)
+    start = theme.time_ms(points["start"]) if spec["time"] else None
+    x = start if spec["x"] == "time" else _positions(points)
     y = points["stat"].to_numpy(dtype=float)
     panelled = spec["panels"] != ["all"]
-    panel = stratum_text if panelled else np.full(size, "all", dtype=object)
     data: dict[str, Any] = {
         "x": x,
         "value": y,
         "subgroup": theme.hover_values(points["subgroup"]),
         "n": points["n"].to_numpy(),
     }
-    # Text columns are what makes a long chart slow to send and decode in the page:
-    # stratum and colour only when there are strata.
     if spec["strata"]:
-        data["stratum"] = stratum_text
-        data["color"] = theme.colors_for(stratum_text, levels)
-    if spec["time"]:
-        data["time"] = theme.time_ms(points["start"])
+        data["stratum_code"] = codes
+        data["color_code"] = theme.color_codes(codes)
+    if start is not None:
+        data["time"] = start
+    # Panel of each row: its level's position among the panels shown (-1: none).
+    panel = None
     if panelled:
-        data["panel"] = panel
+        at = pd.Index(spec["panels"], dtype=object).get_indexer(levels)
+        panel = np.append(at, -1).astype(np.int32)[codes]
+        data["panel_code"] = panel
     signal = points["signal"].to_numpy(dtype=bool)
-    signals = {k: v[signal] for k, v in data.items()}
-    signals["rules"] = theme.rule_words(points["rules"][signal])
+    signals = {k: v[signal] for k, v in data.items() if k != "color_code"}
+    rule_codes, rule_sets = theme.code_table(points["rules"].to_numpy(dtype=object)[signal])
+    signals["rules_code"] = rule_codes
 
     # Join within a stratum when strata share positions (a factor that varies inside
     # subgroups), else join all points in time order.
-    if panelled:
-        group = panel
-    elif pd.Series(x).duplicated().any():
-        group = stratum_text
+    if panelled or pd.Series(x).duplicated().any():
+        group = codes
     else:
-        group = np.zeros(size, dtype=object)
+        group = np.zeros(size, dtype=np.int32)
     keep = theme.line_rows(size)
-    line = theme.segments(x[keep], y[keep], group[keep])
+    line = theme.segments(x[keep], y[keep], group[keep], None if panel is None else panel[keep])
+    line["panel_code"] = line.pop("panel")
 
     pad = theme.TIME_PAD if spec["x"] == "time" else theme.POSITION_PAD
     limit_cols = {k: points[k].to_numpy(dtype=float) for k in ("center", "lcl", "ucl")}
-    limit_data = theme.concat(
-        [
-            theme.steps(
-                x[panel == name], {k: v[panel == name] for k, v in limit_cols.items()}, pad, name
-            )
-            for name in spec["panels"]
-        ],
-        ("x0", "y0", "x1", "y1", "role", "panel"),
-    )
-    if not panelled:
-        line.pop("panel")
-        limit_data.pop("panel")
+    rows = [slice(None)] if panel is None else [panel == i for i in range(len(spec["panels"]))]
+    parts = []
+    for i, r in enumerate(rows):
+        part = theme.steps(x[r], {k: v[r] for k, v in limit_cols.items()}, pad)
+        part["role_code"] = (part.pop("role") == "limit").astype(np.int32)  # see ROLES
+        part["panel_code"] = np.full(part["x0"].size, i, dtype=np.int32)
+        parts.append(part)
+    limit_data = theme.concat(parts, ("x0", "y0", "x1", "y1", "role_code", "panel_code"))
+    if panel is None:
+        line.pop("panel_code")
+        limit_data.pop("panel_code")
     return {
         f"{prefix}_points": data,
         f"{prefix}_signals": signals,
+        f"{prefix}_rules": {"rules": theme.rule_texts(rule_sets)},
         f"{prefix}_line": line,
         f"{prefix}_limits": limit_data,
     }
@@ -185,14 +205,20 @@ def chart_sources(result: ChartResult, spec: dict[str, Any]) -> dict[str, dict[s
     ...     "center": 1.5, "lcl": 0.0, "ucl": 3.0, "n": 5, "signal": False, "rules": [(), ()]})
     >>> r = ChartResult("xbar_r", pts, pd.DataFrame())
     >>> sorted(chart_sources(r, chart_spec(r)))
-    ['chart_limits', 'chart_line', 'chart_points', 'chart_signals']
+    ['chart_limits', 'chart_line', 'chart_points', 'chart_rules', 'chart_signals']
     """
     # The secondary chart takes the main chart's levels so that colours match.
     stratum = result.points["stratum"] if "stratum" in result.points else pd.Series([])
     levels = [str(v) for v in theme.levels_of(stratum)]
     out = _chart_sources(result, spec, "chart", levels)
+    if spec["strata"]:
+        out["chart_strata"] = {
+            "stratum": np.array(levels, dtype=object),
+            "color": theme.colors_for(levels, levels),
+        }
     if spec["strata"] and spec["panels"] == ["all"]:
-        shown = [v for v in levels if v in set(out["chart_points"]["stratum"])]
+        codes = out["chart_points"]["stratum_code"]
+        shown = [levels[i] for i in np.unique(codes[codes >= 0])]
         out["chart_legend"] = {
             "stratum": np.array(shown, dtype=object),
             "color": theme.colors_for(shown, levels),
@@ -252,26 +278,46 @@ def chart_texts(result: ChartResult, spec: dict[str, Any]) -> dict[str, str]:
     return texts
 
 
-def _tooltips(spec: dict[str, Any], rules: bool) -> list[tuple[str, str]]:
-    tips = [("time", "@time{%F %H:%M}")] if spec["time"] else []
-    tips.append(("subgroup", "@subgroup"))
+def _hover(spec: dict[str, Any], sources: dict[str, Any], prefix: str, rules: bool) -> HoverTool:
+    """Hover of a points or signals renderer: time, subgroup, stratum, n, value (, rules).
+
+    Dates (the time, a subgroup that is a time) are sent as milliseconds and shown by
+    bokeh's datetime formatter; stratum and rules are codes looked up in small sources.
+    """
+    stamp = "{%F %H:%M}"
+    tips = [("time", f"@time{stamp}")] if spec["time"] else []
+    tips.append(("subgroup", f"@subgroup{stamp}" if spec["subgroup_time"] else "@subgroup"))
+    formatters: dict[str, Any] = {"@time": "datetime", "@subgroup": "datetime"}
     if spec["strata"]:
-        tips.append(("stratum", "@stratum"))
+        tips.append(("stratum", "@stratum_code{custom}"))
+        formatters["@stratum_code"] = theme.lookup_hover(sources["chart_strata"], "stratum")
     tips += [("n", "@n"), ("value", "@value{0,0.[0000]}")]
-    return tips + [("rules", "@rules")] if rules else tips
+    if rules:
+        tips.append(("rules", "@rules_code{custom}"))
+        formatters["@rules_code"] = theme.lookup_hover(sources[f"{prefix}_rules"], "rules")
+    if not spec["subgroup_time"]:
+        formatters.pop("@subgroup")
+    return HoverTool(tooltips=tips, formatters=formatters)
 
 
-def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec: dict) -> None:
+def _draw_panel(
+    fig: Any,
+    sources: dict[str, Any],
+    prefix: str,
+    panel: str,
+    spec: dict,
+    colors: LinearColorMapper | None,
+) -> None:
     line, limits = sources[f"{prefix}_line"], sources[f"{prefix}_limits"]
     points, signals = sources[f"{prefix}_points"], sources[f"{prefix}_signals"]
-    flt = None if panel == "all" else panel
+    flt = None if panel == "all" else spec["panels"].index(panel)
     fig.segment(
         "x0",
         "y0",
         "x1",
         "y1",
         source=line,
-        view=theme.view(flt),
+        view=theme.coded_view(panel_code=flt),
         line_color=theme.LINE,
         line_width=theme.LINE_WIDTH,
     )
@@ -279,9 +325,9 @@ def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec
         "x",
         "value",
         source=points,
-        view=theme.view(flt),
+        view=theme.coded_view(panel_code=flt),
         size=theme.POINT_SIZE,
-        color="color" if spec["strata"] else theme.POINT,
+        color=transform("color_code", colors) if colors is not None else theme.POINT,
     )
     # Centre and limits above the points: on a dense chart they would vanish below them.
     fig.segment(
@@ -290,7 +336,7 @@ def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec
         "x1",
         "y1",
         source=limits,
-        view=theme.view(flt, "center"),
+        view=theme.coded_view(panel_code=flt, role_code=ROLES.index("center")),
         line_color=theme.CENTER,
         line_width=1.5,
     )
@@ -300,7 +346,7 @@ def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec
         "x1",
         "y1",
         source=limits,
-        view=theme.view(flt, "limit"),
+        view=theme.coded_view(panel_code=flt, role_code=ROLES.index("limit")),
         line_color=theme.LIMIT,
         line_width=1.5,
         line_dash="dashed",
@@ -309,21 +355,17 @@ def _draw_panel(fig: Any, sources: dict[str, Any], prefix: str, panel: str, spec
         "x",
         "value",
         source=signals,
-        view=theme.view(flt),
+        view=theme.coded_view(panel_code=flt),
         size=theme.SIGNAL_SIZE,
         fill_color=None,
         line_color=theme.ACCENT,
         line_width=2,
     )
     # The rules that fired are in the signals' hover text (a signal shows both tips).
-    for renderers, rules in (([dots], False), ([marks], True)):
-        fig.add_tools(
-            HoverTool(
-                renderers=renderers,
-                tooltips=_tooltips(spec, rules),
-                formatters={"@time": "datetime"},
-            )
-        )
+    for renderer, rules in ((dots, False), (marks, True)):
+        hover = _hover(spec, sources, prefix, rules)
+        hover.renderers = [renderer]
+        fig.add_tools(hover)
     if spec["strata"] and panel == "all" and prefix == "chart":
         # One legend row per level from the small "chart_legend" source (nothing drawn:
         # its positions are NaN); grouping 250,000 points in the page would be slow. It
@@ -377,6 +419,7 @@ def chart_figure(result: ChartResult, *, split: bool = False, x: str = "auto") -
     spec = chart_spec(result, split=split, x=x)
     data = chart_sources(result, spec)
     sources = {name: theme.source(name, cols) for name, cols in data.items()}
+    colors = theme.strata_color_mapper("chart_colors") if spec["strata"] else None
     texts = chart_texts(result, spec)
     panels = spec["panels"]
     names = theme.panel_names("chart", len(panels))
@@ -390,7 +433,7 @@ def chart_figure(result: ChartResult, *, split: bool = False, x: str = "auto") -
             names[i], texts[names[i]], width=width, webgl=spec["webgl"], **axis, **shared
         )
         fig.yaxis.axis_label = result.statistic if i == 0 else ""
-        _draw_panel(fig, sources, "chart", panel, spec)
+        _draw_panel(fig, sources, "chart", panel, spec, colors)
         mains.append(fig)
         if result.secondary is not None:
             shared = {"y_range": seconds[0].y_range} if seconds else {}
@@ -405,7 +448,7 @@ def chart_figure(result: ChartResult, *, split: bool = False, x: str = "auto") -
                 **shared,
             )
             sec.yaxis.axis_label = result.secondary.statistic if i == 0 else ""
-            _draw_panel(sec, sources, "secondary", panel, spec)
+            _draw_panel(sec, sources, "secondary", panel, spec, colors)
             seconds.append(sec)
     if len(panels) == 1:
         return column(*mains, *seconds, name="chart_layout", tags=[spec])

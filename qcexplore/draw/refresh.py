@@ -18,11 +18,13 @@ BokehModel. A different description needs a new figure (:func:`needs_rebuild`):
 - a result of another type than the one the layout was built from.
 
 Re-colouring (another split factor with the same panel structure) is data only: the
-colours travel in the ``color`` column of the sources.
+colours travel as codes in the ``color_code`` column of the sources (see
+:mod:`qcexplore.draw.charts`).
 """
 
 from __future__ import annotations
 
+import weakref
 from collections.abc import Callable
 from typing import Any, NamedTuple
 
@@ -84,6 +86,17 @@ def _new_spec(layout: LayoutDOM, result: Any) -> tuple[_Figure, dict[str, Any]] 
     return (fig, new) if new == old else None
 
 
+#: Named models of each layout seen by :func:`refresh`. Walking a layout's references
+#: takes a long time for a big chart, and refresh never adds or removes models.
+_NAMED: weakref.WeakKeyDictionary[LayoutDOM, dict[str, Any]] = weakref.WeakKeyDictionary()
+
+
+def _named(layout: LayoutDOM) -> dict[str, Any]:
+    if layout not in _NAMED:
+        _NAMED[layout] = {m.name: m for m in layout.references() if m.name}
+    return _NAMED[layout]
+
+
 def needs_rebuild(layout: LayoutDOM, result: Any) -> bool:
     """Whether showing ``result`` needs a new figure rather than :func:`refresh`.
 
@@ -136,7 +149,7 @@ def refresh(layout: LayoutDOM, result: Any) -> None:
             "(check with needs_rebuild first)."
         )
     fig, spec = found
-    named = {m.name: m for m in layout.references() if m.name}
+    named = _named(layout)
     for name, data in fig.sources(result, spec).items():
         named[name].data = data
     for name, text in fig.texts(result, spec).items():

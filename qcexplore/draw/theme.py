@@ -18,7 +18,16 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from bokeh.models import AdaptiveTicker, CDSView, ColumnDataSource, GroupFilter, LayoutDOM
+from bokeh.models import (
+    AdaptiveTicker,
+    CDSView,
+    ColumnDataSource,
+    CustomJSFilter,
+    CustomJSHover,
+    GroupFilter,
+    LayoutDOM,
+    LinearColorMapper,
+)
 from bokeh.plotting import figure
 
 from qcexplore.errors import QCDataError
@@ -140,17 +149,40 @@ def labels(column: pd.Series) -> np.ndarray:
     return texts[codes]  # code -1 (missing) picks the trailing empty text
 
 
+def is_datetime(column: pd.Series) -> bool:
+    """Whether a column (or a Categorical's categories) holds dates and times.
+
+    Examples
+    --------
+    >>> is_datetime(pd.Series(pd.to_datetime(["2026-01-05"]))), is_datetime(pd.Series([1]))
+    (True, False)
+    """
+    dtype = column.dtype
+    if isinstance(dtype, pd.CategoricalDtype):
+        dtype = dtype.categories.dtype
+    return pd.api.types.is_datetime64_any_dtype(dtype)
+
+
 def hover_values(column: pd.Series) -> np.ndarray:
-    """Values for hover text only: numbers stay numbers (sent to the page as compact
-    binary arrays), anything else becomes :func:`labels`.
+    """Values for hover text only: numbers stay numbers and dates become milliseconds
+    (:func:`time_ms`; both are sent to the page as compact binary arrays), anything else
+    becomes :func:`labels`.
 
     Examples
     --------
     >>> hover_values(pd.Series(pd.Categorical([3, 1]))).tolist()
     [3, 1]
+    >>> hover_values(pd.Series(pd.to_datetime(["1970-01-01 00:00:01"]))).tolist()
+    [1000.0]
     >>> hover_values(pd.Series(["a", None])).tolist()
     ['a', '']
     """
+    if is_datetime(column):
+        if isinstance(column.dtype, pd.CategoricalDtype):
+            # Convert each category once, then pick by code (missing -> NaN).
+            ms = np.append(time_ms(pd.Series(column.cat.categories)), np.nan)
+            return ms[column.cat.codes.to_numpy()]
+        return time_ms(column)
     values = column.cat.categories if isinstance(column.dtype, pd.CategoricalDtype) else column
     if pd.api.types.is_numeric_dtype(values.dtype) and not pd.api.types.is_bool_dtype(values.dtype):
         if isinstance(column.dtype, pd.CategoricalDtype):
@@ -160,6 +192,88 @@ def hover_values(column: pd.Series) -> np.ndarray:
         elif column.notna().all():
             return column.to_numpy()
     return labels(column)
+
+
+def codes_for(column: pd.Series, levels: Sequence[str]) -> np.ndarray:
+    """Each row's position in ``levels`` (the texts of :func:`levels_of`), -1 where none.
+
+    Sent to the page instead of the level texts: a number column travels as one binary
+    array, a text column element by element.
+
+    Examples
+    --------
+    >>> codes_for(pd.Series(["b", None, "a"]), ["a", "b"]).tolist()
+    [1, -1, 0]
+    """
+    if isinstance(column.dtype, pd.CategoricalDtype) and [
+        str(c) for c in column.cat.categories
+    ] == list(levels):
+        return column.cat.codes.to_numpy().astype(np.int32)
+    found = pd.Index(list(levels), dtype=object).get_indexer(labels(column))
+    return found.astype(np.int32)
+
+
+def color_codes(codes: np.ndarray) -> np.ndarray:
+    """Index into :data:`STRATA_COLORS` of each level code (the colours repeat as in
+    :func:`palette_for`); -1 (no level) stays -1 and is drawn in :data:`POINT` by
+    :func:`strata_color_mapper`.
+
+    Examples
+    --------
+    >>> color_codes(np.array([0, 8, -1])).tolist()
+    [0, 1, -1]
+    """
+    return np.where(codes >= 0, codes % len(STRATA_COLORS), -1).astype(np.int32)
+
+
+def strata_color_mapper(name: str) -> LinearColorMapper:
+    """Colour of a ``color_code`` column: code i is ``STRATA_COLORS[i]``, -1 is :data:`POINT`.
+
+    The palette is fixed, so re-colouring for another split factor changes only the
+    codes in the data.
+
+    Examples
+    --------
+    >>> m = strata_color_mapper("demo_colors"); m.palette[0] == STRATA_COLORS[0]
+    True
+    """
+    # Edges half a code beyond each end: every whole code falls in the middle of its bin.
+    return LinearColorMapper(
+        name=name,
+        palette=list(STRATA_COLORS),
+        low=-0.5,
+        high=len(STRATA_COLORS) - 0.5,
+        low_color=POINT,
+        high_color=POINT,
+        nan_color=POINT,
+    )
+
+
+def lookup_hover(table: ColumnDataSource, column: str) -> CustomJSHover:
+    """Hover text of a code column: the text at that row of ``table[column]`` (-1: none).
+
+    Examples
+    --------
+    >>> lookup_hover(source("demo_strata", {"stratum": ["A"]}), "stratum").args["column"]
+    'stratum'
+    """
+    return CustomJSHover(
+        args={"table": table, "column": column},
+        code="const text = value >= 0 ? table.data[column][value] : null;\n"
+        "return text == null ? '' : String(text);",
+    )
+
+
+def code_table(values: Sequence[Any]) -> tuple[np.ndarray, list[Any]]:
+    """Integer codes of hashable values (e.g. tuples of rule ids) and the distinct values.
+
+    Examples
+    --------
+    >>> code_table([("N1",), (), ("N1",)])
+    (array([0, 1, 0], dtype=int32), [('N1',), ()])
+    """
+    codes, uniques = pd.factorize(pd.Series(list(values), dtype=object))
+    return codes.astype(np.int32), list(uniques)
 
 
 def rule_words(rules: pd.Series) -> np.ndarray:
@@ -172,14 +286,24 @@ def rule_words(rules: pd.Series) -> np.ndarray:
     >>> rule_words(pd.Series([("N1",), ()])).tolist()
     ['N1: one point beyond the control limits', '']
     """
-    values = rules.to_numpy(dtype=object)
-    out = np.full(values.size, "", dtype=object)
-    fired = np.fromiter(
-        (isinstance(r, (tuple, list)) and len(r) > 0 for r in values), bool, count=values.size
-    )
-    for i in np.flatnonzero(fired):
-        out[i] = "; ".join(f"{r}: {RULE_TEXT.get(r, r)}" for r in values[i])
-    return out
+    codes, uniques = code_table(rules.to_numpy(dtype=object))
+    return rule_texts(uniques)[codes]
+
+
+def rule_texts(uniques: Sequence[Any]) -> np.ndarray:
+    """Text of each distinct set of rules (see :func:`rule_words`), plus a trailing empty
+    text that code -1 (missing) picks.
+
+    Examples
+    --------
+    >>> rule_texts([("N1",), ()]).tolist()
+    ['N1: one point beyond the control limits', '', '']
+    """
+    texts = [
+        "; ".join(f"{r}: {RULE_TEXT.get(r, r)}" for r in u) if isinstance(u, (tuple, list)) else ""
+        for u in uniques
+    ]
+    return np.array([*texts, ""], dtype=object)
 
 
 def time_ms(column: pd.Series) -> np.ndarray:
@@ -444,3 +568,36 @@ def view(panel: str | None = None, role: str | None = None) -> CDSView:
     for extra in filters[1:]:
         combined = combined & extra
     return CDSView(filter=combined)
+
+
+def coded_view(**codes: int | None) -> CDSView:
+    """The rows of a shared source whose number columns hold the given codes.
+
+    The number twin of :func:`view` (bokeh's GroupFilter compares texts only), for
+    sources that carry codes instead of texts (see :mod:`qcexplore.draw.charts`).
+    ``None`` means no condition on that column.
+
+    Examples
+    --------
+    >>> coded_view(panel_code=1, role_code=None).filter.args["columns"]
+    ['panel_code']
+    >>> coded_view().filter.__class__.__name__
+    'AllIndices'
+    """
+    wanted = {c: v for c, v in codes.items() if v is not None}
+    if not wanted:
+        return CDSView()
+    return CDSView(
+        filter=CustomJSFilter(
+            args={"columns": list(wanted), "codes": list(wanted.values())},
+            code="""
+const n = source.get_length() ?? 0;
+const keep = new Array(n).fill(true);
+columns.forEach((name, j) => {
+  const column = source.data[name];
+  for (let i = 0; i < n; i++) if (column[i] != codes[j]) keep[i] = false;
+});
+return keep;
+""",
+        )
+    )

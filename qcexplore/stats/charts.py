@@ -44,7 +44,6 @@ from typing import NoReturn
 
 import numpy as np
 import pandas as pd
-from scipy import signal as sps
 from scipy.stats import norm
 
 from qcexplore.errors import QCDataError
@@ -372,6 +371,9 @@ def _by_segment(seg: np.ndarray, n_seg: int, func: Callable[..., tuple], *arrays
 
 def _ewma(dev: np.ndarray, se: np.ndarray, lam: float) -> tuple[np.ndarray, np.ndarray]:
     """EWMA of deviations from the centre (starting at 0) and its exact standard deviation."""
+    # Imported here: scipy.signal takes about a second to import, and only EWMA needs it.
+    from scipy import signal as sps
+
     z = sps.lfilter([lam], [1.0, lam - 1.0], dev)
     var = sps.lfilter([lam * lam], [1.0, -((1.0 - lam) ** 2)], se * se)
     return z, np.sqrt(var)

@@ -17,19 +17,21 @@ within-group sums of squares) so that 200,000 rows take a fraction of a second:
 * between-subgroup factors: weighted least squares on the subgroup means with the
   subgroup sizes as weights, which gives exactly the sums of squares of the nested
   model on single values;
-* sums of squares of Type II (each factor adjusted for all other main effects).
+* sums of squares of Type II (each factor adjusted for all other main effects);
+* REML variance components: Henderson's mixed-model equations with the subgroup block
+  absorbed and the subgroups pooled by size, so each likelihood evaluation is a small
+  dense Cholesky factorisation whatever the number of rows.
 """
 
 from __future__ import annotations
 
-import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, sparse, stats
+from scipy import integrate, interpolate, optimize, sparse, special, stats
 
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import VariationResult
@@ -45,13 +47,10 @@ __all__ = [
 
 #: Goodman-Kruskal lambda at or above which one factor is taken to fix another.
 CONFOUNDING_THRESHOLD = 0.95
-#: Unbalanced data get REML up to this much work (see ``_reml_cost``: under about a second
-#: here), moment estimates beyond it.
-_REML_MAX_COST = 3e6
 
 _ANOVA_COLUMNS = ["source", "df", "ss", "ms", "f", "p", "error_term"]
 _COMPARISON_COLUMNS = ["test", "level", "versus", "estimate", "statistic", "p", "lower", "upper"]
-_OFFSET_COLUMNS = ["factor", "level", "offset", "se", "lower", "upper", "p"]
+_OFFSET_COLUMNS = ["factor", "level", "offset", "se", "lower", "upper", "p", "note"]
 
 
 # --------------------------------------------------------------------------- input
@@ -345,10 +344,13 @@ def _solve(g: _Gram, t: np.ndarray) -> tuple[np.ndarray, float, int, np.ndarray]
     if a.size == 0:
         return np.zeros(0), g.yy, 0, np.zeros((0, 0))
     scale = np.sqrt(np.maximum(np.diag(a), 1e-300))
-    inv = np.linalg.pinv(a / np.outer(scale, scale), rcond=1e-10, hermitian=True)
-    inv = inv / np.outer(scale, scale)
+    # one eigendecomposition gives both the pseudo-inverse and the rank
+    w, v = np.linalg.eigh(a / np.outer(scale, scale))
+    size = np.abs(w)
+    keep = size > 1e-10 * size.max()
+    inv = (v[:, keep] / w[keep]) @ v[:, keep].T / np.outer(scale, scale)
     coef = inv @ b
-    rank = int(np.linalg.matrix_rank(a / np.outer(scale, scale), tol=1e-9))
+    rank = int(np.sum(size > 1e-9))
     return coef, max(g.yy - float(coef @ b), 0.0), rank, inv
 
 
@@ -571,92 +573,125 @@ def _moment_components(d: _Design, anova: pd.DataFrame, level: float) -> tuple[l
     return out, method
 
 
-def _reml_nested(d: _Design) -> list[dict]:
-    """REML for value = mean + level of one between factor + subgroup + residual, from
-    sufficient statistics (subgroup sizes and means, the within-subgroup sum of squares).
-    With single values the subgroup term is the residual.
+@dataclass(frozen=True)
+class _RemlStats:
+    """Sufficient statistics of the additive random model with the subgroup block absorbed.
 
-    The likelihood splits into the within-subgroup part (chi-square, residual variance
-    only) and the subgroup means, whose covariance within a level of the factor is
-    diag(s2_sub + s2_e / n_i) + s2_factor (Sherman-Morrison gives its inverse and
-    determinant in closed form). Checked against statsmodels MixedLM
-    (tests/test_variation.py).
+    The columns ``W`` are the intercept, then the levels of each random factor; ``K`` is
+    the subgroup x column count matrix. The subgroups are pooled by size, since the
+    absorbed subgroup block depends on a subgroup only through its size.
     """
-    top = d.between[0].codes if d.between else np.arange(d.k)
-    n_top = int(top.max()) + 1
-    ybar = d.means - np.average(d.means, weights=d.sizes)
-    within_df = d.n - d.k
-    scale = float(np.var(d.y)) or 1.0
 
-    def objective(theta: np.ndarray) -> float:
-        e2, s2, b2 = np.exp(theta) * scale
-        w = 1.0 / (s2 + e2 / d.sizes)
-        big_w = np.bincount(top, weights=w, minlength=n_top)
-        t = np.bincount(top, weights=w * ybar, minlength=n_top)
-        shrink = 1.0 + b2 * big_w
-        info = float(np.sum(big_w / shrink))
-        mu = float(np.sum(t / shrink)) / info
-        r = ybar - mu
-        q = float(np.sum(w * r * r)) - float(
-            np.sum(b2 * np.bincount(top, weights=w * r, minlength=n_top) ** 2 / shrink)
-        )
-        logdet = float(np.sum(np.log(1.0 / w)) + np.sum(np.log(shrink)))
-        within = within_df * np.log(e2) + d.within_ss / e2 if within_df > 0 else 0.0
-        return 0.5 * (within + logdet + q + np.log(info))
-
-    floor, free = np.log(1e-10), (np.log(1e-10), np.log(1e3))
-    # single values: subgroup and residual variation are one thing, kept as the residual
-    start = np.log([0.5, 1e-10 if d.single else 0.3, 0.2 if d.between else 1e-10])
-    bounds = [free, (floor, floor) if d.single else free, free if d.between else (floor, floor)]
-    best = optimize.minimize(objective, start, method="L-BFGS-B", bounds=bounds)
-    e2, s2, b2 = np.exp(best.x) * scale
-    # a component sitting on the lower bound is zero
-    e2, s2, b2 = (v if v > 1e-8 * scale else 0.0 for v in (e2, s2, b2))
-    rows = [{"source": d.between[0].name, "variance": b2}] if d.between else []
-    rows += [] if d.single else [{"source": "subgroup", "variance": s2}]
-    rows += [{"source": "residual", "variance": e2}]
-    return [{**r, "lower": np.nan, "upper": np.nan} for r in rows]
+    n: int
+    yy: float  # sum of squares of the centred values
+    wtw: np.ndarray  # W'W
+    wty: np.ndarray  # W'y
+    term: np.ndarray  # the factor of each column (-1: the intercept)
+    sizes: np.ndarray  # distinct subgroup sizes (empty for single values)
+    count: np.ndarray  # subgroups of each size
+    kk: np.ndarray  # per size: K'K
+    ks: np.ndarray  # per size: K' (subgroup sums)
+    ss: np.ndarray  # per size: sum of squared subgroup sums
 
 
-def _reml_cost(d: _Design) -> float:
-    """Rough work of one MixedLM iteration: rows x (random levels)^2 in one dense group."""
-    levels = sum(f.n_levels for f in [*d.between, *d.within]) + (0 if d.single else d.k)
-    return float(d.n) * levels**2
-
-
-def _reml_components(d: _Design) -> tuple[list[dict], list[str]]:
-    """REML with statsmodels MixedLM: every term a variance component in one group."""
-    import statsmodels.formula.api as smf
-
-    terms: dict[str, np.ndarray] = {}
-    for f in d.between:
-        terms[f.name] = f.codes[d.subgroup.codes]
-    if not d.single:
-        terms["subgroup"] = d.subgroup.codes
-    for f in d.within:
-        terms[f.name] = f.codes
-    names = {f"t{i}": name for i, name in enumerate(terms)}
-    data = pd.DataFrame({key: terms[name] for key, name in names.items()})
-    scale = float(np.std(d.y)) or 1.0  # the optimiser works best on unit-scale data
-    data["y"] = (d.y - d.y.mean()) / scale
-    data["g"] = 0
-    model = smf.mixedlm(
-        "y ~ 1",
-        data,
-        groups="g",
-        re_formula="0",
-        vc_formula={key: f"0 + C({key})" for key in names},
+def _reml_stats(d: _Design, terms: list[_Factor]) -> _RemlStats:
+    y = d.y - d.y.mean()
+    first = np.cumsum([1] + [f.n_levels for f in terms])
+    m = int(first[-1])
+    cols = np.column_stack(
+        [np.zeros(d.n, np.intp)] + [f.codes + o for f, o in zip(terms, first, strict=False)]
     )
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        fit = model.fit(reml=True, method=["lbfgs", "powell"])
-    notes = sorted({f"REML: {w.message}" for w in caught})
-    variance = {names[key]: float(v) for key, v in zip(model.exog_vc.names, fit.vcomp, strict=True)}
-    variance["residual"] = float(fit.scale)
+    rows = np.repeat(np.arange(d.n), cols.shape[1])
+    w = sparse.csr_matrix((np.ones(rows.size), (rows, cols.ravel())), shape=(d.n, m))
+    term = np.repeat(np.arange(-1, len(terms)), [1] + [f.n_levels for f in terms])
+    sizes, which = np.unique(d.sizes, return_inverse=True)
+    count = np.bincount(which, minlength=sizes.size)
+    if d.single:
+        sizes, count = sizes[:0], count[:0]
+    k = sparse.csr_matrix((np.ones(d.n), (d.subgroup.codes, np.arange(d.n))), shape=(d.k, d.n)) @ w
+    sums = np.bincount(d.subgroup.codes, weights=y, minlength=d.k)
+    kk = np.zeros((sizes.size, m, m))
+    ks = np.zeros((sizes.size, m))
+    ss = np.zeros(sizes.size)
+    for j in range(sizes.size):
+        rows_j = np.flatnonzero(which == j)
+        part = k[rows_j]
+        kk[j] = (part.T @ part).toarray()
+        ks[j] = part.T @ sums[rows_j]
+        ss[j] = float(sums[rows_j] @ sums[rows_j])
+    return _RemlStats(
+        d.n, float(y @ y), (w.T @ w).toarray(), w.T @ y, term, sizes.astype(float), count,
+        kk, ks, ss,
+    )  # fmt: skip
+
+
+def _reml_profile(s: _RemlStats, ratios: np.ndarray) -> tuple[float, float]:
+    """Minus twice the REML log likelihood, the residual variance profiled out, and that
+    variance; ``ratios`` are the variance ratios of the factors, then of the subgroup.
+
+    Henderson's mixed-model equations with each random column scaled by the square root
+    of its ratio (a ratio of zero is then a regular point); the diagonal subgroup block is
+    absorbed in closed form, which leaves a dense system of one column per level.
+    """
+    g = ratios[-1] if s.sizes.size else 0.0
+    scale = np.sqrt(np.concatenate([[1.0], ratios[s.term[1:]]]))
+    shrink = 1.0 / (1.0 + g * s.sizes)
+    q = (s.wtw - g * np.tensordot(shrink, s.kk, axes=1)) * np.outer(scale, scale)
+    q[np.diag_indices_from(q)] += s.term >= 0
+    r = scale * (s.wty - g * (shrink @ s.ks))
+    try:
+        chol = np.linalg.cholesky(q)
+    except np.linalg.LinAlgError:
+        return float("inf"), float("nan")
+    z = np.linalg.solve(chol, r)
+    sigma2 = max(s.yy - g * float(shrink @ s.ss) - float(z @ z), 0.0) / (s.n - 1)
+    logdet = 2.0 * float(np.sum(np.log(np.diag(chol)))) + float(s.count @ np.log1p(g * s.sizes))
+    return (s.n - 1) * np.log(max(sigma2, 1e-300)) + logdet, sigma2
+
+
+def _reml_components(d: _Design, start: dict[str, float]) -> list[dict]:
+    """REML estimates of the additive random model (every factor and the subgroup random,
+    the mean fixed) from sufficient statistics: the work per likelihood evaluation does
+    not grow with the number of rows. ``start``: moment estimates to start from.
+
+    Checked against statsmodels MixedLM (REML) on nested, crossed and single-value
+    layouts and against Bates' lme4 book values for Pastes (tests/test_variation.py).
+    """
+    terms = [_Factor(f.name, f.codes[d.subgroup.codes], f.levels) for f in d.between]
+    terms += d.within
+    order = [f.name for f in terms] + ([] if d.single else ["subgroup"])
+    s = _reml_stats(d, terms)
+    ratios = np.zeros(len(order))
+    if s.yy > 0 and order:
+        e0 = max(start.get("residual", 0.0), 1e-6 * s.yy / s.n)
+        x0 = np.log([max(start.get(name, 0.0) / e0, 0.05) for name in order])
+        floor = np.log(1e-9)
+        best = optimize.minimize(
+            lambda t: _reml_profile(s, np.exp(t))[0],
+            x0,
+            method="L-BFGS-B",
+            bounds=[(floor, np.log(1e6))] * len(order),
+        )
+        ratios = np.where(best.x > floor + np.log(1e3), np.exp(best.x), 0.0)
+    sigma2 = _reml_profile(s, ratios)[1] if s.yy > 0 else 0.0
+    variance = dict(zip(order, ratios * sigma2, strict=True))
+    shown = [f.name for f in d.between] + ([] if d.single else ["subgroup"])
+    shown += [f.name for f in d.within]
     return [
-        {"source": name, "variance": variance[name] * scale**2, "lower": np.nan, "upper": np.nan}
-        for name in [*terms, "residual"]
-    ], notes
+        {"source": name, "variance": float(value), "lower": np.nan, "upper": np.nan}
+        for name, value in [*((n, variance[n]) for n in shown), ("residual", sigma2)]
+    ]
+
+
+#: REML is used up to this many level columns (dense Cholesky per evaluation) and
+#: columns^2 x distinct subgroup sizes (the pooled products); moment estimates beyond.
+_REML_MAX_COLUMNS = 150
+_REML_MAX_POOLED = 1e6
+
+
+def _reml_feasible(d: _Design) -> bool:
+    columns = 1 + sum(f.n_levels for f in [*d.between, *d.within])
+    return columns <= _REML_MAX_COLUMNS and columns**2 * np.unique(d.sizes).size <= _REML_MAX_POOLED
 
 
 def _components(
@@ -664,21 +699,16 @@ def _components(
 ) -> tuple[pd.DataFrame, str, list[str]]:
     notes: list[str] = []
     balanced = _balanced(d)
-    nested = not d.within and len(d.between) <= 1
-    small = _reml_cost(d) <= _REML_MAX_COST
-    use_reml = method == "reml" or (method == "auto" and not balanced and (nested or small))
-    if use_reml and nested:
-        rows, used = _reml_nested(d), "REML (nested, from sufficient statistics)"
-    elif use_reml:
-        rows, notes = _reml_components(d)
-        used = "REML (statsmodels MixedLM)"
-    else:
-        rows, used = _moment_components(d, anova, level)
-        if not balanced and method == "auto":
-            notes.append(
-                "unbalanced data too large for REML here: components are moment estimates "
-                "with effective group sizes (n0), approximate."
-            )
+    rows, used = _moment_components(d, anova, level)
+    wanted = method == "reml" or (method == "auto" and not balanced)
+    if wanted and _reml_feasible(d):
+        start = {r["source"]: r["variance"] for r in rows}
+        rows, used = _reml_components(d, start), "REML (from sufficient statistics)"
+    elif wanted:
+        notes.append(
+            "too many factor levels for REML here: components are moment estimates with "
+            "effective group sizes (n0), approximate."
+        )
     table = pd.DataFrame(rows)
     negative = table["variance"] < 0
     for name in table.loc[negative, "source"]:
@@ -704,9 +734,104 @@ def _level_data(d: _Design, f: _Factor) -> tuple[np.ndarray, np.ndarray, int]:
     return d.y - d.means[d.subgroup.codes] + d.y.mean(), f.codes, d.k - 1
 
 
+#: Exact ANOM critical values up to this many levels (Sidak beyond).
+_ANOM_MAX_LEVELS = 100
+
+
+@lru_cache(maxsize=64)
+def _anom_max_cdf(k: int) -> interpolate.CubicSpline:
+    """G(c) = P(max_i |Z_i - Zbar| <= c) for k independent standard normals, as a spline.
+
+    Given sum(Z) = 0 the Z_i are the deviations, so with the Fourier form of the delta
+    function G(c) = sqrt(2k / pi) * int_0^inf g(t)^k dt, where
+    g(t) = int_{-c}^{c} phi(x) cos(t x) dx
+         = -Re(exp(-c^2/2) (exp(ict) w((t + ic)/sqrt 2) - exp(-ict) w((t - ic)/sqrt 2))) / 2
+    with w the Faddeeva function (no overflow). Simpson's rule in t; the oscillating tail
+    of g decays as 1/t, so three and four levels integrate further. Two levels: exact.
+    """
+    c = np.linspace(0.0, 7.0, 141)
+    if k == 2:
+        return interpolate.CubicSpline(c, 2.0 * stats.norm.cdf(np.sqrt(2.0) * c) - 1.0)
+    t = np.linspace(0.0, 40.0 if k <= 4 else 20.0, 1601 if k <= 4 else 801)
+    cc, tt = c[:, None], t[None, :]
+    ict = 1j * cc * tt
+    faddeeva = np.exp(ict) * special.wofz((tt + 1j * cc) / np.sqrt(2.0)) - np.exp(
+        -ict
+    ) * special.wofz((tt - 1j * cc) / np.sqrt(2.0))
+    g = -0.5 * np.exp(-0.5 * cc**2) * faddeeva.real
+    values = np.sqrt(2.0 * k / np.pi) * integrate.simpson(g**k, x=t, axis=-1)
+    return interpolate.CubicSpline(c, np.clip(values, 0.0, 1.0))
+
+
+@lru_cache(maxsize=64)
+def _chi_nodes(df: float) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Legendre nodes and weights for the distribution of s / sigma on ``df``."""
+    low, high = np.sqrt(stats.chi2.ppf([1e-12, 1.0 - 1e-12], df) / df)
+    x, w = np.polynomial.legendre.leggauss(96)
+    u = low + (high - low) * (x + 1.0) / 2.0
+    return u, w * (high - low) / 2.0 * stats.chi2.pdf(df * u * u, df) * 2.0 * df * u
+
+
+def _studentized(spline: interpolate.CubicSpline, c: np.ndarray, df: float) -> np.ndarray:
+    """E[G(c * s / sigma)] with s on ``df`` degrees of freedom, for a distribution function
+    G of a normal-theory statistic held as a spline on [0, x_max] (1 beyond)."""
+    top = float(spline.x[-1])
+    if np.isinf(df):
+        return np.clip(spline(np.minimum(c, top)), 0.0, 1.0)
+    u, w = _chi_nodes(df)
+    return np.clip(spline(np.minimum(np.multiply.outer(c, u), top)), 0.0, 1.0) @ w
+
+
+def _anom_cdf(h: np.ndarray, k: int, df: float) -> np.ndarray:
+    """P(max_i |Ybar_i - Ybar| / (s sqrt((k - 1) / (k n))) <= h) for k equal groups of
+    normal values, s on ``df`` degrees of freedom."""
+    c = np.asarray(h, dtype=float) * np.sqrt((k - 1) / k)
+    return _studentized(_anom_max_cdf(k), c, df)
+
+
+@lru_cache(maxsize=64)
+def _range_cdf(k: int) -> interpolate.CubicSpline:
+    """P(range of k standard normals <= w) = k int phi(z) (Phi(z) - Phi(z - w))^(k-1) dz,
+    by Gauss-Legendre quadrature on [-9, 9], as a spline in w on [0, 20]."""
+    z, weight = np.polynomial.legendre.leggauss(200)
+    z, weight = 9.0 * z, 9.0 * weight * stats.norm.pdf(9.0 * z)
+    w = np.linspace(0.0, 20.0, 801)
+    inside = stats.norm.cdf(z)[None, :] - stats.norm.cdf(z[None, :] - w[:, None])
+    return interpolate.CubicSpline(w, k * (np.clip(inside, 0.0, 1.0) ** (k - 1)) @ weight)
+
+
+def _studentized_range_sf(q: np.ndarray, k: int, df: float) -> np.ndarray:
+    """Upper tail of the studentized range (the Tukey test): a vectorised quadrature.
+
+    Checked against scipy.stats.studentized_range through scipy.stats.tukey_hsd
+    (tests/test_variation.py).
+    """
+    return 1.0 - _studentized(_range_cdf(k), np.asarray(q, dtype=float), df)
+
+
+@lru_cache(maxsize=256)
+def _anom_critical(alpha: float, k: int, df: float) -> float:
+    """Exact ANOM critical value h(alpha; k, df) for equal group sizes.
+
+    The root of :func:`_anom_cdf`, bracketed by the single-comparison t quantile (below)
+    and the Sidak value (above, by Sidak's inequality). Checked against brute-force
+    simulation, the t quantile for k = 2 and Nelson's table value h(0.05; 3, inf) = 2.34
+    (tests/test_variation.py).
+    """
+    low = stats.t.ppf(1 - alpha / 2, df)
+    high = stats.t.ppf(1 - (1 - (1 - alpha) ** (1 / k)) / 2, df)
+    return float(
+        optimize.brentq(
+            lambda h: float(_anom_cdf(h, k, df)) - (1 - alpha), 0.99 * low, 1.01 * high, xtol=1e-7
+        )
+    )
+
+
 @lru_cache(maxsize=256)
 def _tukey_critical(alpha: float, k: int, df: float) -> float:
-    return float(stats.studentized_range.ppf(1 - alpha, k, df))
+    return float(
+        optimize.brentq(lambda q: float(_studentized_range_sf(q, k, df)) - alpha, 0.1, 1e3)
+    )
 
 
 def _comparisons(
@@ -728,8 +853,8 @@ def _comparisons(
     diff = mean[i] - mean[j]
     se_pair = s * np.sqrt(0.5 * (1 / n[i] + 1 / n[j]))
     q = np.abs(diff) / se_pair if s > 0 else np.full(diff.size, np.nan)
-    p = stats.studentized_range.sf(q, k, df)
-    qcrit = _tukey_critical(alpha, k, df)
+    p = _studentized_range_sf(q, k, float(df))
+    qcrit = _tukey_critical(alpha, k, float(df))
     for a, b, est, qq, pp, half in zip(i, j, diff, q, p, qcrit * se_pair, strict=True):
         rows.append(
             {
@@ -751,7 +876,14 @@ def _comparisons(
         t = (mean - grand) / se
     p_raw = 2 * stats.t.sf(np.abs(t), df)
     t_each = stats.t.ppf(1 - alpha / 2, df)
-    h = stats.t.ppf(1 - (1 - (1 - alpha) ** (1 / k)) / 2, df)  # Sidak
+    exact = np.all(n == n[0]) and k <= _ANOM_MAX_LEVELS
+    with np.errstate(invalid="ignore"):
+        if exact:
+            h = _anom_critical(alpha, k, float(df))
+            p_anom = 1.0 - _anom_cdf(np.abs(t), k, float(df))
+        else:  # unequal sizes: Sidak's bound, slightly conservative
+            h = stats.t.ppf(1 - (1 - (1 - alpha) ** (1 / k)) / 2, df)
+            p_anom = 1.0 - (1.0 - p_raw) ** k
     for lab, mu, e, tt, pr in zip(labels, mean, se, t, p_raw, strict=True):
         rows.append(
             {
@@ -766,7 +898,7 @@ def _comparisons(
                 "se": e,
             }
         )
-    for lab, mu, e, tt, pr in zip(labels, mean, se, t, p_raw, strict=True):
+    for lab, mu, e, tt, pr in zip(labels, mean, se, t, p_anom, strict=True):
         rows.append(
             {
                 "test": "anom",
@@ -774,7 +906,7 @@ def _comparisons(
                 "versus": "overall",
                 "estimate": mu,
                 "statistic": tt,
-                "p": float(1 - (1 - pr) ** k),
+                "p": float(pr),
                 "lower": grand - h * e,
                 "upper": grand + h * e,
                 "se": e,
@@ -858,6 +990,23 @@ def _sum_coded_effects(
     return rows
 
 
+def _confounding_notes(d: _Design, measured_by: Sequence[str]) -> dict[str, str]:
+    """For each measured_by factor confounded with another factor or the subgroup: a note
+    that its offsets carry the other's effect too."""
+    s = d.structure
+    out = {}
+    for m in measured_by:
+        rows = s[(s["factor"] == m) & (s["relation"] == "confounded")]
+        others = [str(w) for w in rows["with_"]]
+        if others:
+            named = " and ".join(repr(o) for o in others)
+            out[m] = (
+                f"confounded with {named}: these offsets are the effect of {m!r} and {named} "
+                "together; the data cannot tell them apart"
+            )
+    return out
+
+
 def _offsets(d: _Design, measured_by: Sequence[str], level: float) -> pd.DataFrame:
     rows: list[dict] = []
     names_b = [f.name for f in d.between]
@@ -870,7 +1019,10 @@ def _offsets(d: _Design, measured_by: Sequence[str], level: float) -> pd.DataFra
         g = _gram(d.y, np.ones(d.n), d.subgroup.codes, d.k, d.within)
         keep = [i for i, n in enumerate(names_w) if n in measured_by]
         rows += _sum_coded_effects(g, d.within, keep, d.n - d.k, level)
-    return pd.DataFrame(rows, columns=_OFFSET_COLUMNS)
+    table = pd.DataFrame(rows, columns=_OFFSET_COLUMNS[:-1])
+    notes = _confounding_notes(d, measured_by)
+    table["note"] = [notes.get(name, "") for name in table["factor"]]
+    return table
 
 
 def measurement_offsets(
@@ -892,7 +1044,9 @@ def measurement_offsets(
     from the subgroup means (weighted by subgroup size) together with the other
     between-subgroup factors, with the subgroup-to-subgroup variation as its error.
     ``se`` is the standard error, ``lower``/``upper`` a ``level`` t interval and ``p``
-    the t test of a zero offset. Factors confounded with an earlier factor are left out.
+    the t test of a zero offset. The measured_by factors enter the joint model first, so
+    a factor confounded with one of them is left out; the offsets then carry both effects
+    and ``note`` says so (it is empty otherwise).
 
     Checked against statsmodels OLS with ``C(factor, Sum)`` coding (tests/test_variation.py).
 
@@ -906,9 +1060,25 @@ def measurement_offsets(
     [-0.5, 0.5]
     """
     measured_by = (measured_by,) if isinstance(measured_by, str) else tuple(measured_by)
-    all_factors = list(dict.fromkeys([*measured_by, *factors]))
-    d = _design(frame, value, subgroup, all_factors)
+    d = _offsets_design(frame, value, subgroup, measured_by, factors)
     return _offsets(d, measured_by, level)
+
+
+def _offsets_design(
+    frame: pd.DataFrame,
+    value: str,
+    subgroup: str,
+    measured_by: Sequence[str],
+    factors: Sequence[str],
+    design: _Design | None = None,
+) -> _Design:
+    """The design with the measured_by factors first (``design`` reused when it already
+    keeps all of them)."""
+    if design is not None:
+        kept = {f.name for f in [*design.between, *design.within]}
+        if all(m in kept for m in measured_by):
+            return design
+    return _design(frame, value, subgroup, list(dict.fromkeys([*measured_by, *factors])))
 
 
 def adjusted_values(frame: pd.DataFrame, *, value: str, offsets: pd.DataFrame) -> np.ndarray:
@@ -1032,9 +1202,10 @@ def variation(
     time : accepted so that callers can pass their roles uniformly; the order of the
         subgroup categories is the time order used here.
     alpha : level of the analysis-of-means decision limits and Tukey intervals.
-    components : ``"auto"`` (expected mean squares for balanced data, REML for small
-        unbalanced data, moment estimates with effective group sizes for large unbalanced
-        data), ``"ems"`` or ``"reml"``.
+    components : ``"auto"`` (expected mean squares for balanced data, REML for
+        unbalanced data, computed from sufficient statistics so that its cost does not
+        grow with the rows; moment estimates with effective group sizes, with a note, when
+        the factors have more than a few hundred levels in all), ``"ems"`` or ``"reml"``.
     level : confidence level of the component and offset intervals.
     compare : ``False`` leaves ``comparisons`` and ``spread`` empty (quicker, for
         simulations and first looks).
@@ -1054,18 +1225,25 @@ def variation(
         ``comparisons`` (``tukey`` pairs (Tukey-Kramer, ``statistic`` the studentized
         range q); ``effect`` rows: level mean minus the size-weighted overall mean with its
         ``se`` and t test; ``anom`` rows: level mean, ``lower``/``upper`` the decision
-        limits of the analysis of means with a Sidak critical value
-        t(1 - (1 - (1 - alpha)^(1/k)) / 2, df), a documented approximation that is slightly
-        conservative against the exact equal-n values, and ``p`` Sidak-adjusted;
+        limits of the analysis of means, grand mean +- h * se, with ``p`` the matching
+        adjusted p-value: for equal group sizes (up to 100 levels) h is the exact critical
+        value h(alpha; k, df) of max |mean_i - grand| / se for independent normal means
+        (see ``_anom_max_cdf``); for unequal sizes the Sidak value
+        t(1 - (1 - (1 - alpha)^(1/k)) / 2, df), a documented approximation that is
+        slightly conservative, with Sidak-adjusted p;
         ``kruskal_wallis``) on subgroup means for between-subgroup
         factors and on subgroup-centred values otherwise (error df reduced by the
         number of subgroups less one); ``spread`` (Levene and
         Brown-Forsythe on deviations from the subgroup mean, or on single values);
-        ``offsets`` (:func:`measurement_offsets`); ``multivari`` (:func:`multivari_table`).
+        ``offsets`` (:func:`measurement_offsets`; a measured_by factor confounded with
+        another factor keeps its offsets, whose ``note`` says that they carry the other
+        factor's effect too, and ``notes`` repeats it); ``multivari``
+        (:func:`multivari_table`).
 
     Checked against R's documented examples (PlantGrowth one-way F, InsectSprays
     Kruskal-Wallis), Bates' lme4 book values for Dyestuff and Pastes, statsmodels
-    ``anova_lm`` (Type II), scipy ``tukey_hsd`` and ``levene``; see tests/test_variation.py.
+    ``anova_lm`` (Type II) and MixedLM (REML), scipy ``tukey_hsd`` and ``levene``, Nelson's
+    ANOM table and simulation; see tests/test_variation.py.
 
     Examples
     --------
@@ -1095,10 +1273,13 @@ def variation(
         else {}
     )
     spread = _spread(d, d.factors if compare else [])
-    offsets = (
-        _offsets(d, measured_by, level) if measured_by else pd.DataFrame(columns=_OFFSET_COLUMNS)
-    )
+    offsets = pd.DataFrame(columns=_OFFSET_COLUMNS)
+    if measured_by:
+        od = _offsets_design(frame, value, subgroup, measured_by, factors, d)
+        offsets = _offsets(od, measured_by, level)
     notes = list(d.notes) + comp_notes
+    confounded = _confounding_notes(d, measured_by)
+    notes += [f"offsets of {m!r}: {text}." for m, text in confounded.items()]
     if d.single:
         notes.append("single values: subgroup-to-subgroup and residual variation coincide.")
     return VariationResult(
