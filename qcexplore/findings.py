@@ -404,6 +404,11 @@ def _level_finding(
     )
     if measured:
         title = f"{_cap(label)}'s readings are {ctx.amount(effect)} {word} than the other {plural}'"
+        twins = _confounded_with(ctx.v, factor)
+        if twins:
+            # The data cannot say whether the sampling or the confounded factor moved the
+            # readings: the title must not claim a measurement offset on its own.
+            title += f", or {' and '.join(twins)} did it: the data cannot tell them apart"
         evidence += (
             f"; its sum-to-zero offset against the average of all {k} {plural} is "
             f"{estimate:+.3g}{ctx.unit}, and the difference from the others is that offset "

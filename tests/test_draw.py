@@ -365,6 +365,20 @@ def test_legend_lists_each_stratum_once_in_its_colour():
     assert list(legend["color"]) == list(draw.palette_for(["A", "B", "C"]).values())
 
 
+@given(
+    st.lists(st.sampled_from(["a", "b", "c", "d", None]), min_size=1, max_size=30),
+    st.booleans(),
+)
+def test_codes_name_each_row_s_level(values, categorical):
+    column = pd.Series(pd.Categorical(values) if categorical else pd.Series(values, dtype=object))
+    levels = [str(v) for v in theme.levels_of(column)]
+    codes = theme.codes_for(column, levels)
+    assert list(np.array([*levels, ""], dtype=object)[codes]) == list(theme.labels(column))
+    palette = draw.palette_for(levels)
+    colours = np.array([*theme.STRATA_COLORS, theme.POINT], dtype=object)[theme.color_codes(codes)]
+    assert list(colours) == [palette.get(v, theme.POINT) for v in theme.labels(column)]
+
+
 def test_colour_mapper_gives_each_code_its_palette_colour():
     # code i -> STRATA_COLORS[i], as palette_for gives the i-th level; no level -> POINT
     mapper = named(draw.chart_figure(chart_result()))["chart_colors"]

@@ -291,3 +291,19 @@ def test_individual_values_and_no_factors_run():
     ):
         found = study.findings()
         assert all(isinstance(f, Finding) for f in found)
+
+
+def test_offset_confounded_with_a_process_factor_is_not_claimed_alone() -> None:
+    # One week of the demo: each crew works a single shift, so crew and shift are confounded
+    # (the demo's rotation, qcexplore/demo.py); the offset finding must say so in its title.
+    frame, _ = qx.demo.filling_line(days=7)
+    study = qx.Study(
+        frame, value="net_g", subgroup="round", time="taken_at",
+        factors=["crew", "shift", "nozzle"], measured_by=["crew"], units="g",
+    )  # fmt: skip
+    found = study.findings()
+    offsets = [f for f in found if f.kind == "measurement_offset"]
+    assert offsets and all("cannot tell" in f.title and "shift" in f.title for f in offsets)
+    assert any(
+        f.kind == "confounded" and {"crew", "shift"} <= set(f.title.lower().split()) for f in found
+    )

@@ -605,24 +605,24 @@ def _reml_stats(d: _Design, terms: list[_Factor]) -> _RemlStats:
     w = sparse.csr_matrix((np.ones(rows.size), (rows, cols.ravel())), shape=(d.n, m))
     term = np.repeat(np.arange(-1, len(terms)), [1] + [f.n_levels for f in terms])
     sizes, which = np.unique(d.sizes, return_inverse=True)
-    count = np.bincount(which, minlength=sizes.size)
-    if d.single:
-        sizes, count = sizes[:0], count[:0]
-    k = sparse.csr_matrix((np.ones(d.n), (d.subgroup.codes, np.arange(d.n))), shape=(d.k, d.n)) @ w
-    sums = np.bincount(d.subgroup.codes, weights=y, minlength=d.k)
+    if d.single:  # no subgroup term: nothing to absorb
+        sizes = sizes[:0]
+    count = np.bincount(which, minlength=sizes.size)[: sizes.size]
     kk = np.zeros((sizes.size, m, m))
     ks = np.zeros((sizes.size, m))
     ss = np.zeros(sizes.size)
-    for j in range(sizes.size):
-        rows_j = np.flatnonzero(which == j)
-        part = k[rows_j]
-        kk[j] = (part.T @ part).toarray()
-        ks[j] = part.T @ sums[rows_j]
-        ss[j] = float(sums[rows_j] @ sums[rows_j])
-    return _RemlStats(
-        d.n, float(y @ y), (w.T @ w).toarray(), w.T @ y, term, sizes.astype(float), count,
-        kk, ks, ss,
-    )  # fmt: skip
+    if sizes.size:
+        sg = d.subgroup.codes
+        k = sparse.csr_matrix((np.ones(d.n), (sg, np.arange(d.n))), shape=(d.k, d.n)) @ w
+        sums = np.bincount(sg, weights=y, minlength=d.k)
+        for j in range(sizes.size):
+            rows_j = np.flatnonzero(which == j)
+            part = k[rows_j]
+            kk[j] = (part.T @ part).toarray()
+            ks[j] = part.T @ sums[rows_j]
+            ss[j] = float(sums[rows_j] @ sums[rows_j])
+    wtw, wty = (w.T @ w).toarray(), w.T @ y
+    return _RemlStats(d.n, float(y @ y), wtw, wty, term, sizes.astype(float), count, kk, ks, ss)
 
 
 def _reml_profile(s: _RemlStats, ratios: np.ndarray) -> tuple[float, float]:
