@@ -39,7 +39,7 @@ RULE_OPTIONS = (("Nelson (8 tests)", "nelson"), ("Western Electric (4 tests)", "
 CENTER_OPTIONS = (("estimated from the data", "estimated"), ("a target value", "target"))
 
 _WIDE = widgets.Layout(width="300px")
-_STYLE = {"description_width": "110px"}
+_STYLE = {"description_width": "120px"}
 
 
 def styled(widget: widgets.Widget, css: str) -> widgets.Widget:

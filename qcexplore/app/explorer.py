@@ -211,7 +211,15 @@ class Explorer(widgets.VBox):
         self._selected_rows: pd.DataFrame = pd.DataFrame()
         self._selection_source: ColumnDataSource | None = None
         self._points: dict[int, ColumnDataSource] = {}
-        super().__init__([self.settings.box, self.tabs, self.actions.log_box, self.status])
+        # Tab titles are our panel names in plain words: let them take the width they need
+        # instead of the toolkit's fixed tab width, which cuts them off.
+        tab_style = widgets.HTML(
+            "<style>.qcx-panels .lm-TabBar-tab { flex: 0 0 auto !important; max-width: none !important; }"
+            "</style>"
+        )
+        super().__init__(
+            [tab_style, self.settings.box, self.tabs, self.actions.log_box, self.status]
+        )
         styled(self, "explorer")
         self._wire()
         if log is not None:
