@@ -95,8 +95,9 @@ class Study:
         check_role_names(value, subgroup, time, factors, measured_by)
         if shifts is not None:
             shift_starts(shifts)
-        source = read(frame)
-        require_frame(source)
+        # Positions 0..n-1 as the index: every message names rows of the table as given,
+        # also after rows are dropped or sorted.
+        source = require_frame(read(frame)).reset_index(drop=True)
         require_columns(source, [value], "value")
         if subgroup is not None:
             require_columns(source, [subgroup], "subgroup")
@@ -167,7 +168,7 @@ class Study:
         absent = np.flatnonzero(labels.isna().to_numpy())
         if absent.size:
             raise QCDataError(
-                f"Column {subgroup!r} (the subgroup) is empty in {row_list(absent)}; "
+                f"Column {subgroup!r} (the subgroup) is empty in {row_list(data.index[absent])}; "
                 "fill it in or leave those rows out."
             )
         order = pd.unique(labels.to_numpy())

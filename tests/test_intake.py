@@ -183,3 +183,22 @@ def test_only_qcdataerror_escapes_and_input_is_unchanged(names, rows, data) -> N
     except QCDataError:
         pass
     pd.testing.assert_frame_equal(frame, before)
+
+
+def test_messages_name_rows_of_the_table_as_given() -> None:
+    # Row 2 is dropped (missing value) and the rows are sorted by time before the checks
+    # that follow, yet the messages must name the rows of the input table (1-based).
+    frame = pd.DataFrame(
+        {
+            "t": ["2026-01-03 00:00", "2026-01-01 00:00", "2026-01-02 00:00", "not a time"],
+            "w": [1.0, None, 2.0, 3.0],
+            "lot": ["a", "b", "c", "d"],
+        },
+        index=[10, 20, 30, 40],
+    )
+    with pytest.raises(QCDataError, match=r"'t'.*row 4;"):
+        qx.Study(frame, value="w", time="t")
+    frame.loc[40, "t"] = "2026-01-04 00:00"
+    frame.loc[30, "lot"] = None
+    with pytest.raises(QCDataError, match=r"'lot'.*row 3;"):
+        qx.Study(frame, value="w", time="t", subgroup="lot")

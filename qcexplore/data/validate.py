@@ -148,7 +148,11 @@ def as_factor(series: pd.Series) -> pd.Series:
 
 
 def parse_times(series: pd.Series, column: str) -> pd.Series:
-    """Timestamps (with or without time zone) or a numeric order column."""
+    """Timestamps (with or without time zone) or a numeric order column.
+
+    Messages name rows by the series' index, which the Study keeps as the 0-based
+    positions of the table the user gave.
+    """
     if pd.api.types.is_datetime64_any_dtype(series.dtype):
         parsed = series
     elif pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(
@@ -172,12 +176,12 @@ def parse_times(series: pd.Series, column: str) -> pd.Series:
             examples = ", ".join(repr(str(series.iloc[i])) for i in bad[:3])
             raise QCDataError(
                 f"Column {column!r} has cells that are not times ({examples}) in "
-                f"{row_list(bad)}; write them as ISO dates like 2026-03-29 06:15."
+                f"{row_list(series.index[bad])}; write them as ISO dates like 2026-03-29 06:15."
             )
     missing = np.flatnonzero(pd.isna(parsed).to_numpy())
     if missing.size:
         raise QCDataError(
-            f"Column {column!r} has missing times in {row_list(missing)}; "
+            f"Column {column!r} has missing times in {row_list(series.index[missing])}; "
             "fill them in or leave the time column out."
         )
     return parsed
