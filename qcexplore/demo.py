@@ -25,6 +25,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from qcexplore.errors import QCDataError
+
 CREWS = ("A", "B", "C")
 SHIFTS = {"early": "06:00", "late": "14:00", "night": "22:00"}
 NOZZLES = ("1", "2", "3", "4", "5", "6")
@@ -76,9 +78,14 @@ def filling_line(
     'B'
     """
     if days < 1 or jars_per_round < 1 or jars_per_round > len(NOZZLES):
-        raise ValueError("days must be >= 1 and jars_per_round between 1 and 6")
+        raise QCDataError(
+            f"filling_line: days={days!r} must be >= 1 and jars_per_round={jars_per_round!r} "
+            "between 1 and 6."
+        )
     if not 0 <= missed < 1 or not -1 < phi < 1:
-        raise ValueError("missed must be in [0, 1) and phi in (-1, 1)")
+        raise QCDataError(
+            f"filling_line: missed={missed!r} must be in [0, 1) and phi={phi!r} in (-1, 1)."
+        )
     rng = np.random.default_rng(seed)
     rounds = pd.date_range(START, periods=days * 24, freq="h")
     hours_since_start = np.arange(len(rounds))

@@ -732,7 +732,12 @@ def _confounded_notes(ctx: _Context) -> list[Finding]:
             continue
         seen.add(pair)
         order = list(ctx.study.factors)
-        a, b = sorted((str(row.factor), str(row.with_)), key=order.index)
+        # A factor with one subgroup per level is confounded with the subgroup column, which
+        # is no factor: the subgroup comes first, as the joint model keeps it.
+        a, b = sorted(
+            (str(row.factor), str(row.with_)),
+            key=lambda name: order.index(name) if name in order else -1,
+        )
         out.append(
             Finding(
                 kind="confounded",
@@ -744,7 +749,7 @@ def _confounded_notes(ctx: _Context) -> list[Finding]:
                     f"To separate them, record them crossed (for example, let each {a} use "
                     f"more than one {b} for a while)."
                 ),
-                factor=a,
+                factor=a if a in order else b,
                 caveat=f"The data cannot tell {a} from {b}.",
             )
         )
@@ -839,14 +844,20 @@ def findings(
     >>> top.kind, top.level
     ('measurement_offset', 'B')
     """
-    if not 0.0 < alpha < 1.0:
+
+    def number(x: object) -> bool:
+        return isinstance(x, (int, float, np.integer, np.floating)) and not isinstance(x, bool)
+
+    if not (number(alpha) and 0.0 < alpha < 1.0):
         raise QCDataError(f"findings: alpha={alpha!r} must lie between 0 and 1.")
-    if min_effect is not None and not (np.isfinite(min_effect) and min_effect >= 0):
+    if min_effect is not None and not (
+        number(min_effect) and np.isfinite(min_effect) and min_effect >= 0
+    ):
         raise QCDataError(
             f"findings: min_effect={min_effect!r} must be a number >= 0 in the value's units "
             "(or None for 0.2 within-subgroup sigma)."
         )
-    if not 0.0 <= min_share <= 1.0:
+    if not (number(min_share) and 0.0 <= min_share <= 1.0):
         raise QCDataError(f"findings: min_share={min_share!r} must lie between 0 and 1.")
     chart = study.chart()
     sigma = float(chart.limits["sigma"].iloc[0])

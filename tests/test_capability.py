@@ -158,11 +158,17 @@ def test_histogram_and_curve_for_drawing():
         ({"usl": 9.0, "sigma_within": 0.0}, [1.0, 2.0, 3.0], "sigma_within"),
         ({"usl": 9.0, "confidence": 1.5}, [1.0, 2.0, 3.0], "confidence"),
         ({"usl": np.inf}, [1.0, 2.0, 3.0], "usl"),
+        # Arguments that are not numbers are bad input too, never a TypeError.
+        ({"lsl": "a"}, [1.0, 2.0, 3.0], "lsl='a'"),
+        ({"usl": 9.0, "target": "mid"}, [1.0, 2.0, 3.0], "target"),
+        ({"usl": 9.0, "sigma_within": "x"}, [1.0, 2.0, 3.0], "sigma_within"),
+        ({"usl": 9.0, "confidence": None}, [1.0, 2.0, 3.0], "confidence"),
+        ({"usl": 9.0}, ["a", "b", "c"], "not all numbers"),
     ],
 )
 def test_bad_input_raises(kwargs, values, match):
     with pytest.raises(QCDataError, match=match):
-        capability(np.array(values), **kwargs)
+        capability(np.array(values, dtype=object), **kwargs)
 
 
 @settings(max_examples=40, deadline=None)

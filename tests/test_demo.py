@@ -62,3 +62,11 @@ def test_effects_switch_off() -> None:
     assert not any(truth[k]["active"] for k in ("crew_offset", "nozzle_drift", "missed"))
     assert len(frame) == 28 * 24 * 5
     assert abs(frame.groupby("crew")["net_g"].mean().std()) < 0.2
+
+
+@pytest.mark.parametrize(
+    "options", [{"days": 0}, {"jars_per_round": 7}, {"missed": 1.0}, {"phi": 1.0}]
+)
+def test_bad_options_raise_qcdataerror(options) -> None:
+    with pytest.raises(qx.QCDataError, match="filling_line"):
+        qx.demo.filling_line(**options)

@@ -102,8 +102,10 @@ def test_split_by_gives_one_colour_per_stratum(ex: Explorer, study: Study) -> No
 
 
 def test_per_stratum_limits_equal_study_chart(ex: Explorer, study: Study) -> None:
+    assert ex.settings.limits.disabled  # no split: one set of limits is all there is
     ex.set(by="shift", limits="per_stratum")
     expected = study.chart(by="shift", limits="per_stratum")
+    assert not ex.settings.limits.disabled
     assert_shows(ex, expected)
     pd.testing.assert_frame_equal(ex.chart().limits, expected.limits)
 
@@ -276,6 +278,8 @@ def test_log_round_trip(ex: Explorer, study: Study, tmp_path) -> None:
 
     again = Explorer(demo_study(), log=path)
     assert again.state == ex.state
+    assert "loaded from" in again.status.value and "3 subgroup(s)" in again.status.value
+    assert "Chart:" in again.status.value  # what the panel update said is still there
     assert again.state.notes[0].text == "Crew B reads high on its own scale."
     pd.testing.assert_frame_equal(again.chart().limits, ex.chart().limits)
     assert list(again.chart().excluded) == list(ex.chart().excluded)
@@ -320,3 +324,42 @@ def test_stable_classes_and_bokehjs_outside_kernel(ex: Explorer) -> None:
     assert resources.load_bokehjs() is False  # no kernel, no page: nothing sent
     bundle = ex._repr_mimebundle_()
     assert "application/vnd.jupyter.widget-view+json" in bundle
+
+
+def test_comparison_chart_is_drawn_without_a_choice(ex: Explorer) -> None:
+    # The "Compare levels of" dropdown starts on the first factor, so the analysis of
+    # means is on show as soon as the panel opens.
+    assert ex.anom_factor.value == FACTORS[0]
+    ex.tabs.selected_index = 1
+    assert ex.slots["anom"].layout is not None
+    assert f"Comparisons of {FACTORS[0]}" in ex.texts["comparisons"].value
+
+
+def test_selection_tools_are_added_before_the_figure_goes_to_the_page(
+    study: Study, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Tools added to a figure already on show leave BokehJS without its legend and
+    # toolbar (seen in the served app): they must be there when BokehModel wraps it.
+    from qcexplore.app import explorer as module
+
+    seen: list[bool] = []
+    real = module.BokehModel
+
+    def recording(layout, **kwargs):
+        if layout.name == "chart_layout":
+            seen.append(layout.select_one({"type": BoxSelectTool}) is not None)
+        return real(layout, **kwargs)
+
+    monkeypatch.setattr(module, "BokehModel", recording)
+    fresh = Explorer(study)
+    fresh.set(by="crew")
+    assert seen == [True, True]
+
+
+def test_split_by_a_derived_factor(ex: Explorer, study: Study) -> None:
+    # weekday and hour come from the time column (qcexplore.data.derive), not the data.
+    offered = [value for _label, value in ex.settings.by.options]
+    assert {"weekday", "hour"} <= set(offered) and offered[0] == ""  # "" is "no split"
+    ex.settings.by.value = "weekday"
+    assert_shows(ex, study.chart(by="weekday"))
+    assert "split by weekday" in ex.status.value

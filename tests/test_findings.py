@@ -8,6 +8,7 @@ multiple-testing and OLS code.
 from __future__ import annotations
 
 import dataclasses
+import re
 from collections import Counter
 
 import numpy as np
@@ -107,6 +108,17 @@ def test_demo_names_the_drifting_nozzle_and_when(demo):
     assert "ramp of" in streams[0].detail and "per day" in streams[0].detail
 
 
+def test_nozzles_coded_as_numbers_give_the_same_stream_finding(demo):
+    # The same data with the nozzle column as integers: the finding and its onset must not
+    # depend on how the labels are coded (levels reach the onset search as text).
+    frame, _ = filling_line()
+    coded = qx.Study(frame.assign(nozzle=frame["nozzle"].astype(int)), **ROLES)
+    streams = [f for f in coded.findings() if f.kind == "stream_difference"]
+    expected = [f for f in demo[2] if f.kind == "stream_difference"]
+    assert [(f.level, f.start) for f in streams] == [(f.level, f.start) for f in expected]
+    assert streams[0].start is not None
+
+
 def test_demo_reports_the_autocorrelation(demo):
     # Ground truth: the hourly level is AR(1) with phi = 0.6 (a level sd of 0.7 g, so the
     # averages of 5 jars show a smaller phi); the finding must be there with phi > 0.
@@ -170,6 +182,16 @@ def test_confounded_crew_and_scale():
     assert np.isnan(conf[0].p)
     offset = [f for f in found if f.kind == "measurement_offset"][0]
     assert "cannot tell crew from scale" in offset.detail
+
+
+def test_factor_with_one_subgroup_per_level_is_confounded_with_the_subgroup():
+    # A lot label that is a copy of the round: the structure table confounds it with the
+    # subgroup column, which is not a factor; the finding names both and no error escapes.
+    frame, _ = filling_line(days=5)
+    frame["lot"] = frame["round"].astype(str)
+    study = qx.Study(frame, **{**ROLES, "factors": ["crew", "lot"]})
+    conf = [f for f in study.findings() if f.kind == "confounded" and f.factor == "lot"]
+    assert len(conf) == 1 and conf[0].title == "Round and lot cannot be told apart"
 
 
 # --------------------------------------------------------------------------- planted streams
@@ -241,6 +263,56 @@ def test_no_effects_no_findings_beyond_alpha():
         assert counts[kind] <= 4, (kind, counts)
 
 
+@pytest.mark.slow
+@settings(max_examples=30, deadline=None)
+@given(
+    sizes=st.lists(st.integers(1, 5), min_size=3, max_size=30),
+    levels=st.integers(1, 4),
+    crew_effect=st.floats(-3.0, 3.0),
+    with_time=st.booleans(),
+    individuals=st.booleans(),
+    seed=st.integers(0, 10_000),
+)
+def test_findings_never_crash_and_every_number_is_finite(
+    sizes, levels, crew_effect, with_time, individuals, seed
+):
+    # Issue 5, property: on any valid Study, findings() returns (or refuses with a
+    # QCDataError, e.g. zero spread) and no finding carries an infinite number or prints
+    # "nan"/"inf"; a tested finding (finite adjusted p) has a finite effect and strength.
+    rng = np.random.default_rng(seed)
+    sg = np.repeat(np.arange(len(sizes)), sizes)
+    crew = np.array(list("ABC"))[rng.integers(0, 3, len(sizes))][sg]
+    frame = pd.DataFrame(
+        {
+            "sg": sg,
+            "noz": rng.integers(0, levels, sg.size).astype(str),
+            "crew": crew,
+            "w": np.round(rng.normal(size=sg.size) + crew_effect * (crew == "A"), 1),
+        }
+    )
+    if with_time:
+        frame["t"] = pd.Timestamp("2026-01-05 06:00") + pd.to_timedelta(sg, unit="h")
+    roles = dict(
+        value="w",
+        subgroup=None if individuals else "sg",
+        time="t" if with_time else None,
+        factors=["crew", "noz"],
+        measured_by=["crew"],
+        spec=qx.Spec(lsl=-2.0),
+    )
+    try:
+        found = qx.Study(frame, **roles).findings()
+    except QCDataError:
+        return
+    for f in found:
+        assert f.kind in KINDS and f.title and f.detail
+        numbers = [f.effect, f.p, f.share, f.effect_sd, f.se, f.p_adjusted, f.strength]
+        assert not np.isinf(numbers).any(), f
+        assert not re.search(r"\b(nan|inf)\b", f"{f.title} {f.detail}", re.IGNORECASE), f
+        if np.isfinite(f.p_adjusted):
+            assert np.isfinite(f.effect) and np.isfinite(f.strength), f
+
+
 # --------------------------------------------------------------------------- the API
 
 
@@ -255,7 +327,8 @@ def test_min_effect_suppresses_small_effects():
 @pytest.mark.parametrize(
     "options, match",
     [({"alpha": 0.0}, "alpha"), ({"alpha": 1.5}, "alpha"), ({"min_effect": -1.0}, "min_effect"),
-     ({"min_share": 2.0}, "min_share")],
+     ({"min_share": 2.0}, "min_share"), ({"alpha": "0.05"}, "alpha"),
+     ({"min_effect": "1 g"}, "min_effect"), ({"min_share": None}, "min_share")],
 )  # fmt: skip
 def test_bad_options_raise_qcdataerror(demo, options, match):
     with pytest.raises(QCDataError, match=match):

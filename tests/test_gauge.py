@@ -154,6 +154,13 @@ def test_layout_errors():
         gauge_study(f, part="part", operator="operator", value="mm", tolerance=0.0)
     with pytest.raises(QCDataError, match="gauge_col"):
         gauge_study(f, part="part", operator="operator", value="gauge_col")
+    # Wrong types and a column without variation: QCDataError, not a TypeError or ndc = inf.
+    with pytest.raises(QCDataError, match="tolerance"):
+        gauge_study(f, part="part", operator="operator", value="mm", tolerance="4 mm")
+    with pytest.raises(QCDataError, match="DataFrame"):
+        gauge_study(f.to_dict(), part="part", operator="operator", value="mm")
+    with pytest.raises(QCDataError, match="same value in every row"):
+        gauge_study(f.assign(mm=2.0), part="part", operator="operator", value="mm")
 
 
 @settings(max_examples=25, deadline=None)

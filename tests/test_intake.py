@@ -103,6 +103,14 @@ def test_to_long_keeps_ids_and_orders_samples() -> None:
         qx.to_long(wide, ["s9"])
 
 
+def test_to_long_with_a_duplicated_index() -> None:
+    # Two sheets stacked with pd.concat keep their own row labels: rows go by position.
+    wide = pd.DataFrame({"day": [1, 2], "s1": [1.0, 2.0], "s2": [3.0, 4.0]}, index=[7, 7])
+    long = qx.to_long(wide, ["s1", "s2"])
+    assert long["day"].tolist() == [1, 1, 2, 2]
+    assert long["value"].tolist() == [1.0, 3.0, 2.0, 4.0]
+
+
 def test_study_converts_text_numbers_and_counts_dropped() -> None:
     frame = pd.DataFrame(
         {
@@ -135,6 +143,12 @@ def test_duplicate_columns_and_missing_roles_rejected(small: pd.DataFrame) -> No
         qx.Study(small, value="w", shifts={"early": "06:00"})
     with pytest.raises(QCDataError, match="clock time"):
         qx.Study(small, value="w", time="t", shifts={"early": "6 am"})
+
+
+def test_factor_cells_that_cannot_be_labels_are_rejected() -> None:
+    frame = pd.DataFrame({"w": [1.0, 2.0], "crew": [["A"], ["B"]]})
+    with pytest.raises(QCDataError, match="'crew'.*labels"):
+        qx.Study(frame, value="w", factors=["crew"])
 
 
 def test_timestamps_with_and_without_time_zone() -> None:
@@ -180,6 +194,12 @@ def test_only_qcdataerror_escapes_and_input_is_unchanged(names, rows, data) -> N
     time = data.draw(st.sampled_from([None, *names]))
     try:
         qx.Study(frame, value=value, factors=[factor] if factor != value else [], time=time)
+    except QCDataError:
+        pass
+    pd.testing.assert_frame_equal(frame, before)
+    samples = data.draw(st.lists(st.sampled_from([*names, "missing column"]), max_size=3))
+    try:
+        qx.to_long(frame, samples, sample=data.draw(_names))
     except QCDataError:
         pass
     pd.testing.assert_frame_equal(frame, before)

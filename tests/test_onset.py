@@ -122,6 +122,17 @@ def test_planted_ramp_is_found_in_days(seed):
     assert found.change == pytest.approx(0.5, rel=0.15)
 
 
+def test_level_is_matched_by_its_label():
+    # A factor coded with numbers, the level given as text (as findings pass it), and a
+    # level that occurs nowhere (None, not a crash).
+    y = np.where(np.arange(40) >= 20, 2.0, 0.0)
+    frame = two_streams(y, noise=0.1)
+    frame["stream"] = pd.Categorical(np.tile([4, 5], 40))
+    found = stream_onset(frame, value="w", subgroup="sg", factor="stream", level="4")
+    assert (found.model, found.position) == ("step", 20)
+    assert stream_onset(frame, value="w", subgroup="sg", factor="stream", level=9) is None
+
+
 def test_too_few_shared_subgroups_give_none():
     frame = two_streams(np.zeros(9))
     assert stream_onset(frame, value="w", subgroup="sg", factor="stream", level="a") is None
@@ -142,7 +153,8 @@ def test_bad_input_raises_qcdataerror(change, match):
         stream_onset(frame, value="w", subgroup="sg", factor="stream", level="a")
 
 
-def test_bad_min_points_raises_qcdataerror():
+@pytest.mark.parametrize("bad", [0, "5", 2.5])
+def test_bad_min_points_raises_qcdataerror(bad):
     with pytest.raises(QCDataError, match="min_points"):
         stream_onset(
             two_streams(np.zeros(20)),
@@ -150,5 +162,5 @@ def test_bad_min_points_raises_qcdataerror():
             subgroup="sg",
             factor="stream",
             level="a",
-            min_points=0,
+            min_points=bad,
         )

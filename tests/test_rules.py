@@ -216,6 +216,12 @@ def test_resolve_rules() -> None:
     assert resolve_rules([]) == ()
 
 
+@pytest.mark.parametrize("bad", [None, 3, 2.5])
+def test_rules_that_are_not_names_raise(bad: object) -> None:
+    with pytest.raises(QCDataError, match="rules="):
+        resolve_rules(bad)  # type: ignore[arg-type]
+
+
 @given(st.text(max_size=6).filter(lambda s: s.strip().upper() not in RULE_TEXT))
 def test_unknown_rule_raises(name: str) -> None:
     if name.strip().lower() in RULE_SETS:

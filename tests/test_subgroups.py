@@ -41,6 +41,13 @@ def test_moments_equal_pandas_groupby(offset: float) -> None:
         np.testing.assert_allclose(m.mean[present], reference["mean"].to_numpy(), rtol=1e-12)
 
 
+def test_no_values_at_all_gives_empty_groups() -> None:
+    # Every group empty (a level that occurs nowhere): NaN moments, not a dtype error.
+    m = group_moments(np.array([]), np.array([], dtype=int), n_groups=3)
+    assert m.n.tolist() == [0, 0, 0]
+    assert np.isnan(m.ss).all() and np.isnan(m.mean).all() and np.isnan(m.min).all()
+
+
 def test_unsorted_codes_and_empty_groups() -> None:
     m = group_moments(np.array([5.0, 1.0, 3.0]), np.array([2, 0, 2]), n_groups=4)
     assert m.n.tolist() == [1, 0, 2, 0]

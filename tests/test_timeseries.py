@@ -116,6 +116,15 @@ def test_planted_step_found_within_one_position():
     assert np.unique(fitted).size == 2
 
 
+def test_noise_free_step_is_found_and_flat_parts_are_not_split():
+    # A step without any noise (e.g. coarse readings): the segment residuals are all zero,
+    # so the long-run sd is zero; the step is exact (p = 0) and the flat halves stay whole.
+    r = time_structure(as_series(np.r_[np.full(30, 0.1), np.full(30, 0.7)]))
+    assert r.shifts["position"].tolist() == [30]
+    assert r.shifts["p"].tolist() == [0.0]
+    assert r.shifts["after"].iloc[0] - r.shifts["before"].iloc[0] == pytest.approx(0.6)
+
+
 def test_two_steps_found_by_binary_segmentation():
     rng = np.random.default_rng(8)
     x = rng.normal(0.0, 1.0, 120)
@@ -207,6 +216,11 @@ def test_plain_index_subgroups_and_input_untouched():
         (as_series(LH), {"max_lag": 24}, "max_lag"),
         (as_series(LH), {"max_lag": 0}, "max_lag"),
         (as_series(LH), {"alpha": 1.0}, "alpha"),
+        # Arguments of the wrong type are bad input too, never a TypeError or a silent cast.
+        (as_series(LH), {"alpha": "0.05"}, "alpha"),
+        (as_series(LH), {"max_lag": "5"}, "max_lag"),
+        (as_series(LH), {"max_lag": 2.5}, "max_lag"),
+        (LH, {}, "DataFrame"),
     ],
 )
 def test_bad_input_raises(series, kwargs, match):

@@ -654,6 +654,17 @@ def test_adjusted_values_unknown_level():
         adjusted_values(f, value="w", offsets=o)
 
 
+@pytest.mark.parametrize(
+    ("offsets", "match"),
+    [(None, "NoneType"), (pd.DataFrame({"level": ["a"], "offset": [0.5]}), "factor")],
+)
+def test_adjusted_values_malformed_offsets(offsets, match):
+    # Not a table from measurement_offsets: a QCDataError naming the problem, not a KeyError.
+    f = pd.DataFrame({"crew": ["a", "z"], "w": [1.0, 2.0]})
+    with pytest.raises(QCDataError, match=match):
+        adjusted_values(f, value="w", offsets=offsets)
+
+
 # --------------------------------------------------------------------------- multi-vari
 
 
@@ -677,24 +688,28 @@ def test_multivari_table_matches_groupby():
 
 @pytest.mark.slow
 def test_between_factor_error_term_holds_alpha():
-    # Simulation: crew has no effect, subgroups vary strongly. With the subgroup-within-crew
-    # error term the false-alarm rate stays near 5%; the naive one-way test on single values
-    # (scipy.stats.f_oneway) declares crew significant far more often.
+    # Simulation (issue 4): crew has no effect, subgroups vary strongly. With the
+    # subgroup-within-crew error term the p-values are uniform (Kolmogorov-Smirnov over
+    # 500 replicates, scipy.stats.kstest); the naive one-way test on single values
+    # (scipy.stats.f_oneway) piles them up near zero.
     rng = np.random.default_rng(18)
-    ours = naive = 0
+    ours, naive = [], []
     crew = np.repeat(np.arange(2), 10)
     sg = np.repeat(np.arange(20), 5)
     frame = pd.DataFrame(
         {"sg": pd.Categorical(sg, ordered=True), "crew": pd.Categorical(crew[sg].astype(str))}
     )
-    for _ in range(200):
+    for _ in range(500):
         y = rng.normal(0, 1.0, 20)[sg] + rng.normal(0, 0.5, sg.size)
         f = frame.assign(y=y)
         r = variation(f, value="y", subgroup="sg", factors=["crew"], compare=False)
-        ours += _row(r.anova, "crew")["p"] < 0.05
-        naive += stats.f_oneway(y[crew[sg] == 0], y[crew[sg] == 1]).pvalue < 0.05
-    assert ours <= 17  # 8.5%: binomial(200, 0.05) exceeds this with probability < 0.2%
-    assert naive >= 60
+        ours.append(_row(r.anova, "crew")["p"])
+        naive.append(stats.f_oneway(y[crew[sg] == 0], y[crew[sg] == 1]).pvalue)
+    assert stats.kstest(ours, "uniform").pvalue > 0.01
+    assert stats.kstest(naive, "uniform").pvalue < 1e-10
+    # 8%: binomial(500, 0.05) exceeds this with probability below 0.2%
+    assert np.mean(np.array(ours) < 0.05) <= 0.08
+    assert np.mean(np.array(naive) < 0.05) >= 0.3
 
 
 # --------------------------------------------------------------------------- properties, bad input
@@ -778,6 +793,45 @@ def test_factor_that_is_the_subgroup_is_confounded_with_it():
     assert (row["relation"], row["with_"]) == ("confounded", "sg")
     assert "day" not in set(r.anova["source"])
     assert any("single subgroup" in n for n in r.notes)
+
+
+def test_within_factors_that_use_every_degree_of_freedom_leave_f_undefined():
+    # One subgroup of two values, one per nozzle: nothing is left for an error term, so the
+    # nozzle row has no F or p (documented handling) instead of a division by zero.
+    f = pd.DataFrame(
+        {
+            "sg": pd.Categorical(["a", "a"], ordered=True),
+            "noz": pd.Categorical(["1", "2"]),
+            "y": [1.0, 2.0],
+        }
+    )
+    r = variation(f, value="y", subgroup="sg", factors=["noz"])
+    row = r.anova.set_index("source").loc["noz"]
+    assert row["ss"] == pytest.approx(0.5) and np.isnan(row["f"]) and np.isnan(row["p"])
+    assert any("no degrees of freedom" in n for n in r.notes)
+
+
+def test_one_level_singleton_and_missing_factors_have_documented_handling():
+    # Issue 4, bad input: a one-level factor is left out with a note; a factor whose levels
+    # are all single values leaves no error term (NaN F, a note); missing labels raise.
+    sg = np.repeat(np.arange(6), 4)
+    f = pd.DataFrame(
+        {
+            "sg": pd.Categorical(sg, ordered=True),
+            "y": np.random.default_rng(21).normal(size=24),
+            "one": pd.Categorical(["a"] * 24),
+            "unique": pd.Categorical([f"u{i}" for i in range(24)]),
+            "gap": pd.Categorical(["a", "b"] * 11 + [None, "a"]),
+        }
+    )
+    one = variation(f, value="y", subgroup="sg", factors=["one"])
+    assert "one" not in set(one.anova["source"])
+    assert any("single level" in n for n in one.notes)
+    unique = variation(f, value="y", subgroup="sg", factors=["unique"])
+    assert unique.anova["f"].isna().all()
+    assert any("no degrees of freedom" in n for n in unique.notes)
+    with pytest.raises(QCDataError, match=r"'gap'.*rows \[22\]"):
+        variation(f, value="y", subgroup="sg", factors=["gap"])
 
 
 @settings(max_examples=20, deadline=None)

@@ -199,6 +199,8 @@ class Settings:
             self.time.value = state.time or NONE
             self.kind.value = state.kind
             self.limits.value = state.limits
+            # Limits per stratum need strata: without a split the choice would do nothing.
+            self.limits.disabled = self.by.value == NONE
             self.sigma_level.value = state.sigma_level
             self.sigma_method.value = state.sigma_method
             self.rules.value = state.rules

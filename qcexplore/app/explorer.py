@@ -27,14 +27,7 @@ from typing import Any
 import ipywidgets as widgets
 import numpy as np
 import pandas as pd
-from bokeh.models import (
-    BoxSelectTool,
-    ColumnDataSource,
-    GlyphRenderer,
-    LayoutDOM,
-    Plot,
-    TapTool,
-)
+from bokeh.models import ColumnDataSource, LayoutDOM
 from jupyter_bokeh import BokehModel
 
 from qcexplore import draw
@@ -214,8 +207,8 @@ class Explorer(widgets.VBox):
         # Tab titles are our panel names in plain words: let them take the width they need
         # instead of the toolkit's fixed tab width, which cuts them off.
         tab_style = widgets.HTML(
-            "<style>.qcx-panels .lm-TabBar-tab { flex: 0 0 auto !important; max-width: none !important; }"
-            "</style>"
+            "<style>.qcx-panels .lm-TabBar-tab "
+            "{ flex: 0 0 auto !important; max-width: none !important; }</style>"
         )
         super().__init__(
             [tab_style, self.settings.box, self.tabs, self.actions.log_box, self.status]
@@ -231,11 +224,6 @@ class Explorer(widgets.VBox):
     def _repr_mimebundle_(self, **kwargs: Any) -> Any:
         load_bokehjs()
         return super()._repr_mimebundle_(**kwargs)
-
-    @property
-    def widget(self) -> widgets.VBox:
-        """The widget to display (the explorer itself)."""
-        return self
 
     # ---- wiring ------------------------------------------------------------------
     def _wire(self) -> None:
@@ -297,6 +285,10 @@ class Explorer(widgets.VBox):
         choices = list(study.factors)
         if list(self.anom_factor.options) != choices:
             self.anom_factor.options = choices
+        if self.anom_factor.value not in choices and choices:
+            # ipywidgets leaves a Dropdown empty when its options change: without a factor
+            # the comparison chart (analysis of means) would never be drawn.
+            self.anom_factor.value = choices[0]
         self._show_log()
         self._refresh()
 
@@ -378,10 +370,7 @@ class Explorer(widgets.VBox):
         if source is not None and source.selected.indices:
             source.selected.indices = []
         self._select(())
-        limits = result.limits.drop(
-            columns=[c for c in ("stratum",) if result.by is None], errors="ignore"
-        )
-        self.texts["chart"].value = table_html(limits, "Limits") + notes_html(result.notes)
+        self.texts["chart"].value = table_html(result.limits, "Limits") + notes_html(result.notes)
         split = f", split by {result.by}" if result.by else ""
         signals = int(result.points["signal"].sum())
         return f"{result.kind} chart of {len(result.points)} points{split}, {signals} signals"
@@ -455,19 +444,11 @@ class Explorer(widgets.VBox):
 
     # ---- selection and exclusions -----------------------------------------------
     def _watch_selection(self, layout: LayoutDOM) -> None:
-        models = layout.references()
-        points = next(
-            (m for m in models if isinstance(m, ColumnDataSource) and m.name == "chart_points"),
-            None,
-        )
+        # draw.chart_figure puts the box and tap selection tools on the chart's points.
+        points = layout.select_one({"name": "chart_points", "type": ColumnDataSource})
         if points is None:
             return
         self._points[id(layout)] = points
-        dots = [m for m in models if isinstance(m, GlyphRenderer) and m.data_source is points]
-        for fig in (m for m in models if isinstance(m, Plot)):
-            mine = [r for r in dots if r in fig.renderers]
-            if mine and (fig.name or "").startswith("chart"):
-                fig.add_tools(BoxSelectTool(renderers=mine), TapTool(renderers=mine))
         points.selected.on_change(
             "indices", lambda _a, _o, new: self._guard("selection", lambda: self.select(new))
         )
@@ -561,3 +542,9 @@ class Explorer(widgets.VBox):
         state = load_log(path, data_id=self.data_id)
         self._shown.clear()
         self._apply(state)
+        # Said before what the panel update reported (which may be an error), not instead.
+        loaded = (
+            f"Investigation log loaded from {path}: {len(state.exclusions)} subgroup(s) left "
+            f"out of the limits, {len(state.notes)} note(s)."
+        )
+        self.status.value = f"<span class='qcx-ok'>{html.escape(loaded)}</span> {self.status.value}"

@@ -27,12 +27,6 @@ from qcexplore.errors import QCDataError
 LOG_FORMAT = "qcexplore investigation log"
 LOG_VERSION = 1
 
-#: Chart kinds offered for measured values ("auto" picks by subgroup size).
-KINDS = ("auto", "xbar_r", "xbar_s", "imr", "ewma", "cusum")
-LIMIT_MODES = ("pooled", "per_stratum")
-SIGMA_METHODS = ("within", "between_means", "overall")
-RULE_SET_NAMES = ("nelson", "western_electric")
-
 
 @dataclass(frozen=True)
 class Exclusion:
@@ -175,7 +169,17 @@ def fingerprint(frame: pd.DataFrame, roles: dict[str, Any]) -> str:
 
 
 def save_log(path: str | Path, state: ExplorerState, *, data_id: str, roles: dict) -> Path:
-    """Write the investigation log (state, data fingerprint, roles) to a JSON file."""
+    """Write the investigation log (state, data fingerprint, roles) to a JSON file.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> state = ExplorerState(value="net_g").exclude(["3"], "scale dropped")
+    >>> path = save_log(Path(tempfile.mkdtemp()) / "log.json", state, data_id="abc",
+    ...                 roles={"value": "net_g"})
+    >>> load_log(path, data_id="abc") == state
+    True
+    """
     path = Path(path)
     payload = {
         "format": LOG_FORMAT,
@@ -196,6 +200,16 @@ def load_log(path: str | Path, *, data_id: str) -> ExplorerState:
     ------
     QCDataError
         When the file is not a log, or its fingerprint differs from ``data_id``.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> path = save_log(Path(tempfile.mkdtemp()) / "log.json", ExplorerState(value="w"),
+    ...                 data_id="abc", roles={"value": "w"})
+    >>> load_log(path, data_id="other")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: The investigation log ... was made on other data ...
     """
     path = Path(path)
     try:

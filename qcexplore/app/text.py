@@ -25,16 +25,32 @@ def _joined(cell: Any) -> Any:
 def table_html(frame: pd.DataFrame, caption: str, *, rows: int | None = None) -> str:
     """A small HTML table of a result frame with a heading, every cell escaped.
 
+    Column names are shown as words ("error_term" as "error term", "with_" as "with"),
+    left-aligned over their cells; a column with no value in any row (the stratum of a
+    chart without a split) is left out.
+
     Examples
     --------
     >>> "&lt;b&gt;" in table_html(pd.DataFrame({"a": ["<b>"]}), "x")
     True
+    >>> "<th>error term</th>" in table_html(pd.DataFrame({"error_term": ["residual"]}), "x")
+    True
+    >>> "stratum" in table_html(pd.DataFrame({"stratum": [None], "ucl": [3.0]}), "x")
+    False
     """
     shown = frame if rows is None else frame.head(rows)
+    if len(shown):
+        shown = shown.loc[:, shown.notna().any().to_numpy()]
     # Rule ids and other sequences read as "N1, N5", not as a Python tuple.
     shown = shown.apply(lambda column: column.map(_joined) if column.dtype == object else column)
+    shown = shown.rename(columns=lambda c: str(c).strip("_").replace("_", " "))
     body = shown.to_html(
-        index=False, escape=True, border=0, na_rep="", float_format=lambda v: f"{v:.4g}"
+        index=False,
+        escape=True,
+        border=0,
+        na_rep="",
+        justify="left",
+        float_format=lambda v: f"{v:.4g}",
     )
     more = "" if rows is None or len(frame) <= rows else f"<p>... {len(frame) - rows} more</p>"
     return f"<h4>{html.escape(caption)}</h4>{body}{more}"

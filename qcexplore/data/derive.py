@@ -82,6 +82,13 @@ def derive_time_factors(
 
     With shifts, the weekday is that of the production day, so the Monday night
     shift's early-morning samples count as Monday.
+
+    Examples
+    --------
+    >>> t = pd.Series(pd.to_datetime(["2026-09-08 02:00", "2026-09-08 07:00"]))  # a Tuesday
+    >>> out = derive_time_factors(t, {"early": "06:00", "late": "14:00", "night": "22:00"})
+    >>> out["shift"].tolist(), out["weekday"].tolist()
+    (['night', 'early'], ['Monday', 'Tuesday'])
     """
     if not pd.api.types.is_datetime64_any_dtype(times.dtype):
         return {}

@@ -59,7 +59,8 @@ def to_long(
             f"each other and from the kept columns; pass other names (clash: {sorted(clash)})."
         )
     k = len(sample_columns)
-    ids = frame[keep].loc[frame.index.repeat(k)].reset_index(drop=True)
+    # By position: labels would repeat rows of a frame whose index has duplicates.
+    ids = frame[keep].iloc[np.repeat(np.arange(len(frame)), k)].reset_index(drop=True)
     positions = np.tile(np.arange(k), len(frame))
     ids[sample] = pd.Categorical.from_codes(positions, categories=[str(c) for c in sample_columns])
     ids[value] = frame[sample_columns].to_numpy(dtype=object).reshape(-1)

@@ -20,7 +20,13 @@ _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d{1,3}(?:[.\s']\d{3})*,\d+\s*$|^\s*[-+]?
 
 
 def row_list(positions: Iterable[int]) -> str:
-    """The first few 1-based row numbers, for messages."""
+    """The first few 1-based row numbers, for messages.
+
+    Examples
+    --------
+    >>> row_list([0, 4])
+    'rows 1, 5'
+    """
     rows = [int(p) + 1 for p in positions]
     shown = ", ".join(map(str, rows[:_SHOWN_ROWS]))
     more = f" and {len(rows) - _SHOWN_ROWS} more" if len(rows) > _SHOWN_ROWS else ""
@@ -28,7 +34,17 @@ def row_list(positions: Iterable[int]) -> str:
 
 
 def require_frame(frame: object) -> pd.DataFrame:
-    """Check that ``frame`` is a pandas DataFrame with unique, non-empty column names."""
+    """Check that ``frame`` is a pandas DataFrame with unique column names and some rows.
+
+    Examples
+    --------
+    >>> require_frame(pd.DataFrame({"w": [1.0]})).shape
+    (1, 1)
+    >>> require_frame([1.0])  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: Expected a table (pandas DataFrame), got list; ...
+    """
     if not isinstance(frame, pd.DataFrame):
         raise QCDataError(
             f"Expected a table (pandas DataFrame), got {type(frame).__name__}; "
@@ -45,7 +61,16 @@ def require_frame(frame: object) -> pd.DataFrame:
 
 
 def require_columns(frame: pd.DataFrame, columns: Sequence[object], role: str) -> None:
-    """Raise if any of ``columns`` is missing, listing what is there."""
+    """Raise if any of ``columns`` is missing, listing what is there.
+
+    Examples
+    --------
+    >>> require_columns(pd.DataFrame({"w": [1.0]}), ["w"], "value")
+    >>> require_columns(pd.DataFrame({"w": [1.0]}), ["crew"], "factor")
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: Column 'crew' given as factor not found; the table has: 'w'.
+    """
     missing = [c for c in columns if c not in frame.columns]
     if missing:
         available = ", ".join(map(repr, list(frame.columns)[:20]))
@@ -71,6 +96,12 @@ def numeric_values(frame: pd.DataFrame, column: str) -> pd.Series:
     Cells that hold something other than a number, a blank or a missing value
     raise a QCDataError listing their rows. Missing and infinite values stay in
     the result as NaN/inf for the caller to count and drop.
+
+    Examples
+    --------
+    >>> f = pd.DataFrame({"w": ["500,5", " 1.499,8", "", "501"]})
+    >>> numeric_values(f, "w").tolist()
+    [500.5, 1499.8, nan, 501.0]
     """
     series = frame[column]
     if pd.api.types.is_bool_dtype(series.dtype):
@@ -98,7 +129,13 @@ def numeric_values(frame: pd.DataFrame, column: str) -> pd.Series:
 
 @dataclass(frozen=True)
 class DroppedRows:
-    """Rows left out of the analysis and why (1-based row numbers of the input)."""
+    """Rows left out of the analysis and why (1-based row numbers of the input).
+
+    Examples
+    --------
+    >>> DroppedRows(missing=(3,), infinite=(7,)).describe()
+    '1 missing value(s) (row 3); 1 infinite value(s) (row 7) left out'
+    """
 
     missing: tuple[int, ...] = ()
     infinite: tuple[int, ...] = ()
@@ -121,7 +158,14 @@ class DroppedRows:
 
 
 def finite_mask(values: pd.Series) -> tuple[np.ndarray, DroppedRows]:
-    """Which values can be used, and which rows were dropped for which reason."""
+    """Which values can be used, and which rows were dropped for which reason.
+
+    Examples
+    --------
+    >>> keep, dropped = finite_mask(pd.Series([1.0, np.nan, np.inf]))
+    >>> keep.tolist(), dropped.count
+    ([True, False, False], 2)
+    """
     array = values.to_numpy(dtype=np.float64)
     missing = np.isnan(array)
     infinite = np.isinf(array)
@@ -137,11 +181,22 @@ def as_factor(series: pd.Series) -> pd.Series:
 
     Levels keep their natural order (numbers numerically, text as first seen in
     sorted order) so that the same data always give the same colours and tables.
+
+    Examples
+    --------
+    >>> as_factor(pd.Series(["B", None, "A"], dtype=object)).cat.categories.tolist()
+    ['A', 'B', '(missing)']
     """
     if isinstance(series.dtype, pd.CategoricalDtype):
         cat = series
     else:
-        cat = series.astype("category")
+        try:
+            cat = series.astype("category")
+        except TypeError:  # unhashable cells (lists, dicts) cannot be levels
+            raise QCDataError(
+                f"Column {series.name!r} holds cells that cannot be used as labels (such as "
+                "lists); give it plain text or numbers."
+            ) from None
     if cat.isna().any():
         cat = cat.cat.add_categories(["(missing)"]).fillna("(missing)")
     return cat.cat.remove_unused_categories()
@@ -152,6 +207,11 @@ def parse_times(series: pd.Series, column: str) -> pd.Series:
 
     Messages name rows by the series' index, which the Study keeps as the 0-based
     positions of the table the user gave.
+
+    Examples
+    --------
+    >>> parse_times(pd.Series(["2026-03-29 01:30", "2026-03-29 03:30"]), "t").dt.hour.tolist()
+    [1, 3]
     """
     if pd.api.types.is_datetime64_any_dtype(series.dtype):
         parsed = series
@@ -194,7 +254,16 @@ def check_role_names(
     factors: Sequence[str],
     measured_by: Sequence[str],
 ) -> None:
-    """Catch contradictory role assignments before any data are touched."""
+    """Catch contradictory role assignments before any data are touched.
+
+    Examples
+    --------
+    >>> check_role_names("w", "round", None, ["crew"], ["crew"])
+    >>> check_role_names("w", None, None, "crew", ())  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: factors must be a list of column names, got the string ...
+    """
     for name, given in (("factors", factors), ("measured_by", measured_by)):
         if isinstance(given, str):
             raise QCDataError(

@@ -120,12 +120,12 @@ def capability_figure(result: CapabilityResult) -> LayoutDOM:
         "x",
         "density",
         source=sources["capability_curve"],
-        line_color=theme.STRATA_COLORS[0],
+        line_color=theme.POINT,
         line_width=2,
     )
     spec_src = sources["capability_spec"]
     styles = {
-        "limit": {"line_color": theme.ACCENT, "line_width": 2},
+        "limit": {"line_color": theme.CENTER, "line_width": 2},
         "target": {"line_color": theme.CENTER, "line_dash": "dashed"},
         "mean": {"line_color": theme.LIMIT, "line_dash": "dotted"},
     }

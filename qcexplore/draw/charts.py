@@ -21,7 +21,8 @@ most of a split-by change on a long chart. Texts live in the small lookup source
 
 Source columns:
 
-- ``*_points``: ``x, value, subgroup, n``; with strata ``stratum_code`` (row of the
+- ``*_points``: ``x, value, subgroup, n, excluded`` (1 for a subgroup left out of the
+  limit estimate: drawn crossed out, else 0); with strata ``stratum_code`` (row of the
   level in ``chart_strata``, -1 for none) and ``color_code`` (row of the colour in the
   ``chart_colors`` palette: the colour of a point is ``palette[color_code]``, -1 is the
   neutral colour); ``time`` (milliseconds since the epoch, wall clock) when the points
@@ -52,7 +53,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from bokeh.layouts import column, gridplot
-from bokeh.models import Div, HoverTool, LayoutDOM, LinearColorMapper
+from bokeh.models import BoxSelectTool, Div, HoverTool, LayoutDOM, LinearColorMapper, TapTool
 from bokeh.transform import transform
 
 from qcexplore.draw import theme
@@ -151,6 +152,9 @@ def _chart_sources(
         data["color_code"] = theme.color_codes(codes)
     if start is not None:
         data["time"] = start
+    # Subgroups left out of the limit estimate (still plotted) are drawn crossed out.
+    left_out = points["excluded"].to_numpy(dtype=bool) if "excluded" in points else None
+    data["excluded"] = np.zeros(size, np.int8) if left_out is None else left_out.astype(np.int8)
     # Panel of each row: its level's position among the panels shown (-1: none).
     panel = None
     if panelled:
@@ -158,7 +162,7 @@ def _chart_sources(
         panel = np.append(at, -1).astype(np.int32)[codes]
         data["panel_code"] = panel
     signal = points["signal"].to_numpy(dtype=bool)
-    signals = {k: v[signal] for k, v in data.items() if k != "color_code"}
+    signals = {k: v[signal] for k, v in data.items() if k not in ("color_code", "excluded")}
     rule_codes, rule_sets = theme.code_table(points["rules"].to_numpy(dtype=object)[signal])
     signals["rules_code"] = rule_codes
 
@@ -330,26 +334,21 @@ def _draw_panel(
         color=transform("color_code", colors) if colors is not None else theme.POINT,
     )
     # Centre and limits above the points: on a dense chart they would vanish below them.
-    fig.segment(
-        "x0",
-        "y0",
-        "x1",
-        "y1",
-        source=limits,
-        view=theme.coded_view(panel_code=flt, role_code=ROLES.index("center")),
-        line_color=theme.CENTER,
-        line_width=1.5,
+    theme.centre_and_limits(
+        fig,
+        limits,
+        theme.coded_view(panel_code=flt, role_code=ROLES.index("center")),
+        theme.coded_view(panel_code=flt, role_code=ROLES.index("limit")),
     )
-    fig.segment(
-        "x0",
-        "y0",
-        "x1",
-        "y1",
-        source=limits,
-        view=theme.coded_view(panel_code=flt, role_code=ROLES.index("limit")),
+    fig.scatter(
+        "x",
+        "value",
+        source=points,
+        view=theme.coded_view(panel_code=flt, excluded=1),
+        marker="x",
+        size=theme.SIGNAL_SIZE,
         line_color=theme.LIMIT,
-        line_width=1.5,
-        line_dash="dashed",
+        line_width=2,
     )
     marks = fig.scatter(
         "x",
@@ -366,6 +365,11 @@ def _draw_panel(
         hover = _hover(spec, sources, prefix, rules)
         hover.renderers = [renderer]
         fig.add_tools(hover)
+    if prefix == "chart":
+        # Box or tap selects points (not signals or lines) on the main chart: the explorer
+        # shows the selected rows. Built here, with the figure: BokehJS loses a figure's
+        # legend and toolbar when tools are added to it once it is on show.
+        fig.add_tools(BoxSelectTool(renderers=[dots]), TapTool(renderers=[dots]))
     if spec["strata"] and panel == "all" and prefix == "chart":
         # One legend row per level from the small "chart_legend" source (nothing drawn:
         # its positions are NaN); grouping 250,000 points in the page would be slow. It

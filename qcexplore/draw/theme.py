@@ -45,7 +45,9 @@ STRATA_COLORS: tuple[str, ...] = (
     "#F0E442",  # yellow
 )
 ACCENT = "#D55E00"  # Okabe-Ito vermillion: signals and detected steps only
-POINT = "#3b3b3b"  # values when there are no strata
+# Values when there are no strata, and bars and curves that are not a level of a factor:
+# a palette colour there would read as that level (the first crew, the first nozzle).
+POINT = "#3b3b3b"
 LINE = "#b0b0b0"  # thin joining line
 CENTER = "#3b3b3b"
 LIMIT = "#8a8a8a"
@@ -276,23 +278,9 @@ def code_table(values: Sequence[Any]) -> tuple[np.ndarray, list[Any]]:
     return codes.astype(np.int32), list(uniques)
 
 
-def rule_words(rules: pd.Series) -> np.ndarray:
-    """The rules that fired, as ids with their plain-words description, one text per row.
-
-    Rows where no rule fired get an empty text.
-
-    Examples
-    --------
-    >>> rule_words(pd.Series([("N1",), ()])).tolist()
-    ['N1: one point beyond the control limits', '']
-    """
-    codes, uniques = code_table(rules.to_numpy(dtype=object))
-    return rule_texts(uniques)[codes]
-
-
 def rule_texts(uniques: Sequence[Any]) -> np.ndarray:
-    """Text of each distinct set of rules (see :func:`rule_words`), plus a trailing empty
-    text that code -1 (missing) picks.
+    """Text of each distinct set of rules (the uniques of :func:`code_table`): the ids
+    with their plain-words description, plus a trailing empty text that code -1 picks.
 
     Examples
     --------
@@ -401,6 +389,36 @@ def new_figure(
     fig.axis.axis_label_text_font_style = "normal"
     fig.axis.minor_tick_line_color = None
     return fig
+
+
+def centre_and_limits(
+    fig: figure, source: ColumnDataSource, centre: CDSView, limits: CDSView
+) -> None:
+    """Draw the centre line solid and the limits dashed, from one segments source.
+
+    ``centre`` and ``limits`` pick each one's rows of ``source`` (columns ``x0, y0,
+    x1, y1``). Drawn after the points, so that a dense chart cannot hide them.
+
+    Examples
+    --------
+    >>> fig = new_figure("demo", "A title")
+    >>> src = source("demo_limits", {"x0": [0.0], "y0": [1.0], "x1": [1.0], "y1": [1.0]})
+    >>> centre_and_limits(fig, src, CDSView(), CDSView())
+    >>> [r.glyph.line_dash for r in fig.renderers]
+    ['solid', 'dashed']
+    """
+    for view_, colour, dash in ((centre, CENTER, "solid"), (limits, LIMIT, "dashed")):
+        fig.segment(
+            "x0",
+            "y0",
+            "x1",
+            "y1",
+            source=source,
+            view=view_,
+            line_color=colour,
+            line_width=1.5,
+            line_dash=dash,
+        )
 
 
 def whole_number_ticks(fig: figure) -> None:

@@ -97,7 +97,7 @@ def acf_figure(result: TimeResult) -> LayoutDOM:
         fig.varea(
             x="lag", y1="lower", y2="upper", source=bars, fill_color=theme.BAND, fill_alpha=0.7
         )
-        rects = fig.vbar(x="lag", top=name, width=0.3, source=bars, color=theme.STRATA_COLORS[0])
+        rects = fig.vbar(x="lag", top=name, width=0.3, source=bars, color=theme.POINT)
         fig.add_tools(
             HoverTool(
                 renderers=[rects],

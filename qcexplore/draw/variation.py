@@ -7,7 +7,8 @@ Names (layout / figures / sources and their columns):
   ``"multivari_points"`` (``x, value, subgroup, factor, level, n, color`` + ``panel``
   with several factors) and ``"multivari_line"`` (``x0, y0, x1, y1`` + ``panel``).
   Within each subgroup the level means sit side by side (in level order, the x offset
-  is only for legibility) and are joined by a thin line.
+  is only for legibility) and are joined by a thin line. The result's rows of the
+  subgroup means (``factor == "subgroup"``) are not drawn.
 - :func:`anom_figure`: ``"anom_layout"``, figure ``"anom"``; ``"anom_points"``
   (``x, value, level, lower, upper, p, color``), ``"anom_signals"`` (the levels whose
   mean lies outside its decision limits) and ``"anom_limits"`` (``x0, y0, x1, y1, role,
@@ -30,11 +31,21 @@ from qcexplore.errors import QCDataError
 from qcexplore.stats.results import VariationResult
 
 _DODGE = 0.6  # width of a subgroup's slot taken by its level means
+#: The ``factor`` of the multi-vari rows that hold the subgroup means (not drawn).
+SUBGROUP_MEANS = "subgroup"
 
 
 def _factor_levels(frame: pd.DataFrame) -> list[str]:
     present = set(frame["level"].dropna().astype(str))
     return [str(v) for v in theme.levels_of(frame["level"]) if str(v) in present]
+
+
+def _level_means(result: VariationResult) -> pd.DataFrame:
+    # The rows with factor "subgroup" hold the subgroup means (see
+    # stats.variation.multivari_table), not a factor's levels: a panel of them would
+    # colour hundreds of subgroups with a repeating palette.
+    mv = result.multivari
+    return mv[theme.labels(mv["factor"]) != SUBGROUP_MEANS].reset_index(drop=True)
 
 
 def multivari_spec(result: VariationResult) -> dict[str, Any]:
@@ -50,7 +61,7 @@ def multivari_spec(result: VariationResult) -> dict[str, Any]:
     >>> multivari_spec(r)["panels"]
     ['crew']
     """
-    mv = result.multivari
+    mv = _level_means(result)
     if mv.empty:
         raise QCDataError(
             "multivari: the result holds no level means; ask for "
@@ -78,7 +89,7 @@ def multivari_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str
     >>> multivari_sources(r, multivari_spec(r))["multivari_points"]["x"].tolist()
     [0.85, 1.15]
     """
-    mv = result.multivari
+    mv = _level_means(result)
     sub = mv["subgroup"]
     position = (
         sub.cat.codes.to_numpy()
@@ -305,26 +316,8 @@ def anom_figure(result: VariationResult, factor: str) -> LayoutDOM:
         anom_texts(result, spec)["anom"],
         width=min(theme.WIDTH, max(640, 200 + 80 * len(spec["levels"]))),
     )
-    fig.segment(
-        "x0",
-        "y0",
-        "x1",
-        "y1",
-        source=sources["anom_limits"],
-        view=theme.view(role="center"),
-        line_color=theme.CENTER,
-        line_width=1.5,
-    )
-    fig.segment(
-        "x0",
-        "y0",
-        "x1",
-        "y1",
-        source=sources["anom_limits"],
-        view=theme.view(role="limit"),
-        line_color=theme.LIMIT,
-        line_width=1.5,
-        line_dash="dashed",
+    theme.centre_and_limits(
+        fig, sources["anom_limits"], theme.view(role="center"), theme.view(role="limit")
     )
     dots = fig.scatter(
         "x",
@@ -398,7 +391,7 @@ def components_sources(result: VariationResult, spec: dict[str, Any]) -> dict[st
     comp = result.components
     share = comp["share"].to_numpy(dtype=float)
     names = np.array(spec["sources"], dtype=object)
-    color = np.where(names == "residual", theme.LIMIT, theme.STRATA_COLORS[0]).astype(object)
+    color = np.where(names == "residual", theme.LIMIT, theme.POINT).astype(object)
     return {
         "components_bars": {
             "source": names,

@@ -67,6 +67,15 @@ def anderson_darling_normal(values: np.ndarray) -> tuple[float, float]:
     return float(a2), float(min(max(p, 0.0), 1.0))
 
 
+def _number(name: str, x: object) -> float | None:
+    """``x`` as a float (None stays None); anything that is not a number is a QCDataError."""
+    if x is None:
+        return None
+    if isinstance(x, bool) or not isinstance(x, (int, float, np.integer, np.floating)):
+        raise QCDataError(f"capability: {name}={x!r} is not a number; pass a number or None.")
+    return float(x)
+
+
 def _check_inputs(
     values: np.ndarray,
     lsl: float | None,
@@ -196,9 +205,17 @@ def capability(
     >>> r.indices["index"].tolist()
     ['cpl', 'cpk', 'ppl', 'ppk']
     """
-    x = np.asarray(values, dtype=np.float64).ravel()
-    lsl = None if lsl is None else float(lsl)
-    usl = None if usl is None else float(usl)
+    try:
+        x = np.asarray(values, dtype=np.float64).ravel()
+    except (TypeError, ValueError) as error:
+        raise QCDataError(
+            f"capability: values are not all numbers ({error}); pass the numeric value column."
+        ) from None
+    lsl, usl, target = _number("lsl", lsl), _number("usl", usl), _number("target", target)
+    sigma_within = _number("sigma_within", sigma_within)
+    confidence = _number("confidence", confidence)
+    if confidence is None:
+        raise QCDataError("capability: confidence=None; give a level between 0 and 1, e.g. 0.95.")
     _check_inputs(x, lsl, usl, sigma_within, confidence)
     n = x.size
     mean = float(x.mean())
@@ -267,7 +284,7 @@ def capability(
         normality=normality,
         lsl=lsl,
         usl=usl,
-        target=None if target is None else float(target),
+        target=target,
         mean=mean,
         sigma_within=float("nan") if sigma_within is None else float(sigma_within),
         sigma_overall=sd,

@@ -90,7 +90,8 @@ def gauge_study(
     (MS_PO and MS_E replaced by the pooled mean square when pooled).
     ``pct_study_variation`` = 100 sd / sd_total; ``pct_tolerance`` =
     100 ``study_width`` sd / ``tolerance`` (``study_width`` = 6 standard deviations,
-    common practice; some sites use 5.15); ``ndc`` = floor(1.41 sd_part / sd_gauge).
+    common practice; some sites use 5.15); ``ndc`` = floor(1.41 sd_part / sd_gauge)
+    (infinite when the gauge variance estimate is zero).
 
     Checked against statsmodels ``anova_lm`` (sums of squares, F, p) and a hand
     computation of the expected-mean-square formulas, and against statsmodels MixedLM
@@ -98,7 +99,7 @@ def gauge_study(
     see tests/test_gauge.py.
 
     Raises QCDataError when a part x operator cell is missing, the cells have different
-    numbers of repeats, or there are no repeats.
+    numbers of repeats, there are no repeats, or every value is the same.
 
     Examples
     --------
@@ -110,6 +111,11 @@ def gauge_study(
     >>> g.parts, g.operators, g.repeats, g.ndc >= 5
     (5, 3, 2, True)
     """
+    if not isinstance(frame, pd.DataFrame):
+        raise QCDataError(
+            f"gauge_study: frame is a {type(frame).__name__}; pass a DataFrame with one row "
+            "per measurement (part, operator, value columns)."
+        )
     if value not in frame.columns:
         raise QCDataError(f"value column {value!r} not found; pass the measured column.")
     y = pd.to_numeric(frame[value], errors="coerce").to_numpy(dtype=np.float64)
@@ -119,7 +125,13 @@ def gauge_study(
             f"value column {value!r} is missing or not numeric at rows "
             f"{frame.index[bad[:5]].tolist()}; fix or drop them."
         )
-    if tolerance is not None and not tolerance > 0:
+    if np.ptp(y) == 0.0:
+        raise QCDataError(
+            f"value column {value!r} has the same value in every row: there is no variation "
+            "to split; check the gauge resolution or the column."
+        )
+    number = isinstance(tolerance, (int, float, np.integer, np.floating))
+    if tolerance is not None and (isinstance(tolerance, bool) or not number or not tolerance > 0):
         raise QCDataError(f"tolerance={tolerance!r}: give the width of the specification (> 0).")
     p_codes, p_levels = _codes(frame, part)
     o_codes, o_levels = _codes(frame, operator)

@@ -87,7 +87,8 @@ def stream_onset(
     ----------
     frame : the study frame (internal data contract of ``qcexplore.stats``)
     value, subgroup, factor : column names; ``factor`` must vary within subgroups
-    level : the level whose contrast with the other levels is examined
+    level : the level whose contrast with the other levels is examined, matched by its
+        label (``4`` and ``"4"`` name the same level)
     time : the time column, to report the onset as a time and a ramp per day
     min_points : fewest subgroups on each side of an onset
 
@@ -116,7 +117,11 @@ def stream_onset(
             f"stream_onset: the subgroup column {subgroup!r} must be an ordered categorical "
             "in time order (the Study's frame has one)."
         )
-    if int(min_points) < 1:
+    if (
+        isinstance(min_points, bool)
+        or not isinstance(min_points, (int, np.integer))
+        or min_points < 1
+    ):
         raise QCDataError(f"stream_onset: min_points={min_points!r} must be at least 1.")
     values = pd.to_numeric(frame[value], errors="coerce").to_numpy(dtype=np.float64)
     bad = np.flatnonzero(~np.isfinite(values))
@@ -127,7 +132,9 @@ def stream_onset(
         )
     codes = frame[subgroup].cat.codes.to_numpy()
     k = len(frame[subgroup].cat.categories)
-    is_level = (frame[factor] == level).to_numpy()
+    # Compared as text: findings and tables pass levels as their labels, while the
+    # column's categories may be numbers (nozzle 4 and "4" are the same level).
+    is_level = (frame[factor].astype(str) == str(level)).to_numpy()
     inside = group_moments(values[is_level], codes[is_level], k)
     outside = group_moments(values[~is_level], codes[~is_level], k)
     both = (inside.n > 0) & (outside.n > 0)

@@ -7,7 +7,7 @@ counted with cumulative sums, so the cost is a handful of array passes whatever 
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 
 import numpy as np
 
@@ -60,7 +60,15 @@ def resolve_rules(rules: str | Sequence[str]) -> tuple[str, ...]:
     >>> resolve_rules(["n1", "N5"])
     ('N1', 'N5')
     """
-    items = [rules] if isinstance(rules, str) else list(rules)
+    if isinstance(rules, str):
+        items = [rules]
+    elif isinstance(rules, Iterable):
+        items = list(rules)
+    else:
+        raise QCDataError(
+            f"rules={rules!r}: give a rule-set name ('nelson', 'western_electric'), "
+            "a rule id such as 'N1', or a sequence of them."
+        )
     out: list[str] = []
     for item in items:
         if not isinstance(item, str):

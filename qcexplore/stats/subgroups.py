@@ -76,7 +76,8 @@ def group_moments(
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.bincount(codes, weights=values, minlength=n_groups) / n
     deviation = values - mean[codes]
-    ss = np.bincount(codes, weights=deviation * deviation, minlength=n_groups)
+    # float64 explicitly: bincount returns integers when there are no values at all.
+    ss = np.bincount(codes, weights=deviation * deviation, minlength=n_groups).astype(np.float64)
     ss[n == 0] = np.nan
     low = np.full(n_groups, np.nan)
     high = np.full(n_groups, np.nan)
@@ -104,6 +105,9 @@ def subgroup_table(
     ``frame[subgroup]`` must be a Categorical whose category order is the time
     order; empty categories are dropped. A factor appears in the table only if it
     takes a single value within every subgroup.
+
+    Checked against pandas ``groupby`` (count, mean, std, max - min) in
+    tests/test_subgroups.py and tests/test_study.py.
 
     Examples
     --------

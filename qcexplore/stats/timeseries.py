@@ -29,6 +29,11 @@ _EWMA_L = 3.0
 
 
 def _validate(series: pd.DataFrame) -> np.ndarray:
+    if not isinstance(series, pd.DataFrame):
+        raise QCDataError(
+            f"time_structure: series is a {type(series).__name__}; pass a DataFrame with "
+            "columns subgroup, start, mean, n (for instance Study.series())."
+        )
     missing = [c for c in ("subgroup", "start", "mean", "n") if c not in series.columns]
     if missing:
         raise QCDataError(
@@ -192,12 +197,14 @@ def _long_run_sd(x: np.ndarray, cuts: np.ndarray) -> tuple[float, float]:
     e = x - means[seg]
     ss = float(np.sum(e * e))
     same = seg[1:] == seg[:-1]
+    d = np.diff(x)
+    if not np.any(d[same]):  # every segment flat (exactly): no noise, no long-run variance
+        return 0.0, 0.0
     n, segments = x.size, cuts.size - 1
     r1 = float(np.sum((e[1:] * e[:-1])[same]) / ss)
     # Removing each segment's mean biases r1 by about -(1 + 3 phi) / length
     # (Marriott and Pope 1954, from memory); solved for phi over all segments.
     phi_levels = (n * r1 + segments) / (n - 3.0 * segments)
-    d = np.diff(x)
     pairs = same[1:] & same[:-1]
     r_d = float(np.sum((d[1:] * d[:-1])[pairs]) / np.sum(d[same] ** 2))
     phi_diff = 1.0 + 2.0 * r_d
@@ -223,6 +230,10 @@ def _cusum_test(x: np.ndarray, cuts: list[int], a: int, b: int) -> tuple[float, 
     allowed = (k >= _MIN_SIDE) & (m - k >= _MIN_SIDE)
     split = int(k[allowed][np.argmax(lr[allowed])])
     sd, _ = _long_run_sd(x, np.array(sorted({0, x.size, a + split, *cuts})))
+    if sd == 0.0:
+        # Noise-free: the split leaves flat segments, so a segment that is not flat is an
+        # exact step and a flat one has none.
+        return (0.0 if np.ptp(part) > 0 else 1.0), split
     # Max |bridge| / (sd sqrt(m)) tends to sup|Brownian bridge| (Kolmogorov distribution).
     p = float(stats.kstwobign.sf(np.max(np.abs(bridge)) / (sd * math.sqrt(m))))
     return p, split
@@ -425,14 +436,18 @@ def time_structure(
     del seed  # deterministic methods only; see the docstring
     x = _validate(series)
     n = x.size
-    if not 0.0 < alpha < 1.0:
+    if not isinstance(alpha, (int, float, np.integer, np.floating)) or not 0.0 < alpha < 1.0:
         raise QCDataError(f"time_structure: alpha={alpha!r} must lie between 0 and 1.")
     top = max(1, n // 2 - 1)
     if max_lag is None:
         max_lag = max(1, min(int(10 * math.log10(n)), top))
-    elif not 1 <= int(max_lag) <= top:
+    elif (
+        isinstance(max_lag, bool)
+        or not isinstance(max_lag, (int, np.integer))
+        or not 1 <= max_lag <= top
+    ):
         raise QCDataError(
-            f"time_structure: max_lag={max_lag} must lie between 1 and {top} "
+            f"time_structure: max_lag={max_lag!r} must be a whole number between 1 and {top} "
             f"(half the {n} points minus one)."
         )
     max_lag = int(max_lag)

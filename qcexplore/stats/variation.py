@@ -484,7 +484,9 @@ def _anova(d: _Design) -> pd.DataFrame:
         if d.n - cm.n.size > 0:
             cells_ss, cells_df = float(np.nansum(cm.ss)), d.n - cm.n.size
     residual = (cells_ss, cells_df) if cells_ss is not None else (resid_ss, resid_df)
-    error_w = (residual[0] / residual[1], residual[1], "within subgroups")
+    # No residual degrees of freedom left (the within factors use them all): no F tests.
+    error_ms = residual[0] / residual[1] if residual[1] > 0 else float("nan")
+    error_w = (error_ms, residual[1], "within subgroups")
     rows.append(_f_row("subgroup", sg_ss, sg_df, error_w))
     for f, (ss, df) in zip(d.within, parts_w, strict=True):
         rows.append(_f_row(f.name, ss, df, error_w))
@@ -544,10 +546,12 @@ def _moment_components(d: _Design, anova: pd.DataFrame, level: float) -> tuple[l
     else:
         pooled = ["residual", *interaction]
         e_df = sum(dfs[s] for s in pooled)
-        e_ms = sum(table.loc[s, "ss"] for s in pooled) / e_df
+        e_ms = sum(table.loc[s, "ss"] for s in pooled) / e_df if e_df > 0 else float("nan")
 
     def n0(counts: np.ndarray) -> float:
         counts = counts[counts > 0]
+        if counts.size < 2:  # one level: no variance between levels to estimate
+            return float("nan")
         return (counts.sum() - np.sum(counts**2) / counts.sum()) / (counts.size - 1)
 
     sg_ms, sg_df = (ms["subgroup"], dfs["subgroup"]) if "subgroup" in ms else (e_ms, e_df)
@@ -1096,6 +1100,11 @@ def adjusted_values(frame: pd.DataFrame, *, value: str, offsets: pd.DataFrame) -
     [11.0, 11.0]
     """
     y = _values(frame, value).copy()
+    if not isinstance(offsets, pd.DataFrame):
+        raise QCDataError(
+            f"offsets is a {type(offsets).__name__}; pass the table from measurement_offsets()."
+        )
+    _check_columns(offsets, ["factor", "level", "offset"], "offsets")
     for name, table in offsets.groupby("factor", sort=False):
         _check_columns(frame, [name], "offset factor")
         lookup = dict(zip(table["level"].astype(str), table["offset"], strict=True))
@@ -1124,7 +1133,7 @@ def multivari_table(
     (subgroup, level) cell that has data; then one row per subgroup with
     ``factor == "subgroup"`` and ``level`` the subgroup's label (the subgroup mean).
     ``subgroup`` keeps the ordered categories of the input (time order); ``level`` is
-    text.
+    text. Checked against pandas ``groupby`` means and sizes (tests/test_variation.py).
 
     Examples
     --------
@@ -1282,6 +1291,12 @@ def variation(
     notes += [f"offsets of {m!r}: {text}." for m, text in confounded.items()]
     if d.single:
         notes.append("single values: subgroup-to-subgroup and residual variation coincide.")
+    if (anova.loc[anova["source"] == "residual", "df"] <= 0).all():
+        notes.append(
+            "no degrees of freedom are left for the residual (the factors have about one "
+            "value per level): F tests and variance components are undefined (NaN); "
+            "collect repeats within the levels."
+        )
     return VariationResult(
         structure=d.structure,
         anova=anova,
