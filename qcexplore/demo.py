@@ -31,6 +31,18 @@ CREWS = ("A", "B", "C")
 SHIFTS = {"early": "06:00", "late": "14:00", "night": "22:00"}
 NOZZLES = ("1", "2", "3", "4", "5", "6")
 START = pd.Timestamp("2026-09-07 06:00")  # a Monday, away from daylight-saving changes
+#: The roles of the demo's columns, as ``qx.Study(frame, **ROLES)`` takes them: the hourly
+#: round is the subgroup, the crew (with its own scale) describes how jars were weighed, and
+#: the label's 500 g is the lower specification limit.
+ROLES: dict[str, Any] = {
+    "value": "net_g",
+    "subgroup": "round",
+    "time": "taken_at",
+    "factors": ["crew", "shift", "nozzle"],
+    "measured_by": ["crew"],
+    "spec": {"lsl": 500.0},
+    "units": "g",
+}
 
 
 def filling_line(

@@ -171,8 +171,14 @@ class Study:
                 f"Column {subgroup!r} (the subgroup) is empty in {row_list(data.index[absent])}; "
                 "fill it in or leave those rows out."
             )
-        order = pd.unique(labels.to_numpy())
-        data[subgroup] = pd.Categorical(labels.to_numpy(), categories=order, ordered=True)
+        try:
+            order = pd.unique(labels.to_numpy())
+            data[subgroup] = pd.Categorical(labels.to_numpy(), categories=order, ordered=True)
+        except TypeError:  # unhashable cells (lists, dicts) cannot name a subgroup
+            raise QCDataError(
+                f"Column {subgroup!r} (the subgroup) holds cells that are not single labels "
+                "(lists or tables); give each row one label such as a date, an hour or a lot."
+            ) from None
         codes = data[subgroup].cat.codes.to_numpy()
         return data.iloc[np.argsort(codes, kind="stable")].reset_index(drop=True)
 

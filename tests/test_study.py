@@ -133,3 +133,9 @@ def test_capability_uses_the_chart_sigma_and_spec(demo_study) -> None:
     assert set(result.indices["index"]) >= {"cpk", "ppk"}
     with pytest.raises(QCDataError, match="specification"):
         qx.Study(demo_study.data, value="net_g", subgroup="round").capability()
+
+
+def test_subgroup_cells_that_are_not_labels_are_refused() -> None:
+    frame = pd.DataFrame({"w": [1.0, 2.0], "lot": pd.Series([["a"], ["b"]], dtype=object)})
+    with pytest.raises(QCDataError, match="not single labels"):
+        qx.Study(frame, value="w", subgroup="lot")

@@ -33,6 +33,8 @@ from importlib.resources import files
 from pathlib import Path
 from typing import Any
 
+from qcexplore.demo import ROLES as DEMO_ROLES
+from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
 from qcexplore.study import Study
 
@@ -42,16 +44,6 @@ CONFIG_ENV = "QCEXPLORE_APP_CONFIG"
 NOTEBOOK = "app.ipynb"
 _STUDY_FILE = "study.pickle"
 _CONFIG_FILE = "app.json"
-#: The roles of the built-in demo (qcexplore.demo.filling_line).
-DEMO_ROLES: dict[str, Any] = {
-    "value": "net_g",
-    "subgroup": "round",
-    "time": "taken_at",
-    "factors": ["crew", "shift", "nozzle"],
-    "measured_by": ["crew"],
-    "spec": {"lsl": 500.0},
-    "units": "g",
-}
 DEMO_TITLE = "Demo: honey filling line (seed {seed})"
 
 
@@ -154,15 +146,13 @@ def write_app_folder(study: Study, folder: Path, settings: AppSettings | None = 
 def demo_study(seed: int = 0, **roles: Any) -> Study:
     """The Study of the built-in demo (``qcexplore.demo.filling_line``) in its roles.
 
-    ``roles`` override :data:`DEMO_ROLES`.
+    ``roles`` override the demo's roles (``qcexplore.demo.ROLES``).
 
     Examples
     --------
     >>> demo_study().measured_by
     ('crew',)
     """
-    from qcexplore.demo import filling_line
-
     return Study(filling_line(seed=seed)[0], **{**DEMO_ROLES, **roles})
 
 
