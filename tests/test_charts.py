@@ -480,22 +480,25 @@ def _bad(frame: pd.DataFrame, match: str, **kw: object) -> None:
 
 
 def test_bad_input_raises_clear_errors(plant, crews):
-    _bad(plant.assign(x=plant.x.astype(str)), "value='x'.*not numbers")
+    _bad(plant.assign(x=plant.x.astype(str)), "'x' given as value.*not numbers.*rows 1, 2")
     _bad(plant, "kind='pie'", kind="pie")
     _bad(plant, "sigma_level", sigma_level=0)
     _bad(plant, "sigma_level", sigma_level=-1.0)
     _bad(plant, "per_stratum.*by=", limits="per_stratum")
-    _bad(plant, "no such column", by="nope")
+    _bad(plant, "'nope' given as by not found", by="nope")
     one = crews.copy()
     one["crew"] = pd.Categorical(np.where(np.arange(240) % 6 == 0, "C", "A"))
     _bad(one, "stratum 'C'.*two or more", kind="xbar_r", by="crew", limits="per_stratum")
     counts = pd.DataFrame({"sg": [1, 1, 2, 2], "x": [1.0, 2.0, 3.0, 0.0], "m": [5, 5, 2, 5]})
     _bad(counts, "needs size=", kind="p")
-    _bad(counts, "more defectives than inspected.*rows 2", kind="p", size="m")
-    _bad(counts.assign(x=[1.0, -1.0, 0.0, 0.0]), "negative counts in rows 1", kind="c")
+    _bad(counts, "more defectives than inspected.*row 3", kind="p", size="m")
+    _bad(counts.assign(x=[1.0, -1.0, 0.0, 0.0]), "negative counts in row 2", kind="c")
     _bad(counts, "laney", kind="c", laney=True)
     _bad(plant, "imr.*several", kind="imr")
-    _bad(plant.assign(x=np.r_[np.nan, plant.x.iloc[1:]]), "missing or infinite")
+    _bad(
+        plant.assign(x=np.r_[np.nan, plant.x.iloc[1:]]),
+        "'x' given as value: missing or infinite.*row 1;",
+    )
     _bad(plant, "iterate", kind="ewma", iterate=True)
     _bad(plant, "sigma=", sigma=-1.0)
 

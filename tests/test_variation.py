@@ -862,3 +862,56 @@ def test_any_small_layout_gives_valid_tables(sizes, levels, seed, constant, comp
     share = r.components["share"]
     assert share.isna().all() or share.sum() == pytest.approx(1.0)
     assert set(r.structure["relation"]) <= {"within_subgroup", "between_subgroups", "confounded"}
+
+
+# ------------------------------------------------------------- note on one-factor comparisons
+
+
+def test_demo_notes_that_level_comparisons_ignore_the_other_factors():
+    # The demo: crew B works the late shift more often, so 'late' stands out in ANOM
+    # while the Type II ANOVA, which adjusts shift for crew, finds no shift effect.
+    from qcexplore.demo import filling_line
+    from qcexplore.study import Study
+
+    frame, _ = filling_line()
+    study = Study(
+        frame,
+        value="net_g",
+        subgroup="round",
+        time="taken_at",
+        factors=["crew", "shift", "nozzle"],
+        measured_by=["crew"],
+    )
+    r = study.variation()
+    assert _row(r.anova, "shift")["p"] > 0.5
+    tukey = r.comparisons["shift"].query("test == 'tukey' and level == 'late'")
+    assert (tukey["lower"] > 0).any()  # yet on its own 'late' differs from another shift
+    notes = [n for n in r.notes if "level comparisons" in n]
+    assert len(notes) == 1
+    assert "'crew' and 'shift'" in notes[0] and "ANOVA" in notes[0]
+    assert "nozzle" not in notes[0]  # nozzles are balanced against crews and shifts
+    # Cramer's V as printed, from scipy.stats.contingency.association on the same table.
+    v = stats.contingency.association(pd.crosstab(frame["crew"], frame["shift"]).to_numpy())
+    assert f"Cramer's V = {v:.2f}" in notes[0]
+
+
+def test_no_comparison_note_for_crossed_or_single_factors():
+    rng = np.random.default_rng(5)
+    a, b = np.meshgrid(["x", "y", "z"], ["p", "q"], indexing="ij")
+    f = pd.DataFrame(
+        {
+            "a": pd.Categorical(np.tile(a.ravel(), 4)),
+            "b": pd.Categorical(np.tile(b.ravel(), 4)),
+            "y": rng.normal(size=24),
+            "sg": pd.Categorical(np.arange(24), ordered=True),
+        }
+    )
+    both = variation(f, value="y", subgroup="sg", factors=["a", "b"])
+    assert not any("level comparisons" in n for n in both.notes)
+    f["c"] = pd.Categorical(np.where(f["a"] == "x", "u", np.where(f["b"] == "p", "u", "v")))
+    linked = variation(f, value="y", subgroup="sg", factors=["a", "c"])
+    assert any("'a' and 'c'" in n for n in linked.notes)
+    alone = variation(f, value="y", subgroup="sg", factors=["c"])
+    assert not any("level comparisons" in n for n in alone.notes)
+    unasked = variation(f, value="y", subgroup="sg", factors=["a", "c"], compare=False)
+    assert not any("level comparisons" in n for n in unasked.notes)

@@ -6,6 +6,7 @@ table the user gave) and what to do.
 
 from __future__ import annotations
 
+import numbers
 import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
@@ -277,3 +278,134 @@ def check_role_names(
     repeated = sorted({f for f in factors if list(factors).count(f) > 1})
     if repeated:
         raise QCDataError(f"Factors {repeated} are listed more than once; list each once.")
+
+
+def _is_missing(cell: object) -> bool:
+    return cell is None or cell is pd.NA or cell is pd.NaT
+
+
+def _not_numbers(cells: np.ndarray) -> np.ndarray:
+    """Positions of cells that are neither a real number nor missing (text, true/false, ...)."""
+    return np.flatnonzero(
+        [
+            not _is_missing(v)
+            and (isinstance(v, (bool, np.bool_)) or not isinstance(v, numbers.Real))
+            for v in cells
+        ]
+    )
+
+
+def _cell_float(cell: object) -> float:
+    if _is_missing(cell):
+        return np.nan
+    try:
+        return float(cell)
+    except OverflowError:  # a Python integer beyond the float range
+        return np.inf
+
+
+def _finite(values: pd.Series | np.ndarray, subject: str) -> np.ndarray:
+    """Shared body of finite_column and finite_array; ``subject`` starts every message."""
+    dtype = values.dtype
+    if pd.api.types.is_bool_dtype(dtype):
+        raise QCDataError(
+            f"{subject}: true/false values, not measurements; "
+            "choose the column with the measured values."
+        )
+    if not (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_complex_dtype(dtype)):
+        cells = np.asarray(values, dtype=object).ravel()
+        odd = _not_numbers(cells)
+        if odd.size:
+            examples = ", ".join(repr(cells[i]) for i in odd[:3])
+            raise QCDataError(
+                f"{subject}: cells that are not numbers ({examples}) in {row_list(odd)}; convert "
+                "them to numbers first (for instance with pd.to_numeric, or read files with "
+                "qx.read)."
+            )
+        values = np.array([_cell_float(v) for v in cells], dtype=np.float64)
+    if isinstance(values, pd.Series):
+        array = values.to_numpy(dtype=np.float64, na_value=np.nan)
+    else:
+        array = np.asarray(values, dtype=np.float64).ravel()
+    bad = np.flatnonzero(~np.isfinite(array))
+    if bad.size:
+        raise QCDataError(
+            f"{subject}: missing or infinite values in {row_list(bad)}; "
+            "drop or fill those rows first."
+        )
+    return array
+
+
+def finite_column(frame: pd.DataFrame, column: str, role: str) -> np.ndarray:
+    """A numeric column as a float64 array, or a QCDataError naming what is wrong.
+
+    The column must exist, hold numbers (not true/false, not text) and have no missing
+    or infinite values. Rows in messages are 1-based positions in ``frame`` (the
+    Study's frame keeps the order of the table the user gave, so its positions are
+    the user's rows).
+
+    Parameters
+    ----------
+    frame : the table
+    column : name of the column
+    role : what the column is used as (``"value"``, ``"size"``, ...), named in messages
+
+    Returns
+    -------
+    numpy.ndarray
+        The column as float64, one entry per row.
+
+    Examples
+    --------
+    >>> finite_column(pd.DataFrame({"w": [500, 501.5]}), "w", "value")
+    array([500. , 501.5])
+    >>> finite_column(pd.DataFrame({"w": [500.0, np.nan]}), "w", "value")
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: Column 'w' given as value: missing or infinite values in \
+row 2; drop or fill those rows first.
+    """
+    require_columns(frame, [column], role)
+    return _finite(frame[column], f"Column {column!r} given as {role}")
+
+
+def finite_array(values: object, role: str) -> np.ndarray:
+    """Numbers passed as an array or list, as a flat float64 array, or a QCDataError.
+
+    The same checks as :func:`finite_column` for functions that take values rather
+    than a table: numbers only (no true/false, no text) and all finite. Rows in
+    messages are 1-based positions in ``values``.
+
+    Parameters
+    ----------
+    values : array, list or Series of numbers
+    role : what the values are (for instance ``"capability values"``), named in messages
+
+    Returns
+    -------
+    numpy.ndarray
+        The values as a 1-d float64 array.
+
+    Examples
+    --------
+    >>> finite_array([1, 2.5], "capability values")
+    array([1. , 2.5])
+    >>> finite_array([1.0, "a"], "capability values")
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: capability values: cells that are not numbers ('a') in row 2; \
+convert them to numbers first (for instance with pd.to_numeric, or read files with qx.read).
+    """
+    if not isinstance(values, (pd.Series, np.ndarray)):
+        # As objects each cell keeps its own type: [1.0, "a"] or [True, 1] would be cast.
+        values = _object_array(values)
+    return _finite(values, role)
+
+
+def _object_array(values: object) -> np.ndarray:
+    """A flat object array of the given cells (a scalar is one cell)."""
+    if isinstance(values, (str, bytes)) or not np.iterable(values):
+        values = [values]
+    cells = np.empty(len(values), dtype=object)
+    cells[:] = list(values)
+    return cells

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from qcexplore.data.validate import finite_array
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import CapabilityResult
 
@@ -94,12 +95,6 @@ def _check_inputs(
     if lsl is not None and usl is not None and lsl >= usl:
         raise QCDataError(
             f"capability: lsl={lsl} is not below usl={usl}; check the order of the limits."
-        )
-    bad = np.flatnonzero(~np.isfinite(values))
-    if bad.size:
-        raise QCDataError(
-            f"capability: values contain NaN or infinite entries at positions "
-            f"{bad[:5].tolist()}; drop or correct those rows first."
         )
     if values.size < _MIN_VALUES:
         raise QCDataError(
@@ -205,12 +200,7 @@ def capability(
     >>> r.indices["index"].tolist()
     ['cpl', 'cpk', 'ppl', 'ppk']
     """
-    try:
-        x = np.asarray(values, dtype=np.float64).ravel()
-    except (TypeError, ValueError) as error:
-        raise QCDataError(
-            f"capability: values are not all numbers ({error}); pass the numeric value column."
-        ) from None
+    x = finite_array(values, "capability values")
     lsl, usl, target = _number("lsl", lsl), _number("usl", usl), _number("target", target)
     sigma_within = _number("sigma_within", sigma_within)
     confidence = _number("confidence", confidence)

@@ -41,11 +41,11 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Hashable, Sequence
 from dataclasses import dataclass
-from typing import NoReturn
 
 import numpy as np
 import pandas as pd
 
+from qcexplore.data.validate import finite_column, require_columns, row_list
 from qcexplore.errors import QCDataError
 from qcexplore.stats.constants import c4, d2, d3
 from qcexplore.stats.results import ChartResult
@@ -117,38 +117,10 @@ def _fit(
     return _Fit(stat, center, se, lcl, ucl, sigma, t_n, t_center, t_se, t_lcl, t_ucl)
 
 
-def _fail(message: str) -> NoReturn:
-    raise QCDataError(message)
-
-
-def _rows(mask: np.ndarray, frame: pd.DataFrame) -> str:
-    return ", ".join(map(str, frame.index[np.flatnonzero(mask)[:5]].tolist()))
-
-
-def _numeric(frame: pd.DataFrame, column: str, role: str) -> np.ndarray:
-    if column not in frame.columns:
-        _fail(f"{role}={column!r}: no such column; columns are {list(frame.columns)}.")
-    col = frame[column]
-    if not pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col):
-        _fail(
-            f"{role}={column!r}: the column holds {col.dtype} values, not numbers; "
-            "convert it to numbers (e.g. pd.to_numeric) before charting."
-        )
-    values = col.to_numpy(dtype=np.float64, na_value=np.nan)
-    bad = ~np.isfinite(values)
-    if bad.any():
-        _fail(
-            f"{role}={column!r}: missing or infinite values in rows {_rows(bad, frame)}; "
-            "drop or fill them first."
-        )
-    return values
-
-
 def _categorical(
     frame: pd.DataFrame, column: str, role: str, *, in_time_order: bool
 ) -> pd.Categorical:
-    if column not in frame.columns:
-        _fail(f"{role}={column!r}: no such column; columns are {list(frame.columns)}.")
+    require_columns(frame, [column], role)
     col = frame[column]
     if isinstance(col.dtype, pd.CategoricalDtype):
         cat = col.array
@@ -161,7 +133,9 @@ def _categorical(
         cat = pd.Categorical(col)
     missing = np.asarray(cat.codes) < 0
     if missing.any():
-        _fail(f"{role}={column!r}: missing labels in rows {_rows(missing, frame)}; fill them.")
+        raise QCDataError(
+            f"{role}={column!r}: missing labels in {row_list(np.flatnonzero(missing))}; fill them."
+        )
     return cat
 
 
@@ -262,7 +236,7 @@ def _require(ok: np.ndarray, points: _Points, what: str) -> None:
     bad = np.flatnonzero(~np.asarray(ok))
     if bad.size:
         where = ", ".join(_stratum_name(points, int(s)) for s in bad[:5])
-        _fail(f"{where}: {what}")
+        raise QCDataError(f"{where}: {what}")
 
 
 def _limits_from(
@@ -438,34 +412,42 @@ def _attribute_inputs(
 ) -> np.ndarray | None:
     negative = counts < 0
     if negative.any():
-        _fail(f"value={value!r}: negative counts in rows {_rows(negative, frame)}.")
+        raise QCDataError(
+            f"value={value!r}: negative counts in {row_list(np.flatnonzero(negative))}; "
+            "counts are zero or more."
+        )
     broken = counts != np.round(counts)
     if broken.any():
-        _fail(
-            f"value={value!r}: a {kind} chart needs whole-number counts; rows "
-            f"{_rows(broken, frame)} are not."
+        raise QCDataError(
+            f"value={value!r}: a {kind} chart needs whole-number counts; "
+            f"{row_list(np.flatnonzero(broken))} are not."
         )
     if kind == "c":
         if size is not None:
-            _fail("size= is not used by c charts (a count per subgroup); use kind='u' for counts "
-                  "per unit with a size column.")  # fmt: skip
+            raise QCDataError(
+                "size= is not used by c charts (a count per subgroup); use kind='u' for counts "
+                "per unit with a size column."
+            )
         return None
     if size is None:
-        _fail(
+        raise QCDataError(
             f"kind={kind!r} needs size= (the column with the number inspected per row); "
             "use kind='c' for plain counts per subgroup."
         )
-    sizes = _numeric(frame, size, "size")
+    sizes = finite_column(frame, size, "size")
     empty = sizes <= 0
     if empty.any():
-        _fail(f"size={size!r}: zero or negative numbers inspected in rows {_rows(empty, frame)}.")
+        raise QCDataError(
+            f"size={size!r}: zero or negative numbers inspected in "
+            f"{row_list(np.flatnonzero(empty))}; give the number of items inspected."
+        )
     if kind in ("p", "np"):
         over = counts > sizes
         if over.any():
-            _fail(
-                f"value={value!r}: more defectives than inspected (size={size!r}) in rows "
-                f"{_rows(over, frame)}; a {kind} chart counts defective items among those "
-                "inspected (use kind='u' for defects per unit)."
+            raise QCDataError(
+                f"value={value!r}: more defectives than inspected (size={size!r}) in "
+                f"{row_list(np.flatnonzero(over))}; a {kind} chart counts defective items among "
+                "those inspected (use kind='u' for defects per unit)."
             )
     return sizes
 
@@ -672,11 +654,10 @@ def _limits_table(points: _Points, fit: _Fit, methods: list[str]) -> pd.DataFram
 
 
 def _starts(frame: pd.DataFrame, time: str, points: _Points) -> pd.Series:
-    if time not in frame.columns:
-        _fail(f"time={time!r}: no such column; columns are {list(frame.columns)}.")
+    require_columns(frame, [time], "time")
     col = frame[time]
     if not (pd.api.types.is_datetime64_any_dtype(col) or pd.api.types.is_numeric_dtype(col)):
-        _fail(f"time={time!r}: expected timestamps or numbers, got {col.dtype}.")
+        raise QCDataError(f"time={time!r}: expected timestamps or numbers, got {col.dtype}.")
     return col.groupby(points.row_point, sort=True).min().reset_index(drop=True)
 
 
@@ -696,32 +677,36 @@ def _check_arguments(
     laney: bool, iterate: bool,
 ) -> None:  # fmt: skip
     if kind not in KINDS:
-        _fail(f"kind={kind!r}: unknown chart; use one of {', '.join(KINDS)}.")
+        raise QCDataError(f"kind={kind!r}: unknown chart; use one of {', '.join(KINDS)}.")
     if limits not in LIMIT_MODES:
-        _fail(f"limits={limits!r}: use 'pooled' or 'per_stratum'.")
+        raise QCDataError(f"limits={limits!r}: use 'pooled' or 'per_stratum'.")
     if limits == "per_stratum" and by is None:
-        _fail("limits='per_stratum' needs by= (the factor whose levels get their own limits).")
+        raise QCDataError(
+            "limits='per_stratum' needs by= (the factor whose levels get their own limits)."
+        )
     if sigma_method not in SIGMA_METHODS:
-        _fail(f"sigma_method={sigma_method!r}: use one of {', '.join(SIGMA_METHODS)}.")
+        raise QCDataError(f"sigma_method={sigma_method!r}: use one of {', '.join(SIGMA_METHODS)}.")
 
     def number(x: object) -> bool:
         return isinstance(x, (int, float, np.number)) and not isinstance(x, bool) and np.isfinite(x)
 
     for name, val in (("sigma_level", sigma_level), ("L", L), ("h", h)):
         if not (number(val) and val > 0):
-            _fail(f"{name}={val!r}: must be a positive number (e.g. 3).")
+            raise QCDataError(f"{name}={val!r}: must be a positive number (e.g. 3).")
     if not (number(lam) and 0 < lam <= 1):
-        _fail(f"lam={lam!r}: the EWMA weight must lie in (0, 1], e.g. 0.2.")
+        raise QCDataError(f"lam={lam!r}: the EWMA weight must lie in (0, 1], e.g. 0.2.")
     if not (number(k) and k >= 0):
-        _fail(f"k={k!r}: the CUSUM reference value must be a number >= 0 (e.g. 0.5).")
+        raise QCDataError(f"k={k!r}: the CUSUM reference value must be a number >= 0 (e.g. 0.5).")
     if center is not None and not number(center):
-        _fail(f"center={center!r}: must be a finite number or None.")
+        raise QCDataError(f"center={center!r}: must be a finite number or None.")
     if sigma is not None and not (number(sigma) and sigma > 0):
-        _fail(f"sigma={sigma!r}: must be a positive number (the sd of single values) or None.")
+        raise QCDataError(
+            f"sigma={sigma!r}: must be a positive number (the sd of single values) or None."
+        )
     if laney and kind not in ("p", "u"):
-        _fail(f"laney=True is for p and u charts (Laney p' and u'), not kind={kind!r}.")
+        raise QCDataError(f"laney=True is for p and u charts (Laney p' and u'), not kind={kind!r}.")
     if iterate and kind in ("ewma", "cusum"):
-        _fail(
+        raise QCDataError(
             f"iterate=True is for Shewhart and attribute charts, not kind={kind!r}; "
             "estimate the limits on a clean period with exclude= instead."
         )
@@ -734,7 +719,7 @@ def _exclude_mask(exclude: Sequence[Hashable], points: _Points) -> tuple[np.ndar
     codes = points.sub_labels.get_indexer(pd.Index(labels))
     unknown = [lab for lab, c in zip(labels, codes, strict=True) if c < 0]
     if unknown:
-        _fail(
+        raise QCDataError(
             f"exclude: unknown subgroup label(s) {unknown[:5]!r}; use labels of the subgroup "
             f"column, e.g. {list(points.sub_labels[:3])!r}."
         )
@@ -858,9 +843,9 @@ def control_chart(
         kind, limits, by, sigma_level, sigma_method, center, sigma, lam, L, k, h, laney, iterate
     )
     if len(frame) == 0:
-        _fail("frame: no rows to chart.")
+        raise QCDataError("frame: no rows to chart.")
     ids = resolve_rules(rules)
-    values = _numeric(frame, value, "value")
+    values = finite_column(frame, value, "value")
     per_stratum = limits == "per_stratum"
     points = _point_codes(frame, subgroup, by, per_stratum)
     n_points = points.sub.size
@@ -881,7 +866,7 @@ def control_chart(
 
     if attribute:
         if sigma is not None or sigma_method != "within":
-            _fail(
+            raise QCDataError(
                 f"sigma= and sigma_method= are for variables charts; {kind} charts take their "
                 "sigma from the binomial or Poisson model (laney=True for over-dispersion)."
             )
@@ -900,11 +885,11 @@ def control_chart(
 
     else:
         if size is not None:
-            _fail(f"size= is for p, np and u charts, not kind={kind!r}.")
+            raise QCDataError(f"size= is for p, np and u charts, not kind={kind!r}.")
         moments = m = group_moments(values, points.row_point, n_points)
         if kind == "imr" and np.any(m.n > 1):
             worst = np.flatnonzero(m.n > 1)[:5]
-            _fail(
+            raise QCDataError(
                 f"kind='imr' needs one value per point, but subgroup(s) "
                 f"{points.sub_labels[points.sub[worst]].tolist()!r} hold several; use "
                 "kind='xbar_r' (or sigma_method='between_means' for a chart of the means)."
@@ -915,7 +900,7 @@ def control_chart(
         else:
             base = "moving_range" if typical_n == 1 else "range" if typical_n <= 9 else "sd"
         if base == "moving_range" and np.any(m.n > 1):
-            _fail(
+            raise QCDataError(
                 f"kind={kind!r}: most subgroups hold one value, but some hold several; chart "
                 "individual values (one per subgroup) or use larger subgroups throughout."
             )

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from qcexplore.data.validate import finite_column, require_columns
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import _Result
 from qcexplore.stats.subgroups import group_moments
@@ -56,10 +57,6 @@ class GaugeResult(_Result):
 
 
 def _codes(frame: pd.DataFrame, name: str) -> tuple[np.ndarray, pd.Index]:
-    if name not in frame.columns:
-        raise QCDataError(
-            f"column {name!r} not found; the frame has columns {list(frame.columns)[:12]}."
-        )
     column = frame[name]
     if column.isna().any():
         rows = frame.index[column.isna().to_numpy()][:5].tolist()
@@ -116,15 +113,9 @@ def gauge_study(
             f"gauge_study: frame is a {type(frame).__name__}; pass a DataFrame with one row "
             "per measurement (part, operator, value columns)."
         )
-    if value not in frame.columns:
-        raise QCDataError(f"value column {value!r} not found; pass the measured column.")
-    y = pd.to_numeric(frame[value], errors="coerce").to_numpy(dtype=np.float64)
-    bad = np.flatnonzero(~np.isfinite(y))
-    if bad.size:
-        raise QCDataError(
-            f"value column {value!r} is missing or not numeric at rows "
-            f"{frame.index[bad[:5]].tolist()}; fix or drop them."
-        )
+    require_columns(frame, [part], "part")
+    require_columns(frame, [operator], "operator")
+    y = finite_column(frame, value, "value")
     if np.ptp(y) == 0.0:
         raise QCDataError(
             f"value column {value!r} has the same value in every row: there is no variation "

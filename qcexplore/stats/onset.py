@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from qcexplore.data.validate import finite_column, require_columns
 from qcexplore.errors import QCDataError
 from qcexplore.stats.subgroups import group_moments
 
@@ -109,9 +110,7 @@ def stream_onset(
     40
     """
     needed = [c for c in (value, subgroup, factor, time) if c is not None]
-    missing = [c for c in needed if c not in frame.columns]
-    if missing:
-        raise QCDataError(f"stream_onset: column(s) {missing} not found; pass existing columns.")
+    require_columns(frame, needed, "a stream_onset column")
     if not isinstance(frame[subgroup].dtype, pd.CategoricalDtype):
         raise QCDataError(
             f"stream_onset: the subgroup column {subgroup!r} must be an ordered categorical "
@@ -123,13 +122,7 @@ def stream_onset(
         or min_points < 1
     ):
         raise QCDataError(f"stream_onset: min_points={min_points!r} must be at least 1.")
-    values = pd.to_numeric(frame[value], errors="coerce").to_numpy(dtype=np.float64)
-    bad = np.flatnonzero(~np.isfinite(values))
-    if bad.size:
-        raise QCDataError(
-            f"stream_onset: value column {value!r} is not a finite number at rows "
-            f"{frame.index[bad[:5]].tolist()}; drop or fix those rows first."
-        )
+    values = finite_column(frame, value, "value")
     codes = frame[subgroup].cat.codes.to_numpy()
     k = len(frame[subgroup].cat.categories)
     # Compared as text: findings and tables pass levels as their labels, while the

@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, signal, stats
 
+from qcexplore.data.validate import finite_array
 from qcexplore.errors import QCDataError
 from qcexplore.stats.charts import control_chart
 from qcexplore.stats.results import ChartResult, TimeResult
@@ -40,13 +41,7 @@ def _validate(series: pd.DataFrame) -> np.ndarray:
             f"time_structure: series lacks column(s) {missing}; pass the subgroup table "
             "(subgroup, start, mean, n) in time order."
         )
-    x = pd.to_numeric(series["mean"], errors="coerce").to_numpy(dtype=np.float64)
-    bad = np.flatnonzero(~np.isfinite(x))
-    if bad.size:
-        raise QCDataError(
-            f"time_structure: column 'mean' has missing or non-finite values at rows "
-            f"{bad[:5].tolist()}; drop those subgroups first."
-        )
+    x = finite_array(series["mean"], "Column 'mean' of the time_structure series")
     if x.size < _MIN_POINTS:
         raise QCDataError(
             f"time_structure: {x.size} points in the series; at least {_MIN_POINTS} subgroups "

@@ -33,6 +33,7 @@ import numpy as np
 import pandas as pd
 from scipy import integrate, interpolate, optimize, sparse, special, stats
 
+from qcexplore.data.validate import finite_column, require_columns
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import VariationResult
 from qcexplore.stats.subgroups import group_moments
@@ -47,6 +48,9 @@ __all__ = [
 
 #: Goodman-Kruskal lambda at or above which one factor is taken to fix another.
 CONFOUNDING_THRESHOLD = 0.95
+#: Cramer's V at or above which two factors count as associated for the note on level
+#: comparisons (0.1 is the usual "small" association, common practice).
+ASSOCIATION_NOTE_V = 0.1
 
 _ANOVA_COLUMNS = ["source", "df", "ss", "ms", "f", "p", "error_term"]
 _COMPARISON_COLUMNS = ["test", "level", "versus", "estimate", "statistic", "p", "lower", "upper"]
@@ -65,32 +69,6 @@ class _Factor:
     @property
     def n_levels(self) -> int:
         return len(self.levels)
-
-
-def _check_columns(frame: pd.DataFrame, columns: Sequence[str], role: str) -> None:
-    missing = [c for c in columns if c not in frame.columns]
-    if missing:
-        raise QCDataError(
-            f"{role} column(s) {missing} not found; the frame has columns "
-            f"{list(frame.columns)[:12]}. Pass the names of existing columns."
-        )
-
-
-def _values(frame: pd.DataFrame, value: str) -> np.ndarray:
-    _check_columns(frame, [value], "value")
-    try:
-        y = frame[value].to_numpy(dtype=np.float64)
-    except (TypeError, ValueError) as exc:
-        raise QCDataError(
-            f"value column {value!r} is not numeric; convert it to numbers first."
-        ) from exc
-    bad = np.flatnonzero(~np.isfinite(y))
-    if bad.size:
-        raise QCDataError(
-            f"value column {value!r} has missing or infinite values at rows "
-            f"{frame.index[bad[:5]].tolist()}; drop or fill them first."
-        )
-    return y
 
 
 def _factor(frame: pd.DataFrame, name: str) -> _Factor:
@@ -113,10 +91,10 @@ def _prepare(
 ) -> tuple[np.ndarray, _Factor, list[_Factor]]:
     if isinstance(factors, str):
         factors = (factors,)
-    _check_columns(frame, [subgroup, *factors], "subgroup/factor")
+    require_columns(frame, [subgroup, *factors], "subgroup/factor")
     if len(frame) < 2:
         raise QCDataError(f"need at least two rows of {value!r}; got {len(frame)}.")
-    y = _values(frame, value)
+    y = finite_column(frame, value, "value")
     return y, _factor(frame, subgroup), [_factor(frame, f) for f in factors if f != subgroup]
 
 
@@ -261,7 +239,7 @@ def design_structure(
     >>> design_structure(f, subgroup="day", factors=["crew", "scale"])["relation"].tolist()
     ['between_subgroups', 'between_subgroups', 'confounded', 'confounded']
     """
-    _check_columns(frame, [subgroup, *factors], "subgroup/factor")
+    require_columns(frame, [subgroup, *factors], "subgroup/factor")
     sg = _factor(frame, subgroup)
     table, _, _ = _structure_rows(sg, [_factor(frame, f) for f in factors], threshold)
     return table
@@ -1011,6 +989,30 @@ def _confounding_notes(d: _Design, measured_by: Sequence[str]) -> dict[str, str]
     return out
 
 
+def _marginal_note(d: _Design) -> list[str]:
+    """A note when associated factors make the one-factor level comparisons unreliable.
+
+    Tukey, ANOM, Kruskal-Wallis and the effects compare the levels of one factor on
+    their own; with factors that are partly confounded a level can differ only through
+    the levels of another factor it goes with, while the Type II ANOVA adjusts for that.
+    """
+    factors = [f for f in d.factors if f.n_levels > 1]
+    pairs = []
+    for i, a in enumerate(factors):
+        for b in factors[i + 1 :]:
+            v = _association(_crosstab(a, b))[0]
+            if v >= ASSOCIATION_NOTE_V:
+                pairs.append(f"{a.name!r} and {b.name!r} (Cramer's V = {v:.2f})")
+    if not pairs:
+        return []
+    return [
+        f"factors go together: {'; '.join(pairs)}. The level comparisons (Tukey, ANOM, "
+        "Kruskal-Wallis, effects) look at each factor on its own, so a level can look "
+        "different only because it often comes with a level of another factor; the ANOVA "
+        "table adjusts each factor for the others. Where they disagree, go by the ANOVA."
+    ]
+
+
 def _offsets(d: _Design, measured_by: Sequence[str], level: float) -> pd.DataFrame:
     rows: list[dict] = []
     names_b = [f.name for f in d.between]
@@ -1099,14 +1101,14 @@ def adjusted_values(frame: pd.DataFrame, *, value: str, offsets: pd.DataFrame) -
     >>> adjusted_values(f, value="w", offsets=o).tolist()
     [11.0, 11.0]
     """
-    y = _values(frame, value).copy()
+    y = finite_column(frame, value, "value").copy()
     if not isinstance(offsets, pd.DataFrame):
         raise QCDataError(
             f"offsets is a {type(offsets).__name__}; pass the table from measurement_offsets()."
         )
-    _check_columns(offsets, ["factor", "level", "offset"], "offsets")
+    require_columns(offsets, ["factor", "level", "offset"], "offsets")
     for name, table in offsets.groupby("factor", sort=False):
-        _check_columns(frame, [name], "offset factor")
+        require_columns(frame, [name], "offset factor")
         lookup = dict(zip(table["level"].astype(str), table["offset"], strict=True))
         labels = frame[name].astype(str).to_numpy()
         shift = pd.Series(labels).map(lookup).to_numpy(dtype=np.float64)
@@ -1242,7 +1244,9 @@ def variation(
         slightly conservative, with Sidak-adjusted p;
         ``kruskal_wallis``) on subgroup means for between-subgroup
         factors and on subgroup-centred values otherwise (error df reduced by the
-        number of subgroups less one); ``spread`` (Levene and
+        number of subgroups less one); each factor's comparisons ignore the other
+        factors, and ``notes`` says so when two factors go together (Cramer's V at
+        least ``ASSOCIATION_NOTE_V``); ``spread`` (Levene and
         Brown-Forsythe on deviations from the subgroup mean, or on single values);
         ``offsets`` (:func:`measurement_offsets`; a measured_by factor confounded with
         another factor keeps its offsets, whose ``note`` says that they carry the other
@@ -1289,6 +1293,8 @@ def variation(
     notes = list(d.notes) + comp_notes
     confounded = _confounding_notes(d, measured_by)
     notes += [f"offsets of {m!r}: {text}." for m, text in confounded.items()]
+    if compare:
+        notes += _marginal_note(d)
     if d.single:
         notes.append("single values: subgroup-to-subgroup and residual variation coincide.")
     if (anova.loc[anova["source"] == "residual", "df"] <= 0).all():
