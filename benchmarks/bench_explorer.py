@@ -24,7 +24,7 @@ from typing import TYPE_CHECKING
 
 import pandas as pd
 
-from qcexplore.demo import filling_line
+from qcexplore.demo import ROLES, filling_line
 
 if TYPE_CHECKING:
     from qcexplore.study import Study
@@ -54,19 +54,9 @@ def tiled_demo(rows: int) -> pd.DataFrame:
 
 def study_of(frame: pd.DataFrame) -> Study:
     """The benchmark's Study of ``frame`` (imported here: :func:`fresh` times the imports)."""
-    from qcexplore.spec import Spec
     from qcexplore.study import Study
 
-    return Study(
-        frame,
-        value="net_g",
-        subgroup="round",
-        time="taken_at",
-        factors=["crew", "shift", "nozzle"],
-        measured_by=["crew"],
-        spec=Spec(lsl=500),
-        units="g",
-    )
+    return Study(frame, **ROLES)
 
 
 def fresh() -> None:

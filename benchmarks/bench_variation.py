@@ -27,7 +27,7 @@ import pandas as pd
 import statsmodels.api as sm
 import statsmodels.formula.api as smf
 
-from qcexplore.demo import filling_line
+from qcexplore.demo import ROLES, filling_line
 from qcexplore.stats.variation import variation
 from qcexplore.study import Study
 
@@ -130,14 +130,7 @@ def main() -> None:
     args = {"value": "net_g", "subgroup": "round", "factors": ["crew", "shift", "nozzle"]}
     for days in (7, 28):
         frame, _ = filling_line(days=days)
-        study = Study(
-            frame,
-            value="net_g",
-            subgroup="round",
-            time="taken_at",
-            factors=["crew", "shift", "nozzle"],
-            measured_by=["crew"],
-        )
+        study = Study(frame, **ROLES)
         demo = _median_seconds(lambda s=study: variation(s.frame, measured_by=["crew"], **args))
         floor = _median_seconds(
             lambda s=study: variation(s.frame, components="ems", compare=False, **args)

