@@ -157,4 +157,4 @@ def refresh(layout: LayoutDOM, result: Any) -> None:
         if isinstance(model, Div):
             model.text = text
         else:
-            model.title.text = text
+            model.title.text = theme.wrapped_title(text, model.width)

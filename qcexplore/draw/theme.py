@@ -353,6 +353,33 @@ def boundaries(x: np.ndarray, pad: float) -> tuple[np.ndarray, np.ndarray]:
     return np.concatenate([[first], mids]), np.concatenate([mids, [last]])
 
 
+def wrapped_title(text: str, width: int = WIDTH) -> str:
+    """Break a long title at its commas so that it fits the figure on a projector.
+
+    Titles say what is plotted and how the limits were computed, which can be
+    longer than the figure is wide; a cut-off title loses the part that matters.
+    About 8 pixels a character at the 12 pt title size.
+
+    Examples
+    --------
+    >>> print(wrapped_title("Subgroup means of net_g, limits from R-bar/d2, 3 sigma", 300))
+    Subgroup means of net_g,
+    limits from R-bar/d2, 3 sigma
+    """
+    limit = max(30, width // 8)
+    lines: list[str] = []
+    line = ""
+    for part in text.split(", "):
+        candidate = f"{line}, {part}" if line else part
+        if line and len(candidate) > limit:
+            lines.append(line + ",")
+            line = part
+        else:
+            line = candidate
+    lines.append(line)
+    return "\n".join(lines)
+
+
 def new_figure(
     name: str,
     title: str,
@@ -371,7 +398,7 @@ def new_figure(
     """
     fig = figure(
         name=name,
-        title=title,
+        title=wrapped_title(title, width),
         width=width,
         height=height,
         output_backend="webgl" if webgl else "canvas",
