@@ -1,4 +1,4 @@
-"""Suite-wide settings: a private Jupyter home, and skipped tests count as failures."""
+"""Suite-wide settings: hypothesis profiles, a private Jupyter home, skipped tests fail."""
 
 from __future__ import annotations
 
@@ -6,6 +6,16 @@ import os
 import tempfile
 
 import pytest
+from hypothesis import settings
+
+# Timing is for benchmarks/, not for tests: no per-example deadline on a shared machine.
+# In CI the examples are derived from each test's name, so a run can be repeated exactly;
+# on a developer's machine they are random and keep exploring.
+settings.register_profile("qcexplore", deadline=None, print_blob=True)
+settings.register_profile(
+    "qcexplore-ci", parent=settings.get_profile("qcexplore"), derandomize=True
+)
+settings.load_profile("qcexplore-ci" if os.environ.get("CI") else "qcexplore")
 
 # Nothing the suite starts (kernels, JupyterLab, Voila) may write into the user's home.
 _HOME = tempfile.mkdtemp(prefix="qcexplore-tests-home-")
