@@ -1,4 +1,7 @@
-"""Shared timing helper for the benchmark scripts: medians of repeated runs."""
+"""Shared pieces of the benchmark scripts: medians of repeated runs and the numpy floor.
+
+Scripts run as ``python benchmarks/NAME.py``, which puts this folder on ``sys.path``.
+"""
 
 from __future__ import annotations
 
@@ -6,8 +9,13 @@ import statistics
 import time
 from collections.abc import Callable
 
+import numpy as np
 
-def median_seconds(run: Callable[[], object], repeats: int = 7) -> float:
+#: Timed calls per measurement (after one warm-up call): the median is quoted.
+REPEATS = 5
+
+
+def median_seconds(run: Callable[[], object], repeats: int = REPEATS) -> float:
     """Median wall time of ``repeats`` calls after one warm-up call."""
     run()
     times = []
@@ -16,6 +24,24 @@ def median_seconds(run: Callable[[], object], repeats: int = 7) -> float:
         run()
         times.append(time.perf_counter() - start)
     return statistics.median(times)
+
+
+def moments_floor(values: np.ndarray, codes: np.ndarray, starts: np.ndarray) -> Callable[[], None]:
+    """The least any per-subgroup statistic must do, on sorted subgroup codes.
+
+    Counts, sums and sums of squares by ``np.bincount``, minima and maxima by
+    ``np.*.reduceat`` over the subgroup ``starts``.
+    """
+    n_groups = int(codes.max()) + 1
+
+    def floor() -> None:
+        np.bincount(codes, minlength=n_groups)
+        np.bincount(codes, weights=values, minlength=n_groups)
+        np.bincount(codes, weights=values * values, minlength=n_groups)
+        np.minimum.reduceat(values, starts)
+        np.maximum.reduceat(values, starts)
+
+    return floor
 
 
 def report(name: str, seconds: float, floor_name: str, floor: float, target: float) -> bool:

@@ -7,23 +7,13 @@ np.minimum.reduceat / np.maximum.reduceat for the ranges. Run: python benchmarks
 
 from __future__ import annotations
 
-import time
-
 import numpy as np
 import pandas as pd
+from _timing import REPEATS, median_seconds, moments_floor
 
 from qcexplore.stats.charts import control_chart
 
-N_SUBGROUPS, SIZE, RUNS = 250_000, 4, 5
-
-
-def median_seconds(func) -> float:
-    times = []
-    for _ in range(RUNS):
-        start = time.perf_counter()
-        func()
-        times.append(time.perf_counter() - start)
-    return float(np.median(times))
+N_SUBGROUPS, SIZE = 250_000, 4
 
 
 def main() -> None:
@@ -40,19 +30,12 @@ def main() -> None:
     )
     starts = np.arange(0, values.size, SIZE)
 
-    def floor() -> None:
-        np.bincount(codes, minlength=N_SUBGROUPS)
-        np.bincount(codes, weights=values, minlength=N_SUBGROUPS)
-        np.bincount(codes, weights=values * values, minlength=N_SUBGROUPS)
-        np.minimum.reduceat(values, starts)
-        np.maximum.reduceat(values, starts)
-
     def chart() -> None:
         control_chart(frame, value="weight", subgroup="subgroup", kind="xbar_r", rules="nelson")
 
-    chart()  # warm the constant caches and imports
+    floor = moments_floor(values, codes, starts)
     base, ours = median_seconds(floor), median_seconds(chart)
-    print(f"values: {values.size:,}  subgroups: {N_SUBGROUPS:,} of {SIZE}  runs: {RUNS}")
+    print(f"values: {values.size:,}  subgroups: {N_SUBGROUPS:,} of {SIZE}  runs: {REPEATS}")
     print(f"floor (bincount x3 + reduceat min/max): {base * 1e3:8.1f} ms")
     print(f"control_chart xbar_r, Nelson rules:    {ours * 1e3:8.1f} ms")
     print(f"ratio to floor:                         {ours / base:8.1f} x")

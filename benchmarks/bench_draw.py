@@ -13,21 +13,17 @@ Run: ``python benchmarks/bench_draw.py [points]``.
 
 from __future__ import annotations
 
-import statistics
 import sys
-import time
-from collections.abc import Callable
 
 import numpy as np
 import pandas as pd
+from _timing import REPEATS, median_seconds
 from bokeh.models import ColumnDataSource
 from bokeh.plotting import figure
 from jupyter_bokeh import BokehModel
 
 from qcexplore.draw import chart_figure, refresh
 from qcexplore.stats.results import ChartResult
-
-REPEATS = 5
 
 
 def make_result(k: int, seed: int) -> ChartResult:
@@ -74,15 +70,6 @@ def make_result(k: int, seed: int) -> ChartResult:
         statistic="value",
         sigma_method="within",
     )
-
-
-def median_seconds(fn: Callable[[], object]) -> float:
-    times = []
-    for _ in range(REPEATS):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
 
 
 def main(k: int = 250_000) -> None:

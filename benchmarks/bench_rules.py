@@ -9,26 +9,13 @@ Run: python benchmarks/bench_rules.py
 
 from __future__ import annotations
 
-import statistics
-import time
-from collections.abc import Callable
-
 import numpy as np
+from _timing import REPEATS, median_seconds
 from numpy.lib.stride_tricks import sliding_window_view
 
 from qcexplore.stats.rules import evaluate_rules
 
 SIZE = 1_000_000
-REPEATS = 5
-
-
-def _median_seconds(work: Callable[[], object]) -> float:
-    times = []
-    for _ in range(REPEATS):
-        start = time.perf_counter()
-        work()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
 
 
 def main() -> None:
@@ -39,13 +26,13 @@ def main() -> None:
     def floor() -> object:
         return sliding_window_view(stat, 15).sum(axis=1)
 
-    floor_s = _median_seconds(floor)
+    floor_s = median_seconds(floor)
     rows = [("floor: sliding-window sums, window 15", floor_s)]
-    rows.append(("nelson N1-N8", _median_seconds(lambda: evaluate_rules(stat, 0.0, 1.0, "nelson"))))
+    rows.append(("nelson N1-N8", median_seconds(lambda: evaluate_rules(stat, 0.0, 1.0, "nelson"))))
     rows.append(
         (
             "nelson N1-N8, 1000 segments",
-            _median_seconds(lambda: evaluate_rules(stat, 0.0, 1.0, "nelson", segments=segments)),
+            median_seconds(lambda: evaluate_rules(stat, 0.0, 1.0, "nelson", segments=segments)),
         )
     )
     print(f"{SIZE:,} points, median of {REPEATS}")

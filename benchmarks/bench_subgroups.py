@@ -7,16 +7,11 @@ Run: python benchmarks/bench_subgroups.py
 
 from __future__ import annotations
 
-import sys
-from pathlib import Path
-
 import numpy as np
 import pandas as pd
+from _timing import median_seconds, moments_floor, report
 
-sys.path.insert(0, str(Path(__file__).parent))
-from _timing import median_seconds, report  # noqa: E402
-
-from qcexplore.stats.subgroups import group_moments, subgroup_table  # noqa: E402
+from qcexplore.stats.subgroups import group_moments, subgroup_table
 
 N_SUBGROUPS, SIZE = 250_000, 4
 
@@ -30,14 +25,7 @@ def main() -> int:
         {"w": values, "sg": pd.Categorical.from_codes(codes, np.arange(N_SUBGROUPS), ordered=True)}
     )
 
-    def floor() -> None:
-        np.bincount(codes, minlength=N_SUBGROUPS)
-        np.bincount(codes, weights=values, minlength=N_SUBGROUPS)
-        np.bincount(codes, weights=values * values, minlength=N_SUBGROUPS)
-        np.minimum.reduceat(values, starts)
-        np.maximum.reduceat(values, starts)
-
-    floor_s = median_seconds(floor)
+    floor_s = median_seconds(moments_floor(values, codes, starts))
     moments_s = median_seconds(lambda: group_moments(values, codes, N_SUBGROUPS))
     table_s = median_seconds(lambda: subgroup_table(frame, value="w", subgroup="sg"))
     ok = report("group_moments", moments_s, "numpy floor", floor_s, 3.0)

@@ -18,30 +18,17 @@ Run: ``python benchmarks/bench_variation.py``. Prints the median of 5 runs of
 
 from __future__ import annotations
 
-import statistics
-import time
-from collections.abc import Callable
-
 import numpy as np
 import pandas as pd
 import statsmodels.api as sm
 import statsmodels.formula.api as smf
+from _timing import REPEATS, median_seconds
 
 from qcexplore.demo import ROLES, filling_line
 from qcexplore.stats.variation import variation
 from qcexplore.study import Study
 
 ROWS = 200_004  # a multiple of the subgroup size 6
-REPEATS = 5
-
-
-def _median_seconds(run: Callable[[], object]) -> float:
-    times = []
-    for _ in range(REPEATS):
-        start = time.perf_counter()
-        run()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
 
 
 def _frames(seed: int = 0) -> tuple[pd.DataFrame, pd.DataFrame]:
@@ -79,13 +66,13 @@ def _frames(seed: int = 0) -> tuple[pd.DataFrame, pd.DataFrame]:
 
 def main() -> None:
     one_way, nested = _frames()
-    ours = _median_seconds(
+    ours = median_seconds(
         lambda: variation(one_way, value="weight", subgroup="obs", factors=["nozzle"])
     )
-    reference = _median_seconds(
+    reference = median_seconds(
         lambda: sm.stats.anova_lm(smf.ols("weight ~ C(nozzle)", one_way).fit(), typ=2)
     )
-    ours_core = _median_seconds(
+    ours_core = median_seconds(
         lambda: variation(
             one_way, value="weight", subgroup="obs", factors=["nozzle"], compare=False
         )
@@ -93,7 +80,7 @@ def main() -> None:
     mine = variation(one_way, value="weight", subgroup="obs", factors=["nozzle"]).anova
     theirs = sm.stats.anova_lm(smf.ols("weight ~ C(nozzle)", one_way).fit(), typ=2)
     assert np.isclose(mine.loc[0, "f"], theirs.loc["C(nozzle)", "F"], rtol=1e-8)
-    nested_time = _median_seconds(
+    nested_time = median_seconds(
         lambda: variation(
             nested,
             value="weight",
@@ -102,7 +89,7 @@ def main() -> None:
             measured_by=["crew"],
         )
     )
-    anova_only = _median_seconds(
+    anova_only = median_seconds(
         lambda: variation(
             nested, value="weight", subgroup="sg", factors=["crew", "nozzle"], compare=False
         )
@@ -117,7 +104,7 @@ def main() -> None:
     print(f"variation() nested + crossed, no compare: {anova_only * 1e3:8.1f} ms")
     keep = np.random.default_rng(1).random(len(nested)) > 0.015
     unbalanced = nested[keep].reset_index(drop=True)
-    unbalanced_time = _median_seconds(
+    unbalanced_time = median_seconds(
         lambda: variation(
             unbalanced,
             value="weight",
@@ -131,8 +118,8 @@ def main() -> None:
     for days in (7, 28):
         frame, _ = filling_line(days=days)
         study = Study(frame, **ROLES)
-        demo = _median_seconds(lambda s=study: variation(s.frame, measured_by=["crew"], **args))
-        floor = _median_seconds(
+        demo = median_seconds(lambda s=study: variation(s.frame, measured_by=["crew"], **args))
+        floor = median_seconds(
             lambda s=study: variation(s.frame, components="ems", compare=False, **args)
         )
         method = variation(study.frame, **args).method
