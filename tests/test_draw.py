@@ -439,10 +439,10 @@ def test_per_point_and_per_segment_sources_hold_only_number_columns():
                 assert set(kinds.values()) <= set("iuf"), kinds
 
 
-def test_refresh_sends_point_columns_as_binary_buffers():
+def _refresh_message_sizes(k: int) -> tuple[int, int]:
+    """Characters of text and bytes of binary that a refresh of k points sends to the page."""
     from jupyter_bokeh import BokehModel
 
-    k = 5000
     signals = tuple(range(0, k, 3))
     layout = draw.chart_figure(chart_result(k=k, strata=("A", "B", "C"), signals=signals))
     widget = BokehModel(layout)
@@ -451,12 +451,21 @@ def test_refresh_sends_point_columns_as_binary_buffers():
     draw.refresh(layout, chart_result(k=k, strata=("B", "A", "C"), seed=3, signals=signals))
     text = sum(len(str(c.get("payload", ""))) for c, _ in sent if isinstance(c, dict))
     binary = sum(memoryview(b).nbytes for _, bufs in sent for b in bufs)
+    return text, binary
+
+
+def test_refresh_sends_point_columns_as_binary_buffers():
+    k = 5000
+    text, binary = _refresh_message_sizes(k)
+    more_text, more_binary = _refresh_message_sizes(2 * k)
     # 2 x 5000 points and 2 x 1667 signals, each some 5-7 number columns of 4-8 bytes
-    assert binary > 8 * 2 * k
-    # only the column headers and the small lookup sources as text (some 10,000 characters
-    # here, a little more late in a long run, as bokeh's model ids grow longer): one text
-    # column of the 2 x 5000 points would add at least 4 characters a row, 40,000 in all
+    assert binary > 8 * 2 * k and more_binary > 2 * 8 * 2 * k
+    # the text is the column headers and the small lookup sources (some 10,000 characters,
+    # a little more late in a long run, as bokeh's model ids lengthen)
     assert text < 3 * k
+    # and it does not grow with the points: one text column would add at least 4 characters
+    # for each of the 2 x 5000 added rows, 40,000 in all
+    assert more_text - text < 100
 
 
 # --- hover and signals ------------------------------------------------------------------
