@@ -19,6 +19,7 @@ from qcexplore.data.validate import (
     DroppedRows,
     as_factor,
     check_role_names,
+    column_names,
     finite_mask,
     numeric_values,
     parse_times,
@@ -33,17 +34,6 @@ from qcexplore.stats.subgroups import subgroup_table
 
 #: Name of the internal column that numbers individual values when there is no subgroup.
 OBSERVATION = "observation"
-
-
-def _as_tuple(names: Sequence[str] | str | None, role: str) -> tuple[str, ...]:
-    if names is None:
-        return ()
-    if isinstance(names, str):
-        raise QCDataError(
-            f"{role} must be a list of column names, got the string {names!r}; "
-            f"write {role}=[{names!r}]."
-        )
-    return tuple(names)
 
 
 class Study:
@@ -89,8 +79,8 @@ class Study:
         spec: Spec | Mapping[str, float] | None = None,
         units: str | None = None,
     ) -> None:
-        factors = _as_tuple(factors, "factors")
-        measured_by = _as_tuple(measured_by, "measured_by")
+        factors = column_names(factors, "factors")
+        measured_by = column_names(measured_by, "measured_by")
         factors = factors + tuple(m for m in measured_by if m not in factors)
         check_role_names(value, subgroup, time, factors, measured_by)
         if shifts is not None:
@@ -365,7 +355,7 @@ class Study:
                     "measured_by=['crew'] (or whichever columns describe how samples were taken)."
                 )
             return self._measured_by
-        chosen = _as_tuple(adjust_for, "adjust_for")
+        chosen = column_names(adjust_for, "adjust_for")
         unknown = [f for f in chosen if f not in self._measured_by]
         if unknown:
             raise QCDataError(
@@ -443,7 +433,7 @@ class Study:
         """The variance taken apart into its sources (``qcexplore.stats.variation``)."""
         from qcexplore.stats.variation import variation
 
-        chosen = self._factors if factors is None else _as_tuple(factors, "factors")
+        chosen = self._factors if factors is None else column_names(factors, "factors")
         unknown = [f for f in chosen if f not in self.available_factors]
         if unknown:
             raise QCDataError(

@@ -132,6 +132,8 @@ def test_summary_percentages_and_ndc():
     sd = np.sqrt(var)
     assert s.loc["gauge", "pct_study_variation"] == pytest.approx(100 * sd["gauge"] / sd["total"])
     assert s.loc["gauge", "pct_tolerance"] == pytest.approx(100 * 6 * sd["gauge"] / 6.0)
+    # Number of distinct categories: floor(1.41 sd_part / sd_gauge), 1.41 ~ sqrt(2) (the
+    # measurement-system-analysis literature, from memory; common practice).
     assert g.ndc == math.floor(1.41 * sd["part"] / sd["gauge"])
 
 

@@ -85,7 +85,9 @@ def test_acf_pacf_ljung_box_equal_statsmodels(which):
 
 
 def test_bands_and_effective_n():
-    # Band +-1.96/sqrt(N) (common practice); effective n = N (1 - phi) / (1 + phi).
+    # Band +-1.96/sqrt(N) (common practice); effective n = N (1 - phi) / (1 + phi): the
+    # large-sample variance of the mean of an AR(1) series is sigma^2/N (1 + phi)/(1 - phi)
+    # (Box and Jenkins, Time Series Analysis, from memory; common practice).
     r = time_structure(as_series(LH), max_lag=5)
     assert len(r.acf) == 5
     np.testing.assert_allclose(r.acf["upper"], 1.959964 / math.sqrt(48), rtol=1e-6)

@@ -248,6 +248,28 @@ def parse_times(series: pd.Series, column: str) -> pd.Series:
     return parsed
 
 
+def column_names(names: Sequence[str] | str | None, role: str) -> tuple[str, ...]:
+    """A list of column names as a tuple; a lone string is refused, not split into letters.
+
+    Examples
+    --------
+    >>> column_names(["crew", "nozzle"], "factors")
+    ('crew', 'nozzle')
+    >>> column_names("crew", "factors")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: factors must be a list of column names, got the string ...
+    """
+    if names is None:
+        return ()
+    if isinstance(names, str):
+        raise QCDataError(
+            f"{role} must be a list of column names, got the string {names!r}; "
+            f"write {role}=[{names!r}]."
+        )
+    return tuple(names)
+
+
 def check_role_names(
     value: str,
     subgroup: str | None,
@@ -259,18 +281,12 @@ def check_role_names(
 
     Examples
     --------
-    >>> check_role_names("w", "round", None, ["crew"], ["crew"])
-    >>> check_role_names("w", None, None, "crew", ())  # doctest: +ELLIPSIS
+    >>> check_role_names("w", "round", None, ("crew",), ("crew",))
+    >>> check_role_names("w", None, None, ("w",), ())  # doctest: +ELLIPSIS
     Traceback (most recent call last):
     ...
-    qcexplore.errors.QCDataError: factors must be a list of column names, got the string ...
+    qcexplore.errors.QCDataError: Column 'w' is the value and cannot also be ...
     """
-    for name, given in (("factors", factors), ("measured_by", measured_by)):
-        if isinstance(given, str):
-            raise QCDataError(
-                f"{name} must be a list of column names, got the string {given!r}; "
-                f"write {name}=[{given!r}]."
-            )
     if value in factors or value == subgroup or value == time:
         raise QCDataError(
             f"Column {value!r} is the value and cannot also be the subgroup, time or a factor."
