@@ -53,7 +53,8 @@ def real_number(
     """
     if not is_real_number(x):
         raise QCDataError(
-            f"{name}={_short(x)} is not {what}: give a single finite number{_range(lower, upper, inclusive)}."
+            f"{name}={_short(x)} is not {what}: give a single finite number"
+            f"{_range(lower, upper, inclusive)}."
         )
     value = float(x)  # type: ignore[arg-type]
     low_bad = lower is not None and (value < lower or (not inclusive and value == lower))
