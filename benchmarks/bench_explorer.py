@@ -80,7 +80,7 @@ def main() -> None:
 
     frame = tiled_demo(ROWS)
     study = study_of(frame)
-    print(f"{len(study.frame):,} rows in {len(study.subgroups):,} subgroups")
+    print(f"{len(study):,} rows in {len(study.subgroups):,} subgroups")
     print(
         f"fresh process, after import qcexplore: explorer imports + Study + first build: "
         f"{first:.0f} ms  (target < 2000 ms)"

@@ -23,7 +23,7 @@ _LAZY = {
     "arl": "qcexplore.stats.arl",
     "arl_detail": "qcexplore.stats.arl",
     "gauge_study": "qcexplore.stats.gauge",
-    "Finding": "qcexplore.findings",
+    "Finding": "qcexplore.stats.results",
 }
 
 

@@ -14,7 +14,8 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any, NoReturn
 
-from qcexplore.app.serve import DEMO_ROLES, DEMO_TITLE
+from qcexplore.demo import ROLES as DEMO_ROLES
+from qcexplore.demo import TITLE as DEMO_TITLE
 from qcexplore.errors import QCDataError
 from qcexplore.study import Study
 
@@ -253,25 +254,29 @@ def load_study(data: str, roles: dict[str, Any], *, sheet: str | None = None) ->
 
 
 def _run_app(args: argparse.Namespace) -> int:
-    from qcexplore.app.serve import AppSettings, demo_study, is_loopback, new_token, serve
+    from qcexplore.app.serve import (
+        AppSettings,
+        demo_study,
+        new_token,
+        require_access_control,
+        serve,
+    )
 
     token = new_token() if args.token == "auto" else args.token
-    if not is_loopback(args.host) and not token:
-        raise QCDataError(
-            f"--host {args.host} serves the app to the network: add --token TOKEN "
-            "(or --token auto to generate one), or leave --host out for this machine only."
-        )
+    require_access_control(args.host, token)  # before the data are read
     if args.data is None:
         study = demo_study(args.seed, **study_roles(args, DEMO_ROLES))
-        title = DEMO_TITLE.format(seed=args.seed)
+        title = DEMO_TITLE
     else:
         study = load_study(args.data, study_roles(args), sheet=args.sheet)
         title = Path(args.data).name
     log = None
     if args.log is not None:
-        from qcexplore.app.state import fingerprint, load_log
+        from qcexplore import views
+        from qcexplore.views.log import load_log
 
-        load_log(args.log, data_id=fingerprint(study.frame, study.roles()))  # refused early
+        data_id = study.fingerprint
+        load_log(args.log, data_id=data_id, option_types=views.option_types())  # refused early
         log = str(Path(args.log).resolve())
     settings = AppSettings(title=title, workdir=os.getcwd(), log=log)
     serve(

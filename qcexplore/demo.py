@@ -34,6 +34,8 @@ START = pd.Timestamp("2026-09-07 06:00")  # a Monday, away from daylight-saving 
 #: The roles of the demo's columns, as ``qx.Study(frame, **ROLES)`` takes them: the hourly
 #: round is the subgroup, the crew (with its own scale) describes how jars were weighed, and
 #: the label's 500 g is the lower specification limit.
+#: The title the app and report give the demo.
+TITLE = "Demo: honey filling line"
 ROLES: dict[str, Any] = {
     "value": "net_g",
     "subgroup": "round",

@@ -1,39 +1,42 @@
-"""Plain-language findings: what the results of a Study say, strongest first.
+"""Plain-language findings: what the evidence of a Study says, strongest first.
 
-``findings(study)`` reads the Study's cached results (the chart, the sources of
-variation, the time structure, capability) and turns them into a short ranked list
-of ``Finding`` objects, each with a one-line title, the evidence in its detail (the
-effect in the value's units and in within-subgroup sigma, the share of variance, the
-p-value, the design caveat) and the factor and level it is about.
+``findings(evidence)`` reads an :class:`~qcexplore.stats.results.Evidence` bundle (the
+chart, the sources of variation, the time structure, capability and the tests computed
+on them in ``qcexplore.stats.evidence``) and turns it into a short ranked list of
+``Finding`` objects, each with a one-line title, the evidence in its detail (the effect
+in the value's units and in within-subgroup sigma, the share of variance, the p-value,
+the design caveat) and the factor and level it is about. It selects, ranks and words:
+every test it cites was computed in ``qcexplore.stats``.
 
 How a finding is decided
 ------------------------
-Every candidate finding rests on one *gate* test taken from the results:
+Every candidate finding rests on one gate test of ``Evidence.tests`` (see
+``qcexplore.stats.evidence``), all held at ``alpha`` together by Holm's method
+(``p_adjusted``):
 
 ==================  ======================================================================
 kind                gate test
 ==================  ======================================================================
-measurement_offset  the factor's F test in ``variation().anova`` (its own error term)
-stream_difference   the factor's F test in ``variation().anova`` (its own error term)
-spread_difference   the factor's Brown-Forsythe test in ``variation().spread``
-process_shift       each step in ``time_structure().shifts`` (CUSUM, binary segmentation)
-autocorrelation     the AR(1) coefficient: z = phi / se(phi), two-sided
-out_of_control      points beyond the chart's limits against the rate 2 * P(Z > L) of a
-                    stable normal process (one-sided binomial test)
+measurement_offset  the factor's F test (``anova``)
+stream_difference   the factor's F test (``anova``)
+spread_difference   the factor's Brown-Forsythe test (``brown_forsythe``)
+process_shift       each step of the time structure (``step``)
+autocorrelation     the AR(1) coefficient (``ar1``)
+out_of_control      points beyond the chart's limits (``beyond_limits``)
 ==================  ======================================================================
 
-The gate p-values of all candidates form one family whose family-wise error rate is
-held at ``alpha`` by Holm's step-down method (``p_adjusted``). Inside a factor that
-passes its gate, the levels are named from the level tests (``offsets`` for
-measured_by factors, the ``effect`` rows of ``comparisons`` for process factors),
-again Holm-adjusted among that factor's levels; a level's ``p_adjusted`` is the
-larger of its factor's and its own adjusted p-value, so it is reported only when both
-reject. Levels are named from the most extreme down, each compared with the levels not
-yet named, and naming stops at the first level whose difference from the rest is
-smaller than ``min_effect`` (this keeps the other nozzles from being reported as
-"low" merely because one nozzle is high). ``stratified_subgroups`` follows from a
-within-subgroup factor that passed its gate. ``confounded`` and ``capability`` are
-notes: they are not tests and carry no p-value.
+Inside a factor that passes its gate, the levels are named from the level tests
+(``Evidence.levels``: offsets for measured_by factors, effects against the overall mean
+for process factors, Holm-adjusted among that factor's levels); a level's
+``p_adjusted`` is the larger of its factor's and its own adjusted p-value, so it is
+reported only when both reject. Levels are named from the most extreme down, each
+compared with the levels not yet named, and naming stops at the first level whose
+difference from the rest is smaller than ``min_effect`` (this keeps the other nozzles
+from being reported as "low" merely because one nozzle is high). A named level of a
+process factor that varies within subgroups is dated by its onset
+(``Evidence.onset``) when the onset test passes at ``alpha``. ``stratified_subgroups``
+follows from a within-subgroup factor that passed its gate. ``confounded`` and
+``capability`` are notes: they are not tests and carry no p-value.
 
 Ranking
 -------
@@ -52,21 +55,20 @@ follow local weights-and-measures rules and the site's quality system.
 
 from __future__ import annotations
 
-import html
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import asdict, dataclass, fields, replace
+from dataclasses import dataclass, fields, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
-from qcexplore.errors import QCDataError
-from qcexplore.stats.onset import stream_onset
-from qcexplore.stats.subgroups import group_moments
+from qcexplore.caution import caution
+from qcexplore.data.coding import real_number
+from qcexplore.stats.results import Evidence, Finding, Onset
+from qcexplore.stats.results import p_text as _p
 
-__all__ = ["CAUTION", "KINDS", "Finding", "findings", "findings_frame", "holm"]
+__all__ = ["KINDS", "Finding", "findings", "findings_frame"]
 
 KINDS = (
     "measurement_offset",
@@ -80,71 +82,11 @@ KINDS = (
     "capability",
 )
 
-CAUTION = (
-    "Findings support an investigation; product disposition and net-content compliance "
-    "follow local weights-and-measures rules and the site's quality system."
-)
 
 #: The smallest effect worth reporting, in within-subgroup sigma, when min_effect is None.
 DEFAULT_MIN_EFFECT_SD = 0.2
 #: Ljung-Box lag quoted in the autocorrelation finding (or the largest lag computed).
 _LJUNG_BOX_LAG = 10
-
-
-@dataclass(frozen=True)
-class Finding:
-    """One thing the data say, with its evidence.
-
-    ``kind``, ``title``, ``detail``, ``factor``, ``level``, ``effect``, ``p`` and
-    ``share`` are the public contract (API.md). ``effect`` is in the value's units
-    (for autocorrelation: phi; for out-of-control points: the share of points beyond
-    the limits; for stratified subgroups: the relative inflation of sigma), ``se`` its
-    standard error, ``effect_sd`` the effect in within-subgroup sigma, ``p`` the raw
-    p-value of the test behind the finding, ``p_adjusted`` the Holm-adjusted p-value
-    the report uses, ``share`` the factor's share of the total variance, ``strength``
-    the ranking key, ``start`` the time (or subgroup) a change appears to start, and
-    ``caveat`` what the design cannot tell.
-
-    Examples
-    --------
-    >>> f = Finding("confounded", "Crew and scale cannot be told apart", "...",
-    ...             factor="crew")
-    >>> f.kind, f.factor, f.p_adjusted != f.p_adjusted  # a note: no test, NaN p
-    ('confounded', 'crew', True)
-    """
-
-    kind: str
-    title: str
-    detail: str
-    factor: str | None = None
-    level: str | None = None
-    effect: float = math.nan
-    p: float = math.nan
-    share: float = math.nan
-    effect_sd: float = math.nan
-    se: float = math.nan
-    p_adjusted: float = math.nan
-    strength: float = 0.0
-    start: Any = None
-    caveat: str = ""
-
-    def to_dict(self) -> dict[str, Any]:
-        """The fields as a plain dict (one row of :func:`findings_frame`)."""
-        return asdict(self)
-
-    def _repr_html_(self) -> str:
-        evidence = (
-            ""
-            if math.isnan(self.p_adjusted)
-            else f" <small>(adjusted p = {_p(self.p_adjusted)})</small>"
-        )
-        caveat = f"<p><em>{html.escape(self.caveat)}</em></p>" if self.caveat else ""
-        return (
-            "<div class='qcexplore-finding'>"
-            f"<p><small>{html.escape(self.kind.replace('_', ' '))}</small><br>"
-            f"<strong>{html.escape(self.title)}</strong>{evidence}</p>"
-            f"<p>{html.escape(self.detail)}</p>{caveat}</div>"
-        )
 
 
 def findings_frame(items: Sequence[Finding]) -> pd.DataFrame:
@@ -159,38 +101,11 @@ def findings_frame(items: Sequence[Finding]) -> pd.DataFrame:
     return pd.DataFrame([item.to_dict() for item in items], columns=names)
 
 
-def holm(p: Sequence[float] | np.ndarray) -> np.ndarray:
-    """Holm's step-down adjusted p-values (NaN stays NaN and does not count as a test).
-
-    Checked against ``statsmodels.stats.multitest.multipletests(method="holm")`` in
-    tests/test_findings.py.
-
-    Examples
-    --------
-    >>> holm([0.01, 0.04, 0.03]).round(3).tolist()
-    [0.03, 0.06, 0.06]
-    """
-    p = np.asarray(p, dtype=np.float64)
-    out = np.full(p.shape, np.nan)
-    ok = np.flatnonzero(np.isfinite(p))
-    m = ok.size
-    if m == 0:
-        return out
-    order = ok[np.argsort(p[ok], kind="stable")]
-    steps = np.maximum.accumulate((m - np.arange(m)) * p[order])
-    out[order] = np.minimum(steps, 1.0)
-    return out
-
-
 # --------------------------------------------------------------------------- wording
 
 
 def _num(x: float, digits: int = 3) -> str:
     return f"{x:.{digits}g}"
-
-
-def _p(p: float) -> str:
-    return "< 1e-300" if p < 1e-300 else f"{p:.2g}"
 
 
 def _plural(name: str) -> str:
@@ -215,14 +130,20 @@ def _when(start: Any, what: str = "subgroup") -> str:
 
 @dataclass(frozen=True)
 class _Context:
-    study: Any
+    evidence: Evidence
     alpha: float
     min_effect: float
     sigma: float
     unit: str
-    v: Any  # VariationResult or None
-    ts: Any  # TimeResult or None
-    n_tests: int = 0
+    n_tests: int
+
+    @property
+    def v(self) -> Any:
+        return self.evidence.variation
+
+    @property
+    def ts(self) -> Any:
+        return self.evidence.time
 
     def amount(self, x: float) -> str:
         return f"{_num(abs(x))}{self.unit}"
@@ -231,43 +152,12 @@ class _Context:
         return x / self.sigma if self.sigma > 0 else math.nan
 
 
-@dataclass(frozen=True)
-class _Candidate:
-    p: float
-    make: Callable[[_Context, float], list[Finding]]
-
-
 # --------------------------------------------------------------------------- factors
 
 
 def _share(v: Any, name: str) -> float:
     row = v.components[v.components["source"] == name]
     return float(row["share"].iloc[0]) if len(row) else math.nan
-
-
-def _structure_rows(v: Any, factor: str, confounded: bool) -> pd.DataFrame:
-    table = v.structure
-    return table[(table["factor"] == factor) & ((table["relation"] == "confounded") == confounded)]
-
-
-def _relation(v: Any, factor: str) -> str:
-    rows = _structure_rows(v, factor, confounded=False)
-    return str(rows["relation"].iloc[0]) if len(rows) else ""
-
-
-def _confounded_with(v: Any, factor: str) -> list[str]:
-    return [str(w) for w in _structure_rows(v, factor, confounded=True)["with_"]]
-
-
-def _level_table(v: Any, factor: str, measured: bool) -> pd.DataFrame:
-    """Level, estimate (against a common reference), se, p for one factor."""
-    if measured:
-        table = v.offsets[v.offsets["factor"] == factor]
-        table = table.rename(columns={"offset": "estimate"})
-    else:
-        table = v.comparisons.get(factor, pd.DataFrame(columns=["test"]))
-        table = table[table["test"] == "effect"]
-    return table[["level", "estimate", "se", "p"]].astype({"level": str}).reset_index(drop=True)
 
 
 def _named_levels(table: pd.DataFrame, ctx: _Context) -> list[tuple[int, float, float, float]]:
@@ -281,7 +171,7 @@ def _named_levels(table: pd.DataFrame, ctx: _Context) -> list[tuple[int, float, 
     """
     est = table["estimate"].to_numpy(dtype=np.float64)
     se = table["se"].to_numpy(dtype=np.float64)
-    adjusted = holm(table["p"].to_numpy(dtype=np.float64))
+    adjusted = table["p_adjusted"].to_numpy(dtype=np.float64)
     with np.errstate(invalid="ignore", divide="ignore"):
         order = np.argsort(-np.nan_to_num(np.abs(est / se)), kind="stable")
     rest = list(range(est.size))
@@ -302,14 +192,14 @@ def _named_levels(table: pd.DataFrame, ctx: _Context) -> list[tuple[int, float, 
 
 def _design_caveat(ctx: _Context, factor: str, measured: bool) -> str:
     parts = []
-    if ctx.study.subgroup is None:
+    if ctx.evidence.subgroup is None:
         parts.append(
             f"Individual values: {factor} is tested against the value-to-value variation, "
             "which treats the values as independent"
             + ("" if measured else "; the level effects are not adjusted for other factors")
             + "."
         )
-    elif _relation(ctx.v, factor) == "between_subgroups":
+    elif ctx.v.relation(factor) == "between_subgroups":
         parts.append(
             f"{_cap(factor)} is constant within each subgroup, so it is tested against the "
             "subgroup-to-subgroup variation, not against single values"
@@ -321,7 +211,7 @@ def _design_caveat(ctx: _Context, factor: str, measured: bool) -> str:
             f"{_cap(factor)} changes inside the subgroups, so it is compared within subgroups "
             "(the subgroup as a block): what the subgroup shares cancels."
         )
-    for other in _confounded_with(ctx.v, factor):
+    for other in ctx.v.confounded_with(factor):
         parts.append(
             f"{_cap(factor)} is confounded with {other}: the data cannot tell {factor} from "
             f"{other} (see the confounded finding)."
@@ -329,35 +219,15 @@ def _design_caveat(ctx: _Context, factor: str, measured: bool) -> str:
     return " ".join(parts)
 
 
-def _onset(ctx: _Context, factor: str, level: str) -> tuple[str, Any]:
+def _onset_words(ctx: _Context, found: Onset | None) -> tuple[str, Any]:
     """Words and start of the onset of one level's difference, if the change is clear.
 
-    The onset model (step or ramp, ``stats.onset.stream_onset``) must beat a constant
-    difference: F = ((RSS0 - RSS) / 2) / (RSS / (n - 3)), its p-value multiplied by the
-    number of candidate onsets searched (Bonferroni), below ``alpha``.
+    The onset model (step or ramp, ``stats.onset``) must beat a constant difference:
+    its p-value, allowing for the search over onsets, below ``alpha``.
     """
-    s = ctx.study
-    found = stream_onset(
-        s.frame, value=s.value, subgroup=s.subgroup_column, factor=factor, level=level, time=s.time
-    )
-    if found is None:
+    if found is None or not np.isfinite(found.p):
         return "", None
-    frame = s.frame
-    codes = frame[s.subgroup_column].cat.codes.to_numpy()
-    k = len(frame[s.subgroup_column].cat.categories)
-    y = frame[s.value].to_numpy(dtype=np.float64)
-    is_level = (frame[factor].astype(str) == level).to_numpy()
-    inside = group_moments(y[is_level], codes[is_level], k)
-    outside = group_moments(y[~is_level], codes[~is_level], k)
-    both = (inside.n > 0) & (outside.n > 0)
-    contrast = (inside.mean - outside.mean)[both]
-    n = contrast.size
-    rss0 = float(np.sum((contrast - contrast.mean()) ** 2))
-    if n <= 13 or not found.rss > 0:
-        return "", None
-    f = ((rss0 - found.rss) / 2.0) / (found.rss / (n - 3))
-    searched = 2 * (n - 9)  # about n - 9 step and n - 9 hinge positions (5 points a side)
-    p = min(1.0, float(stats.f.sf(f, 2, n - 3)) * searched)
+    p = found.p
     if not p < ctx.alpha:
         return (
             " The difference shows no clear onset within the record "
@@ -404,7 +274,7 @@ def _level_finding(
     )
     if measured:
         title = f"{_cap(label)}'s readings are {ctx.amount(effect)} {word} than the other {plural}'"
-        twins = _confounded_with(ctx.v, factor)
+        twins = ctx.v.confounded_with(factor)
         if twins:
             # The data cannot say whether the sampling or the confounded factor moved the
             # readings: the title must not claim a measurement offset on its own.
@@ -419,8 +289,8 @@ def _level_finding(
         title = f"{_cap(label)} runs {ctx.amount(effect)} {word} than the other {plural}"
         evidence += f"; its effect against the overall mean is {estimate:+.3g}{ctx.unit}."
         onset, start = "", None
-        if _relation(ctx.v, factor) == "within_subgroup":
-            onset, start = _onset(ctx, factor, level)
+        if ctx.v.relation(factor) == "within_subgroup":
+            onset, start = _onset_words(ctx, ctx.evidence.onset(factor, level))
         if start is not None:
             title += f", from around {_when(start)}"
     parts = [evidence + onset]
@@ -484,13 +354,14 @@ def _stratified(ctx: _Context, factor: str, p_gate: float, min_share: float) -> 
 
 
 def _factor_findings(ctx: _Context, factor: str, p_gate: float, min_share: float) -> list[Finding]:
-    measured = factor in ctx.study.measured_by
-    table = _level_table(ctx.v, factor, measured)
+    measured = factor in ctx.evidence.measured_by
+    levels = ctx.evidence.levels
+    table = levels[levels["factor"] == factor].reset_index(drop=True)
     out = [
         _level_finding(ctx, factor, table, named, p_gate, measured)
         for named in _named_levels(table, ctx)
     ]
-    if _relation(ctx.v, factor) == "within_subgroup":
+    if ctx.v.relation(factor) == "within_subgroup":
         out += _stratified(ctx, factor, p_gate, min_share)
     return out
 
@@ -498,30 +369,11 @@ def _factor_findings(ctx: _Context, factor: str, p_gate: float, min_share: float
 # --------------------------------------------------------------------------- spread
 
 
-def _level_spread(study: Any, factor: str) -> tuple[pd.Index, np.ndarray, np.ndarray]:
-    """Per level: sd of the deviations from the subgroup mean, and the same for the rest.
-
-    Each deviation is weighted by 1 - 1/n of its subgroup (its expected share of the
-    variance), so both sds estimate the within-subgroup sigma when spreads are equal.
-    """
-    frame = study.frame
-    y = frame[study.value].to_numpy(dtype=np.float64)
-    group = frame[study.subgroup_column].cat.codes.to_numpy()
-    m = group_moments(y, group, len(frame[study.subgroup_column].cat.categories))
-    if np.all(m.n[m.n > 0] == 1):
-        r, w = y - y.mean(), np.full(y.size, 1.0 - 1.0 / y.size)
-    else:
-        r, w = y - m.mean[group], 1.0 - 1.0 / m.n[group]
-    column = frame[factor].cat.remove_unused_categories()
-    codes, levels = column.cat.codes.to_numpy(), column.cat.categories
-    ss = np.bincount(codes, weights=r * r, minlength=len(levels))
-    ww = np.bincount(codes, weights=w, minlength=len(levels))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return levels, np.sqrt(ss / ww), np.sqrt((ss.sum() - ss) / (ww.sum() - ww))
-
-
 def _spread_findings(ctx: _Context, factor: str, p: float, p_adjusted: float) -> list[Finding]:
-    levels, sd, rest = _level_spread(ctx.study, factor)
+    table = ctx.evidence.level_spread
+    table = table[table["factor"] == factor]
+    levels = table["level"].to_numpy()
+    sd, rest = table["sd"].to_numpy(dtype=np.float64), table["others_sd"].to_numpy(dtype=np.float64)
     if not np.isfinite(sd).any():
         return []
     i = int(np.nanargmax(sd))
@@ -562,10 +414,10 @@ def _spread_findings(ctx: _Context, factor: str, p: float, p_adjusted: float) ->
 # --------------------------------------------------------------------------- time
 
 
-def _adjusted_words(study: Any) -> str:
-    if not study.measured_by:
+def _adjusted_words(evidence: Evidence) -> str:
+    if not evidence.measured_by:
         return ""
-    return f" (after removing the {', '.join(study.measured_by)} offsets)"
+    return f" (after removing the {', '.join(evidence.measured_by)} offsets)"
 
 
 def _shift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
@@ -584,7 +436,7 @@ def _shift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
             title=f"The process average stepped {word} by {ctx.amount(effect)} around "
             f"{_when(start, what)}",
             detail=(
-                f"The subgroup averages{_adjusted_words(ctx.study)} moved from "
+                f"The subgroup averages{_adjusted_words(ctx.evidence)} moved from "
                 f"{_num(row.before, 6)}{ctx.unit} to {_num(row.after, 6)}{ctx.unit} "
                 f"({effect:+.3g}{ctx.unit}, {ctx.in_sigma(effect):+.2f} within-subgroup sigma) "
                 f"from subgroup {row.subgroup}. CUSUM test with binary segmentation: p = "
@@ -604,8 +456,8 @@ def _shift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
 
 def _autocorrelation_finding(ctx: _Context, p: float, p_adjusted: float) -> list[Finding]:
     ts = ctx.ts
-    phi, se = float(ts.ar1["phi"]), float(ts.ar1["se"])
-    n = len(ts.series) if len(ts.series) else len(ts.acf) * 2
+    phi, se = ts.ar1.phi, ts.ar1.se
+    n = len(ts.series)
     lb = ts.ljung_box
     lb_row = lb[lb["lag"] == min(_LJUNG_BOX_LAG, int(lb["lag"].max()))].iloc[0]
     caveat = (
@@ -618,7 +470,7 @@ def _autocorrelation_finding(ctx: _Context, p: float, p_adjusted: float) -> list
             kind="autocorrelation",
             title=f"Consecutive subgroup averages are correlated (phi = {phi:.2f})",
             detail=(
-                f"The subgroup averages{_adjusted_words(ctx.study)} follow their neighbours: "
+                f"The subgroup averages{_adjusted_words(ctx.evidence)} follow their neighbours: "
                 f"lag-1 autocorrelation phi = {phi:.3f} (se {se:.3f}, AR(1) fit), p = {_p(p)}, "
                 f"adjusted p = {_p(p_adjusted)} (Holm over {ctx.n_tests} tests); Ljung-Box "
                 f"Q = {lb_row['q']:.1f} over {int(lb_row['lag'])} lags, p = {_p(lb_row['p'])}. "
@@ -638,21 +490,9 @@ def _autocorrelation_finding(ctx: _Context, p: float, p_adjusted: float) -> list
 # --------------------------------------------------------------------------- chart
 
 
-def _beyond(chart: Any) -> tuple[int, int]:
-    pts = chart.points
-    stat = pts["stat"].to_numpy(dtype=np.float64)
-    ok = np.isfinite(stat)
-    out = (stat > pts["ucl"].to_numpy(dtype=np.float64)) | (
-        stat < pts["lcl"].to_numpy(dtype=np.float64)
-    )
-    return int(np.sum(out & ok)), int(ok.sum())
-
-
-def _out_of_control_finding(
-    ctx: _Context, chart: Any, p: float, p_adjusted: float
-) -> list[Finding]:
-    count, n = _beyond(chart)
-    rate = 2.0 * stats.norm.sf(chart.sigma_level)
+def _out_of_control_finding(ctx: _Context, p: float, p_adjusted: float) -> list[Finding]:
+    chart, beyond = ctx.evidence.chart, ctx.evidence.beyond
+    count, n, rate = beyond.count, beyond.points, beyond.rate
     between = _share(ctx.v, "subgroup") if ctx.v is not None else math.nan
     wander = (
         f" The subgroup-to-subgroup variation beyond what the within-subgroup variation "
@@ -701,8 +541,9 @@ def _cross_references(ctx: _Context, found: list[Finding]) -> list[Finding]:
                 head, last = ", ".join(causes[:-1]), causes[-1]
                 listed = f"{head} and {last}" if head else last
                 extra = f" Read it with the {listed} finding{'s' if head else ''}."
-            if "measurement_offset" in kinds:
-                count, n = _beyond(ctx.study.chart(adjust_for=True))
+            adjusted = ctx.evidence.beyond_adjusted
+            if "measurement_offset" in kinds and adjusted is not None:
+                count, n = adjusted.count, adjusted.points
                 extra += (
                     f" With the measured_by offsets removed, {count} of {n} points lie beyond "
                     "the limits."
@@ -731,7 +572,7 @@ def _confounded_notes(ctx: _Context) -> list[Finding]:
         if pair in seen:
             continue
         seen.add(pair)
-        order = list(ctx.study.factors)
+        order = list(ctx.evidence.factors)
         # A factor with one subgroup per level is confounded with the subgroup column, which
         # is no factor: the subgroup comes first, as the joint model keeps it.
         a, b = sorted(
@@ -756,12 +597,11 @@ def _confounded_notes(ctx: _Context) -> list[Finding]:
     return out
 
 
-def _capability_note(ctx: _Context, chart: Any) -> list[Finding]:
-    s = ctx.study
-    if s.spec is None:
+def _capability_note(ctx: _Context) -> list[Finding]:
+    cap = ctx.evidence.capability
+    if cap is None:
         return []
-    cap = s.capability()
-    count, _ = _beyond(chart)
+    count = ctx.evidence.beyond.count
     name = "ppk" if count else "cpk"
     rows = cap.indices[cap.indices["index"] == name]
     if not len(rows):
@@ -777,10 +617,12 @@ def _capability_note(ctx: _Context, chart: Any) -> list[Finding]:
     )
     limits = ", ".join(
         f"{w} {_num(x, 6)}{ctx.unit}"
-        for w, x in (("LSL", s.spec.lsl), ("USL", s.spec.usl))
+        for w, x in (("LSL", cap.lsl), ("USL", cap.usl))
         if x is not None
     )
-    warnings = [w for w in cap.warnings if "weights-and-measures" not in w]
+    warnings = list(cap.warnings)
+    # The caution chosen by the data: for a fill quantity, net content is a legal matter.
+    cautioned = caution(ctx.evidence.units, cap)
     return [
         Finding(
             kind="capability",
@@ -791,30 +633,48 @@ def _capability_note(ctx: _Context, chart: Any) -> list[Finding]:
                 f"{why}: {name.capitalize()} = {row['value']:.3f} (95 % interval "
                 f"{row['lower']:.3f} to {row['upper']:.3f}); expected {expected:,.0f} ppm "
                 f"outside the specification under a normal model. {' '.join(warnings)} "
-                f"{CAUTION}"
+                f"{cautioned}"
             ).replace("  ", " "),
             effect=float(row["value"]),
             se=math.nan,
-            caveat=CAUTION,
+            caveat=cautioned,
         )
     ]
 
 
 # --------------------------------------------------------------------------- entry point
 
+_Make = Callable[[_Context, float], list[Finding]]
+
+
+def _maker(ctx: _Context, test: Any, min_share: float) -> _Make:
+    """The finding that one gate test of the family stands for, made from its adjusted p."""
+    if test.test == "anova":
+        return lambda c, pa: _factor_findings(c, test.factor, pa, min_share)
+    if test.test == "brown_forsythe":
+        return lambda c, pa: _spread_findings(c, test.factor, test.p, pa)
+    if test.test == "step":
+        shifts = ctx.ts.shifts
+        row = next(shifts[shifts["position"] == test.position].itertuples())
+        return lambda c, pa: _shift_finding(c, row, pa)
+    if test.test == "ar1":
+        return lambda c, pa: _autocorrelation_finding(c, test.p, pa)
+    return lambda c, pa: _out_of_control_finding(c, test.p, pa)
+
 
 def findings(
-    study: Any,
+    evidence: Evidence,
     *,
     alpha: float = 0.05,
     min_effect: float | None = None,
     min_share: float = 0.10,
 ) -> list[Finding]:
-    """Ranked plain-language findings of a Study, strongest first.
+    """Ranked plain-language findings of the evidence of a Study, strongest first.
 
     Parameters
     ----------
-    study : a ``qcexplore.Study``; only its public members are used
+    evidence : the results and their tests (``Study.evidence()``, or
+        ``qcexplore.stats.evidence.collect_evidence`` on results computed without a Study)
     alpha : family-wise error rate over all tested candidates (Holm's method); a level
         of a factor is named only when its factor's test and its own test both pass
     min_effect : the smallest effect worth reporting, in the value's units (a level's
@@ -831,8 +691,7 @@ def findings(
 
     Checked by simulation on the demo filling line (tests/test_findings.py): the planted
     crew offset, nozzle drift and autocorrelation are found; with every effect off, each
-    kind appears in no more of 20 seeds than alpha allows. Holm's adjustment is checked
-    against statsmodels ``multipletests``.
+    kind appears in no more of 20 seeds than alpha allows.
 
     Examples
     --------
@@ -840,93 +699,30 @@ def findings(
     >>> from qcexplore.demo import filling_line
     >>> s = qx.Study(filling_line()[0], value="net_g", subgroup="round", time="taken_at",
     ...              factors=["crew", "nozzle"], measured_by=["crew"], units="g")
-    >>> top = findings(s)[0]
+    >>> top = findings(s.evidence())[0]
     >>> top.kind, top.level
     ('measurement_offset', 'B')
     """
-
-    def number(x: object) -> bool:
-        return isinstance(x, (int, float, np.integer, np.floating)) and not isinstance(x, bool)
-
-    if not (number(alpha) and 0.0 < alpha < 1.0):
-        raise QCDataError(f"findings: alpha={alpha!r} must lie between 0 and 1.")
-    if min_effect is not None and not (
-        number(min_effect) and np.isfinite(min_effect) and min_effect >= 0
-    ):
-        raise QCDataError(
-            f"findings: min_effect={min_effect!r} must be a number >= 0 in the value's units "
-            "(or None for 0.2 within-subgroup sigma)."
+    alpha = real_number("alpha", alpha, lower=0, upper=1, inclusive=False, what="a level")
+    if min_effect is not None:
+        min_effect = real_number(
+            "min_effect", min_effect, lower=0, what="an effect in the value's units (or None)"
         )
-    if not (number(min_share) and 0.0 <= min_share <= 1.0):
-        raise QCDataError(f"findings: min_share={min_share!r} must lie between 0 and 1.")
-    chart = study.chart()
-    sigma = float(chart.limits["sigma"].iloc[0])
-    v = study.variation() if study.factors else None
-    try:
-        ts = study.time_structure()
-    except QCDataError:  # too short or constant: there is no time structure to report
-        ts = None
+    min_share = real_number("min_share", min_share, lower=0, upper=1, what="a share")
+    sigma = float(evidence.chart.limits["sigma"].iloc[0])
     ctx = _Context(
-        study=study,
+        evidence=evidence,
         alpha=alpha,
-        min_effect=DEFAULT_MIN_EFFECT_SD * sigma if min_effect is None else float(min_effect),
+        min_effect=DEFAULT_MIN_EFFECT_SD * sigma if min_effect is None else min_effect,
         sigma=sigma,
-        unit=f" {study.units}" if study.units else "",
-        v=v,
-        ts=ts,
+        unit=f" {evidence.units}" if evidence.units else "",
+        n_tests=len(evidence.tests),
     )
-
-    candidates: list[_Candidate] = []
-    if v is not None:
-        for row in v.anova.itertuples():
-            if row.source in study.factors and np.isfinite(row.p):
-                candidates.append(
-                    _Candidate(
-                        row.p,
-                        lambda c, pa, f=row.source: _factor_findings(c, f, pa, min_share),
-                    )
-                )
-        order = list(study.factors)
-        for row in v.spread[v.spread["test"] == "brown_forsythe"].itertuples():
-            # a factor confounded with an earlier one would repeat that one's finding
-            later = any(
-                order.index(o) < order.index(row.factor)
-                for o in _confounded_with(v, row.factor)
-                if o in order and row.factor in order
-            )
-            if np.isfinite(row.p) and not later:
-                candidates.append(
-                    _Candidate(
-                        row.p, lambda c, pa, f=row.factor, p=row.p: _spread_findings(c, f, p, pa)
-                    )
-                )
-    if ts is not None:
-        for row in ts.shifts.itertuples():
-            candidates.append(_Candidate(row.p, lambda c, pa, r=row: _shift_finding(c, r, pa)))
-        phi, se = float(ts.ar1["phi"]), float(ts.ar1["se"])
-        if se > 0:
-            p_ar = float(2.0 * stats.norm.sf(abs(phi) / se))
-            candidates.append(
-                _Candidate(p_ar, lambda c, pa, p=p_ar: _autocorrelation_finding(c, p, pa))
-            )
-    count, n = _beyond(chart)
-    if n:
-        p_ooc = float(
-            stats.binomtest(
-                count, n, 2.0 * stats.norm.sf(chart.sigma_level), alternative="greater"
-            ).pvalue
-        )
-        candidates.append(
-            _Candidate(p_ooc, lambda c, pa, p=p_ooc: _out_of_control_finding(c, chart, p, pa))
-        )
-
-    adjusted = holm([c.p for c in candidates])
-    ctx = replace(ctx, n_tests=len(candidates))
     found: list[Finding] = []
-    for candidate, p_adjusted in zip(candidates, adjusted, strict=True):
-        if p_adjusted < alpha:
-            found += candidate.make(ctx, float(p_adjusted))
+    for test in evidence.tests.itertuples():
+        if test.p_adjusted < alpha:
+            found += _maker(ctx, test, min_share)(ctx, float(test.p_adjusted))
     found = _cross_references(ctx, found)
     found.sort(key=lambda f: -f.strength)
-    notes = (_confounded_notes(ctx) if v is not None else []) + _capability_note(ctx, chart)
+    notes = (_confounded_notes(ctx) if ctx.v is not None else []) + _capability_note(ctx)
     return found + notes

@@ -1,4 +1,4 @@
-"""The HTML report: one self-contained file with the whole investigation.
+"""The HTML report: one self-contained file with the whole investigation, view by view.
 
 BokehJS is inlined from the installed bokeh package (no CDN, no external files),
 so the report opens on a machine without a network. Every string that comes from
@@ -19,12 +19,11 @@ from bokeh.embed import components
 from bokeh.models import LayoutDOM
 from bokeh.resources import INLINE
 
-from qcexplore import draw
-from qcexplore.app.state import ExplorerState, chart_arguments, fingerprint, load_log
-from qcexplore.app.text import CAUTION, findings_html, log_html, notes_html, table_html
-
-#: A factor gets its own split chart in the report when it has at most this many levels.
-SPLIT_LEVELS = 12
+from qcexplore import views
+from qcexplore.caution import caution
+from qcexplore.views.base import View
+from qcexplore.views.log import ExplorerState, load_log
+from qcexplore.views.text import log_html, table_html
 
 _STYLE = """
 body { font-family: sans-serif; margin: 2em auto; max-width: 1000px; color: #222; }
@@ -85,10 +84,10 @@ def _roles(study: Any) -> str:
         ("factors", ", ".join(roles["factors"]) or "none"),
         ("measured by (sampling and measurement)", ", ".join(roles["measured_by"]) or "none"),
         ("specification", "none" if roles["spec"] is None else _spec_words(roles["spec"])),
-        ("values used", f"{len(study.frame)}"),
+        ("values used", f"{len(study)}"),
         ("subgroups", f"{len(study.subgroups)}"),
         ("rows left out (missing or not finite)", f"{study.dropped}"),
-        ("data fingerprint", fingerprint(study.frame, roles)),
+        ("data fingerprint", study.fingerprint),
     ]
     return table_html(pd.DataFrame(rows, columns=["role", "column or value"]), "Roles")
 
@@ -97,82 +96,28 @@ def _spec_words(spec: dict[str, Any]) -> str:
     return ", ".join(f"{k} {v:g}" for k, v in spec.items() if v is not None)
 
 
-def _chart(page: _Page, study: Any, state: ExplorerState) -> str:
-    result = study.chart(**chart_arguments(state, study))
-    limits = result.limits
-    return (
-        page.figure(draw.chart_figure(result))
-        + table_html(limits, "Limits")
-        + table_html(result.points[result.points["signal"]], "Signals", rows=30)
-        + notes_html(result.notes)
-    )
-
-
-def _split_charts(page: _Page, study: Any, state: ExplorerState) -> str:
-    parts = []
-    for factor in study.factors:
-        levels = study.frame[factor].cat.categories
-        if len(levels) > SPLIT_LEVELS:
-            parts.append(
-                f"<p>{html.escape(factor)}: {len(levels)} levels, too many for one chart.</p>"
-            )
-            continue
-        arguments = chart_arguments(state.replace(by=factor), study)
+def _view_section(page: _Page, study: Any, view: View, state: ExplorerState) -> str:
+    """One view as the report prints it: every choice of the result, then its variants."""
+    why_not = view.available(study)
+    if why_not:
+        return f"<p>{html.escape(why_not)}</p>"
+    options = view.options_for(study, state)
+    result = view.compute(study, options)
+    main = view.show(study, result)
+    parts = [page.figure(f.build()) for f in main.figures] + [main.html]
+    for choice in view.choices(study, result):
+        shown = view.show_choice(study, result, choice)
+        parts.append(f"<h3>{html.escape(view.choice_label)} {html.escape(choice)}</h3>")
+        parts += [page.figure(f.build()) for f in shown.figures] + [shown.html]
+    for heading, variant in view.report_variants(study, options):
+        parts.append(f"<h3>{html.escape(heading)}</h3>")
         try:
-            result = study.chart(**arguments)
+            shown = view.show(study, view.compute(study, variant))
         except Exception as error:
-            parts.append(
-                f"<p class='qcx-error'>Split by {html.escape(factor)}: "
-                f"{html.escape(str(error))}</p>"
-            )
+            parts.append(f"<p class='qcx-error'>{html.escape(str(error))}</p>")
             continue
-        parts.append(f"<h3>Split by {html.escape(factor)}</h3>")
-        parts.append(page.figure(draw.chart_figure(result)))
-    return "".join(parts) or "<p>The study has no factors to split by.</p>"
-
-
-def _variation(page: _Page, study: Any) -> str:
-    result = study.variation()
-    parts = [
-        table_html(result.structure, "How the factors relate to the subgroups"),
-        table_html(result.anova, "Analysis of variance (with the error term each test uses)"),
-        table_html(result.components, "Variance components"),
-        page.figure(draw.components_figure(result)),
-        page.figure(draw.multivari_figure(result)),
-    ]
-    if len(result.offsets):
-        parts.append(table_html(result.offsets, "Sampling and measurement offsets"))
-    for factor, table in result.comparisons.items():
-        parts.append(page.figure(draw.anom_figure(result, factor)))
-        parts.append(table_html(table, f"Comparisons of the levels of {factor}", rows=40))
-    if len(result.spread):
-        parts.append(table_html(result.spread, "Equal spread between levels?"))
-    return "".join(parts) + notes_html(result.notes)
-
-
-def _time(page: _Page, study: Any) -> str:
-    result = study.time_structure()
-    return (
-        page.figure(draw.acf_figure(result))
-        + page.figure(draw.shifts_figure(result))
-        + table_html(result.ljung_box, "Ljung-Box tests of autocorrelation")
-        + table_html(pd.DataFrame([result.ar1]), "First-order autoregressive fit")
-        + table_html(result.shifts, "Step changes")
-        + notes_html(result.notes)
-    )
-
-
-def _capability(page: _Page, study: Any) -> str:
-    if study.spec is None:
-        return "<p>No specification was given, so capability is not computed.</p>"
-    result = study.capability()
-    return (
-        page.figure(draw.capability_figure(result))
-        + table_html(result.indices, "Capability indices")
-        + table_html(result.ppm, "Parts per million outside the specification")
-        + table_html(result.normality, "Normality")
-        + notes_html(result.warnings)
-    )
+        parts += [page.figure(f.build()) for f in shown.figures]
+    return "".join(parts)
 
 
 def write_report(
@@ -184,10 +129,9 @@ def write_report(
 ) -> Path:
     """Write one self-contained HTML report of a Study and return its path.
 
-    Sections: the roles, the control chart (with the log's settings and
-    exclusions, if any) and the chart split by each factor, the sources of
-    variation, the time structure, capability (when the study has a
-    specification), the findings, the investigation log and the caution.
+    Sections: the caution and the roles, then one section per registered view
+    (``qcexplore.views.VIEWS``, with the log's options and exclusions, if any), then the
+    investigation log.
 
     Parameters
     ----------
@@ -208,18 +152,15 @@ def write_report(
     '.html'
     """
     if isinstance(log, (str, Path)):
-        log = load_log(log, data_id=fingerprint(study.frame, study.roles()))
+        data_id = study.fingerprint
+        log = load_log(log, data_id=data_id, option_types=views.option_types())
     state = log or ExplorerState(value=study.value, subgroup=study.subgroup, time=study.time)
     title = title or (f"Investigation of {study.value} ({datetime.now(timezone.utc):%Y-%m-%d})")
     page = _Page()
-    page.parts.append(f"<p class='qcx-caution'>{html.escape(CAUTION)}</p>")
+    page.parts.append(f"<p class='qcx-caution'>{html.escape(caution(study.units, study.spec))}</p>")
     page.section("roles", "The study", lambda: _roles(study))
-    page.section("chart", "Chart", lambda: _chart(page, study, state))
-    page.section("split", "Chart split by each factor", lambda: _split_charts(page, study, state))
-    page.section("variation", "Where the variation comes from", lambda: _variation(page, study))
-    page.section("time", "Over time", lambda: _time(page, study))
-    page.section("capability", "Against the specification", lambda: _capability(page, study))
-    page.section("findings", "What the data say", lambda: findings_html(study.findings()))
+    for view in views.VIEWS:
+        page.section(view.name, view.title, lambda v=view: _view_section(page, study, v, state))
     page.section("log", "Investigation log", lambda: log_html(state.exclusions, state.notes))
     path = Path(path)
     path.write_text(page.render(title), encoding="utf-8")

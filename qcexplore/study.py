@@ -6,6 +6,8 @@ only stores, validates and delegates: every number comes from ``qcexplore.stats`
 
 from __future__ import annotations
 
+import hashlib
+import json
 from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -28,8 +30,15 @@ from qcexplore.data.validate import (
     row_list,
 )
 from qcexplore.errors import QCDataError
+from qcexplore.options import ChartOptions, TimeOptions, VariationOptions
 from qcexplore.spec import Spec
-from qcexplore.stats.results import CapabilityResult, ChartResult, TimeResult, VariationResult
+from qcexplore.stats.results import (
+    CapabilityResult,
+    ChartResult,
+    Evidence,
+    TimeResult,
+    VariationResult,
+)
 from qcexplore.stats.subgroups import subgroup_table
 
 #: Name of the internal column that numbers individual values when there is no subgroup.
@@ -243,10 +252,46 @@ class Study:
         """The validated long table (a copy), in time order, derived factors added."""
         return self._data.drop(columns=[OBSERVATION], errors="ignore")
 
+    def __len__(self) -> int:
+        """The number of values analysed."""
+        return len(self._data)
+
+    def levels(self, column: str) -> pd.Index:
+        """The levels of a factor or of the subgroup column, in the study's order.
+
+        Examples
+        --------
+        >>> from qcexplore.demo import ROLES, filling_line
+        >>> list(Study(filling_line(days=1)[0], **ROLES).levels("crew"))
+        ['A', 'B', 'C']
+        """
+        name = self.subgroup_column if column == self._subgroup else column
+        if name not in self.available_factors and name != self.subgroup_column:
+            raise QCDataError(
+                f"{column!r} is neither the subgroup nor a factor of this study; choose one of "
+                f"{[self.subgroup_column, *self.available_factors]}."
+            )
+        return self._data[name].cat.categories.copy()
+
+    def rows_of(self, subgroups: Sequence[str]) -> pd.DataFrame:
+        """The rows (a copy) of the subgroups with these text labels, in time order."""
+        column = self._data[self.subgroup_column]
+        names = np.asarray(column.cat.categories.astype(str), dtype=object)
+        chosen = np.flatnonzero(np.isin(names, list(subgroups)))
+        rows = np.isin(column.cat.codes.to_numpy(), chosen)
+        return self.data.loc[rows]
+
     @property
-    def frame(self) -> pd.DataFrame:
-        """The frame handed to ``qcexplore.stats`` (read-only by convention)."""
-        return self._data
+    def fingerprint(self) -> str:
+        """A short hash of the analysed values and the roles: what a saved log was made on."""
+
+        def compute() -> str:
+            digest = hashlib.sha256()
+            digest.update(np.ascontiguousarray(self._data[self._value].to_numpy(float)).tobytes())
+            digest.update(json.dumps(self.roles(), sort_keys=True, default=str).encode())
+            return digest.hexdigest()[:16]
+
+        return self._cached(("fingerprint",), compute)
 
     @property
     def subgroup_column(self) -> str:
@@ -319,12 +364,16 @@ class Study:
         subset = self.data.loc[keep]
         return Study(subset, **self.roles())
 
-    def adjusted_frame(self, adjust_for: Sequence[str] | bool | None = None) -> pd.DataFrame:
-        """The frame with each measured_by level's offset removed from the value.
+    def adjusted_data(self, adjust_for: Sequence[str] | bool | None = None) -> pd.DataFrame:
+        """The table (a copy) with each measured_by level's offset removed from the value.
 
         ``adjust_for=True`` removes every measured_by factor's offsets; a list
         names them. The offsets come from ``stats.variation.measurement_offsets``.
         """
+        return self._adjusted(adjust_for).drop(columns=[OBSERVATION], errors="ignore")
+
+    def _adjusted(self, adjust_for: Sequence[str] | bool | None) -> pd.DataFrame:
+        """The internal table with the offsets removed (cached; never handed out)."""
         chosen = self._adjust_factors(adjust_for)
         if not chosen:
             return self._data
@@ -386,6 +435,7 @@ class Study:
         (``True`` for all of them), so the process can be seen without the
         sampling effect. ``params``: ``lam``, ``L`` (EWMA), ``k``, ``h`` (CUSUM),
         ``size`` (the number inspected, for p, np and u charts), ``laney``.
+        The arguments are checked by :class:`~qcexplore.options.ChartOptions`.
 
         Examples
         --------
@@ -394,46 +444,51 @@ class Study:
         >>> s.chart().kind
         'xbar_r'
         """
+        unknown = sorted(set(params) - set(ChartOptions.__dataclass_fields__))
+        if unknown:
+            raise QCDataError(
+                f"chart() has no option {', '.join(unknown)}; the chart's other options are "
+                "lam, L (EWMA), k, h (CUSUM), size and laney (attribute charts)."
+            )
+        options = ChartOptions(
+            kind=kind, by=by, limits=limits, sigma_level=sigma_level, sigma_method=sigma_method,
+            center=center, sigma=sigma, rules=rules, exclude=exclude,
+            adjust_for=bool(adjust_for) if adjust_for in (None, True, False) else adjust_for,
+            iterate=iterate, **params,
+        )  # fmt: skip
+        return self.chart_of(options)
+
+    def chart_of(self, options: ChartOptions) -> ChartResult:
+        """The control chart for an options object (cached by the options)."""
         from qcexplore.stats.charts import control_chart
 
-        if by is not None and by not in self.available_factors:
+        if options.by is not None and options.by not in self.available_factors:
             raise QCDataError(
-                f"by={by!r} is not a factor of this study; choose one of "
+                f"by={options.by!r} is not a factor of this study; choose one of "
                 f"{list(self.available_factors)}."
             )
-        exclude = tuple(exclude)
-        rules_key = rules if isinstance(rules, str) else tuple(rules)
-        chosen = self._adjust_factors(adjust_for)
-        key = (
-            "chart", kind, by, limits, float(sigma_level), sigma_method, center, sigma,
-            rules_key, exclude, chosen, bool(iterate), tuple(sorted(params.items())),
-        )  # fmt: skip
+        chosen = self._adjust_factors(options.adjust_for)
+        # True and the list of every measured_by factor ask for the same chart: one cache entry.
         return self._cached(
-            key,
+            ("chart", options.replace(adjust_for=chosen or False)),
             lambda: control_chart(
-                self.adjusted_frame(chosen),
+                self._adjusted(chosen),
                 value=self._value,
                 subgroup=self.subgroup_column,
                 time=self._time,
-                kind=kind,
-                by=by,
-                limits=limits,
-                sigma_level=sigma_level,
-                sigma_method=sigma_method,
-                center=center,
-                sigma=sigma,
-                rules=rules_key,
-                exclude=exclude,
-                iterate=iterate,
-                **params,
+                **options.chart_arguments(),
             ),
         )
 
     def variation(self, factors: Sequence[str] | None = None) -> VariationResult:
         """The variance taken apart into its sources (``qcexplore.stats.variation``)."""
+        return self.variation_of(VariationOptions(factors=factors))
+
+    def variation_of(self, options: VariationOptions) -> VariationResult:
+        """The variance decomposition for an options object (cached by the options)."""
         from qcexplore.stats.variation import variation
 
-        chosen = self._factors if factors is None else column_names(factors, "factors")
+        chosen = self._factors if options.factors is None else options.factors
         unknown = [f for f in chosen if f not in self.available_factors]
         if unknown:
             raise QCDataError(
@@ -448,7 +503,6 @@ class Study:
                 subgroup=self.subgroup_column,
                 factors=chosen,
                 measured_by=tuple(m for m in self._measured_by if m in chosen),
-                time=self._time,
             ),
         )
 
@@ -456,12 +510,16 @@ class Study:
         """The plotted series: ``subgroup, start, mean, n`` in time order."""
         chosen = self._adjust_factors(adjust_for)
         table = subgroup_table(
-            self.adjusted_frame(chosen),
+            self._adjusted(chosen),
             value=self._value,
             subgroup=self.subgroup_column,
             time=self._time,
         )
         return table[["subgroup", "start", "mean", "n"]]
+
+    def time_structure_of(self, options: TimeOptions) -> TimeResult:
+        """The time structure for an options object."""
+        return self.time_structure(max_lag=options.max_lag)
 
     def time_structure(self, max_lag: int | None = None) -> TimeResult:
         """Autocorrelation and step changes of the subgroup means.
@@ -474,7 +532,13 @@ class Study:
         adjust = bool(self._measured_by)
         return self._cached(
             ("time", max_lag),
-            lambda: time_structure(self.series(adjust_for=adjust or None), max_lag=max_lag),
+            lambda: time_structure(
+                self._adjusted(adjust or None),
+                value=self._value,
+                subgroup=self.subgroup_column,
+                time=self._time,
+                max_lag=max_lag,
+            ),
         )
 
     def capability(self, spec: Spec | Mapping[str, float] | None = None) -> CapabilityResult:
@@ -490,15 +554,12 @@ class Study:
 
         def compute() -> CapabilityResult:
             chart = self.chart()
-            beyond = chart.points["rules"].map(lambda fired: "N1" in fired or "WE1" in fired)
-            sigma_within = float(chart.limits["sigma"].iloc[0])
             return capability(
-                self._data[self._value].to_numpy(),
-                lsl=chosen.lsl,
-                usl=chosen.usl,
-                target=chosen.target,
-                sigma_within=sigma_within,
-                in_control=not bool(beyond.any()),
+                self._data,
+                value=self._value,
+                spec=chosen,
+                sigma_within=float(chart.limits["sigma"].iloc[0]),
+                in_control=not bool(chart.points["beyond"].any()),
             )
 
         return self._cached(("capability", chosen), compute)
@@ -508,7 +569,38 @@ class Study:
         from qcexplore.findings import findings
 
         key = ("findings", tuple(sorted(options.items())))
-        return list(self._cached(key, lambda: tuple(findings(self, **options))))
+        return list(self._cached(key, lambda: tuple(findings(self.evidence(), **options))))
+
+    def evidence(self) -> Evidence:
+        """Everything the findings cite (an ``Evidence``): the results and the tests on them.
+
+        The time structure is left out when the series is too short or constant, the
+        capability when there is no specification.
+        """
+        from qcexplore.stats.evidence import collect_evidence
+
+        def compute() -> Any:
+            try:
+                time_result = self.time_structure()
+            except QCDataError:  # too short or constant: there is no time structure to cite
+                time_result = None
+            return collect_evidence(
+                self._data,
+                value=self._value,
+                subgroup=self.subgroup_column,
+                time=self._time,
+                factors=self._factors,
+                measured_by=self._measured_by,
+                individuals=self._subgroup is None,
+                units=self._units,
+                chart=self.chart(),
+                variation=self.variation() if self._factors else None,
+                time_result=time_result,
+                capability=self.capability() if self._spec is not None else None,
+                adjusted_chart=self.chart(adjust_for=True) if self._measured_by else None,
+            )
+
+        return self._cached(("evidence",), compute)
 
     def explore(self, **options: Any) -> Any:
         """The interactive explorer widget for this study."""

@@ -33,6 +33,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import harness
 import pytest
 
 from qcexplore.app import serve
@@ -45,7 +46,7 @@ REPO = Path(__file__).resolve().parents[1]
 
 def environment(home: Path) -> dict[str, str]:
     """Jupyter writes only under ``home``; kernels import this checkout."""
-    return serve.private_environment(home, python_path=[REPO])
+    return harness.private_environment(home, python_path=[REPO])
 
 
 CHROMIUM = Path("/usr/bin/chromium")
@@ -184,7 +185,7 @@ def app(browser: Any, shots: Path, tmp_path_factory: pytest.TempPathFactory) -> 
     """``qcexplore app`` (the demo) on loopback and one page on it, chart drawn."""
     home = tmp_path_factory.mktemp("app-home")
     started = time.perf_counter()
-    process, address = serve.launch(["--idle-timeout", "120"], env=environment(home))
+    process, address = harness.launch(["--idle-timeout", "120"], env=environment(home))
     try:
         listening = time.perf_counter() - started
         tab = new_tab(browser)
@@ -200,7 +201,7 @@ def app(browser: Any, shots: Path, tmp_path_factory: pytest.TempPathFactory) -> 
         snap(tab.page, shots, "1-chart")
         yield tab
     finally:
-        serve.stop(process)
+        harness.stop(process)
 
 
 def test_served_chart_is_on_screen(app: Tab, capsys: pytest.CaptureFixture) -> None:
@@ -352,7 +353,7 @@ def lab(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
                 time.sleep(0.5)
         yield address
     finally:
-        serve.stop(process)
+        harness.stop(process)
         log.close()
 
 

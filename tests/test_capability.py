@@ -6,6 +6,7 @@ import math
 import warnings
 
 import numpy as np
+import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -13,13 +14,20 @@ from scipy import stats
 from statsmodels.stats.diagnostic import normal_ad
 
 from qcexplore.errors import QCDataError
-from qcexplore.stats.capability import CAUTION, anderson_darling_normal, capability
+from qcexplore.spec import Spec
+from qcexplore.stats.capability import anderson_darling_normal, capability
 
 
 def exact_sample(mean: float, sd: float, n: int = 200, seed: int = 3) -> np.ndarray:
     """Normal-looking values rescaled so the sample mean and sd are exactly as given."""
     z = np.random.default_rng(seed).standard_normal(n)
     return mean + sd * (z - z.mean()) / z.std(ddof=1)
+
+
+def cap(values, *, lsl=None, usl=None, target=None, **kwargs):
+    """cap() of the values as a one-column table against Spec(lsl, usl, target)."""
+    frame = pd.DataFrame({"net_g": values})
+    return capability(frame, value="net_g", spec=Spec(lsl=lsl, usl=usl, target=target), **kwargs)
 
 
 def row(result, name):
@@ -31,7 +39,7 @@ def test_indices_from_known_mean_and_sigma():
     # Data built with mean 500 and sd 2; Cp = 12/12 = 1, Cpk = min(8, 4)/6 (definitions,
     # common practice).
     x = exact_sample(500.0, 2.0)
-    r = capability(x, lsl=492.0, usl=504.0, sigma_within=1.0)
+    r = cap(x, lsl=492.0, usl=504.0, sigma_within=1.0)
     assert row(r, "pp")["value"] == pytest.approx(1.0, rel=1e-12)
     assert row(r, "ppk")["value"] == pytest.approx(4.0 / 6.0, rel=1e-12)
     assert row(r, "ppl")["value"] == pytest.approx(8.0 / 6.0, rel=1e-12)
@@ -52,7 +60,7 @@ def test_indices_from_known_mean_and_sigma():
 )
 def test_expected_ppm_of_centred_process(half_width, expected_ppm, tol):
     x = exact_sample(10.0, 0.5)
-    r = capability(x, lsl=10.0 - half_width * 0.5, usl=10.0 + half_width * 0.5)
+    r = cap(x, lsl=10.0 - half_width * 0.5, usl=10.0 + half_width * 0.5)
     ppm = r.ppm.set_index("side")
     assert ppm.loc["total", "expected"] == pytest.approx(expected_ppm, abs=tol)
     assert ppm.loc["lower", "expected"] == pytest.approx(ppm.loc["upper", "expected"])
@@ -61,7 +69,7 @@ def test_expected_ppm_of_centred_process(half_width, expected_ppm, tol):
 
 def test_observed_ppm_counts_values_outside():
     x = np.arange(1.0, 101.0)  # 100 values, 3 below 4 and 5 above 95
-    r = capability(x, lsl=4.0, usl=95.0)
+    r = cap(x, lsl=4.0, usl=95.0)
     ppm = r.ppm.set_index("side")["observed"]
     assert ppm["lower"] == pytest.approx(30000.0)
     assert ppm["upper"] == pytest.approx(50000.0)
@@ -72,7 +80,7 @@ def test_chi_square_interval_for_cp_by_hand():
     # Cp interval: Cp * sqrt(chi2_{a/2,n-1}/(n-1)) .. Cp * sqrt(chi2_{1-a/2,n-1}/(n-1));
     # hand computation with scipy.stats.chi2.
     x = exact_sample(0.0, 1.0, n=50)
-    r = capability(x, lsl=-3.6, usl=3.6, sigma_within=1.2, confidence=0.9)
+    r = cap(x, lsl=-3.6, usl=3.6, sigma_within=1.2, confidence=0.9)
     cp = 7.2 / (6 * 1.2)
     lower = cp * math.sqrt(stats.chi2.ppf(0.05, 49) / 49)
     upper = cp * math.sqrt(stats.chi2.ppf(0.95, 49) / 49)
@@ -87,7 +95,7 @@ def test_bissell_interval_for_cpk():
     # Bissell (1990): Cpk +- z * sqrt(1/(9n) + Cpk^2/(2(n-1))).
     n = 40
     x = exact_sample(5.0, 1.0, n=n)
-    r = capability(x, lsl=1.0, usl=8.0)
+    r = cap(x, lsl=1.0, usl=8.0)
     ppk = 1.0  # (8 - 5) / 3
     half = stats.norm.ppf(0.975) * math.sqrt(1 / (9 * n) + ppk**2 / (2 * (n - 1)))
     got = row(r, "ppk")
@@ -98,7 +106,7 @@ def test_bissell_interval_for_cpk():
 
 def test_minimum_fill_has_lower_side_only():
     x = exact_sample(455.0, 1.5)
-    r = capability(x, lsl=450.0, sigma_within=1.4)
+    r = cap(x, lsl=450.0, sigma_within=1.4)
     assert r.indices["index"].tolist() == ["cpl", "cpk", "ppl", "ppk"]
     assert r.ppm["side"].tolist() == ["lower", "total"]
 
@@ -119,24 +127,24 @@ def test_anderson_darling_against_scipy_and_statsmodels():
 
 def test_warnings_for_small_non_normal_and_unstable_data():
     x = np.random.default_rng(2).exponential(size=20)
-    r = capability(x, usl=6.0, in_control=False)
+    r = cap(x, usl=6.0, in_control=False)
     text = " ".join(r.warnings)
     assert "not look normal" in text
     assert "not in statistical control" in text
     assert "Only 20 values" in text
     assert "Cp and Cpk are omitted" in text
-    assert CAUTION in r.warnings
     assert r.normality["p"].iloc[0] < 0.05
 
 
-def test_clean_data_carries_only_the_caution():
-    r = capability(exact_sample(0.0, 1.0), lsl=-4, usl=4, sigma_within=1.0, in_control=True)
-    assert r.warnings == (CAUTION,)
+def test_clean_data_carry_no_warning():
+    # The caution is the views' (qcexplore.caution), chosen by the data, not a result's.
+    r = cap(exact_sample(0.0, 1.0), lsl=-4, usl=4, sigma_within=1.0, in_control=True)
+    assert r.warnings == ()
 
 
 def test_histogram_and_curve_for_drawing():
     x = exact_sample(100.0, 3.0, n=300)
-    r = capability(x, lsl=90.0, usl=110.0)
+    r = cap(x, lsl=90.0, usl=110.0)
     assert list(r.histogram.columns) == ["left", "right", "count"]
     assert r.histogram["count"].sum() == 300
     assert list(r.curve.columns) == ["x", "density"]
@@ -150,25 +158,45 @@ def test_histogram_and_curve_for_drawing():
 @pytest.mark.parametrize(
     ("kwargs", "values", "match"),
     [
-        ({}, [1.0, 2.0, 3.0, 4.0], "no specification limit"),
-        ({"lsl": 5.0, "usl": 5.0}, [1.0, 2.0, 3.0, 4.0], "not below usl"),
         ({"lsl": 1.0}, [1.0, 2.0], "at least 3"),
-        ({"lsl": 1.0}, [1.0, np.nan, 2.0, 3.0], "values: missing or infinite values in row 2;"),
+        (
+            {"lsl": 1.0},
+            [1.0, np.nan, 2.0, 3.0],
+            "given as value: missing or infinite values in row 2;",
+        ),
         ({"usl": 1.0}, [2.0, 2.0, 2.0], "identical"),
         ({"usl": 9.0, "sigma_within": 0.0}, [1.0, 2.0, 3.0], "sigma_within"),
         ({"usl": 9.0, "confidence": 1.5}, [1.0, 2.0, 3.0], "confidence"),
-        ({"usl": np.inf}, [1.0, 2.0, 3.0], "usl"),
         # Arguments that are not numbers are bad input too, never a TypeError.
-        ({"lsl": "a"}, [1.0, 2.0, 3.0], "lsl='a'"),
-        ({"usl": 9.0, "target": "mid"}, [1.0, 2.0, 3.0], "target"),
         ({"usl": 9.0, "sigma_within": "x"}, [1.0, 2.0, 3.0], "sigma_within"),
         ({"usl": 9.0, "confidence": None}, [1.0, 2.0, 3.0], "confidence"),
-        ({"usl": 9.0}, ["a", "b", "c"], "values: cells that are not numbers.*rows 1, 2, 3"),
+        ({"usl": 9.0}, ["a", "b", "c"], "given as value: cells that are not numbers.*rows 1, 2, 3"),
     ],
 )
 def test_bad_input_raises(kwargs, values, match):
     with pytest.raises(QCDataError, match=match):
-        capability(np.array(values, dtype=object), **kwargs)
+        cap(np.array(values, dtype=object), **kwargs)
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "match"),
+    [
+        ({}, "at least one limit"),
+        ({"lsl": 5.0, "usl": 5.0}, "not below usl"),
+        ({"usl": np.inf}, "usl"),
+        ({"lsl": "a"}, "lsl='a'"),
+        ({"usl": 9.0, "target": "mid"}, "target"),
+    ],
+)
+def test_a_bad_specification_is_refused_by_spec(kwargs, match):
+    # The limits are checked once, where the Spec is made, before any capability is computed.
+    with pytest.raises(QCDataError, match=match):
+        cap(np.array([1.0, 2.0, 3.0]), **kwargs)
+
+
+def test_a_table_is_required():
+    with pytest.raises(QCDataError, match="DataFrame"):
+        capability(np.array([1.0, 2.0, 3.0]), value="net_g", spec=Spec(usl=9.0))
 
 
 @settings(max_examples=40, deadline=None)
@@ -182,8 +210,8 @@ def test_indices_invariant_to_units_and_ordered(loc, scale, seed, sigma_ratio):
     # Property: changing units (affine map of values and limits) leaves every index,
     # interval and ppm unchanged; Cpk <= Cp and Ppk <= Pp; intervals contain the estimate.
     z = np.random.default_rng(seed).normal(size=40)
-    base = capability(z, lsl=-2.5, usl=3.0, sigma_within=sigma_ratio)
-    moved = capability(
+    base = cap(z, lsl=-2.5, usl=3.0, sigma_within=sigma_ratio)
+    moved = cap(
         loc + scale * z,
         lsl=loc - 2.5 * scale,
         usl=loc + 3.0 * scale,

@@ -395,6 +395,28 @@ def test_cusum_matches_a_plain_loop():
     first = int(np.flatnonzero(high[150:])[0]) + 150
     assert 140 <= start[first] <= 160
     assert np.isnan(r.false_alarm_rate)
+    # beyond: either sum outside its decision interval, from the same plain loop.
+    assert pts["beyond"].tolist() == signal.tolist()
+
+
+def test_cusum_points_are_beyond_when_the_lower_sum_is():
+    rng = np.random.default_rng(13)
+    x = rng.normal(0, 1, 200)
+    x[100:] -= 1.0  # a step down: only C- grows
+    r = control_chart(
+        _frame(x, 1), value="x", subgroup="sg", kind="cusum", center=0.0, sigma=1.0, k=0.5, h=4.0
+    )
+    cp = cm = 0.0
+    up, down = [], []
+    for xi in x:  # C+ = max(0, C+ + x - (mu + k sigma)), C- likewise, plain loop (Page 1954)
+        cp, cm = max(0.0, cp + xi - 0.5), max(0.0, cm - 0.5 - xi)
+        up.append(cp)
+        down.append(cm)
+    lower = np.array(down) > 4.0
+    pts = r.points
+    assert lower.any() and pts["beyond"].tolist() == (lower | (np.array(up) > 4.0)).tolist()
+    # C+ stays inside its limit there: the stat column alone would not show these points.
+    assert not (pts["stat"] > pts["ucl"])[lower].any()
 
 
 # ------------------------------------------------------------------------ strata
@@ -558,3 +580,51 @@ def test_bad_counts_are_rejected_and_good_ones_accepted(counts, sizes):
         r = control_chart(frame, value="x", subgroup="sg", kind="p", size="m")
         assert ((r.points.lcl >= 0) & (r.points.ucl <= 1)).all()
         assert r.points["stat"].to_numpy() == pytest.approx(x / m)
+
+
+# ------------------------------------------------------------ beyond the limits
+
+
+def _outside_by_hand(points: pd.DataFrame) -> list[bool]:
+    """Outside the point's own limits, read off the table (common practice)."""
+    stat = points["stat"].to_numpy()
+    return ((stat > points["ucl"].to_numpy()) | (stat < points["lcl"].to_numpy())).tolist()
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    kind=st.sampled_from(["xbar_r", "xbar_s", "imr", "ewma", "p", "u", "c"]),
+    split=st.booleans(),
+    level=st.sampled_from([2.0, 2.5, 3.0]),
+)
+def test_beyond_is_outside_the_limits_and_is_what_rule_one_flags(seed, kind, split, level):
+    rng = np.random.default_rng(seed)
+    n = 1 if kind == "imr" else 4
+    x = rng.normal(0, 1, 40 * n) + np.repeat(rng.normal(0, 1, 40), n)  # wide subgroup means
+    frame = _frame(x, n, crew=np.tile(["A", "B"], 20 * n))
+    if kind == "p":  # over-dispersed counts, so that some points lie beyond
+        frame["x"] = rng.binomial(20, np.repeat(rng.beta(2.0, 8.0, 40), n)).astype(float)
+    elif kind in ("u", "c"):
+        frame["x"] = rng.poisson(np.repeat(rng.gamma(2.0, 2.0, 40), n)).astype(float)
+    frame["m"] = 20.0
+    extra = {"size": "m"} if kind in ("p", "u") else {}
+    split_args = {"by": "crew", "limits": "per_stratum"} if split else {}
+    r = control_chart(
+        frame,
+        value="x",
+        subgroup="sg",
+        kind=kind,
+        sigma_level=level,
+        L=level,
+        **extra,
+        **split_args,
+    )
+    charts = [r] if r.secondary is None else [r, r.secondary]
+    for chart in charts:
+        beyond = chart.points["beyond"]
+        assert beyond.dtype == bool
+        assert beyond.tolist() == _outside_by_hand(chart.points)
+        # The beyond-limits rule (N1) reads z = (stat - center) / se against the level.
+        rule_one = [chart.rules[0] in fired for fired in chart.points["rules"]]
+        assert beyond.tolist() == rule_one

@@ -14,6 +14,7 @@ import urllib.request
 from collections.abc import Callable
 from pathlib import Path
 
+import harness
 import pandas as pd
 import pytest
 
@@ -27,7 +28,7 @@ REPO = Path(__file__).resolve().parents[1]
 
 def environment(home: Path) -> dict[str, str]:
     """Jupyter writes only under ``home``; kernels import this checkout."""
-    return serve.private_environment(home, python_path=[REPO])
+    return harness.private_environment(home, python_path=[REPO])
 
 
 DEMO_ARGS = [
@@ -309,7 +310,7 @@ def wait_until(condition: Callable[[], bool], seconds: float, what: str) -> None
 
 def test_token_guards_the_app_idle_kernels_go_and_ctrl_c_stops_it(tmp_path: Path) -> None:
     token = "test-token-7f3a"
-    process, address = serve.launch(
+    process, address = harness.launch(
         ["--token", token, "--idle-timeout", "2"], env=environment(tmp_path)
     )
     try:
@@ -338,7 +339,7 @@ def test_token_guards_the_app_idle_kernels_go_and_ctrl_c_stops_it(tmp_path: Path
 
         wait_until(group_gone, 20, "kernels of the stopped app are still running")
     finally:
-        serve.stop(process)
+        harness.stop(process)
 
 
 def test_python_dash_m_runs_the_command_line(tmp_path: Path) -> None:

@@ -23,9 +23,15 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from qcexplore import draw
-from qcexplore.draw import charts, theme
+from qcexplore.draw import charts, encode, palette, parts
 from qcexplore.errors import QCDataError
-from qcexplore.stats.results import CapabilityResult, ChartResult, TimeResult, VariationResult
+from qcexplore.stats.results import (
+    AR1Fit,
+    CapabilityResult,
+    ChartResult,
+    TimeResult,
+    VariationResult,
+)
 from qcexplore.stats.rules import RULE_TEXT
 
 DRAW_DIR = Path(draw.__file__).parent
@@ -44,7 +50,9 @@ def chart_result(
     signals: tuple[int, ...] = (3, 7),
     seed: int = 0,
     ucl: np.ndarray | float = 13.0,
+    kind: str = "xbar_r",
 ) -> ChartResult:
+    """A chart of subgroup means (``kind`` "xbar_r" or "xbar_s", with its R or S chart)."""
     rng = np.random.default_rng(seed)
     signal = np.zeros(k, dtype=bool)
     signal[[i for i in signals if i < k]] = True
@@ -83,9 +91,10 @@ def chart_result(
             stat=rng.uniform(0.0, 4.0, k), center=2.0, lcl=0.0, ucl=4.5, signal=False
         )
         sec_points["rules"] = [()] * k
-        sec = ChartResult("r", sec_points, limits, statistic="range")
+        sec_kind, sec_statistic = ("r", "range") if kind == "xbar_r" else ("s", "sd")
+        sec = ChartResult(sec_kind, sec_points, limits, statistic=sec_statistic)
     return ChartResult(
-        "xbar_r",
+        kind,
         points,
         limits,
         secondary=sec,
@@ -93,6 +102,43 @@ def chart_result(
         by="crew" if strata else None,
         limits_mode="per_stratum" if per_stratum else "pooled",
     )
+
+
+#: A CUSUM chart by hand: the upper sum C+ (``stat``) crosses its limit 4 at points 6-7,
+#: the lower sum C- (``stat_lower``, drawn below zero) crosses -4 at points 10-11.
+CUSUM_UPPER = np.array([0.0, 0.0, 1.0, 2.0, 3.0, 5.0, 6.0, 0.0, 0.0, 0.0, 0.0, 0.0])
+CUSUM_LOWER = np.array([0.0, -1.0, 0.0, 0.0, 0.0, 0.0, 0.0, -2.0, -3.0, -5.0, -6.0, -1.0])
+
+
+def cusum_result(seed: int = 0, strata: tuple[str, ...] | None = None) -> ChartResult:
+    k = CUSUM_UPPER.size
+    signal = (CUSUM_UPPER > 4) | (CUSUM_LOWER < -4)
+    stratum = [strata[i % len(strata)] for i in range(k)] if strata else [None] * k
+    points = pd.DataFrame(
+        {
+            "subgroup": pd.Categorical(np.arange(1, k + 1), ordered=True),
+            "stratum": pd.Categorical(stratum, categories=list(strata or ())),
+            "stat": CUSUM_UPPER + seed * 0.1 * (CUSUM_UPPER > 0),
+            "stat_lower": CUSUM_LOWER,
+            "center": 0.0,
+            "lcl": -4.0,
+            "ucl": 4.0,
+            "n": 5,
+            "signal": signal,
+            "rules": [("N1",) if s else () for s in signal],
+        }
+    )
+    limits = pd.DataFrame(
+        {
+            "stratum": [None],
+            "center": [0.0],
+            "lcl": [-4.0],
+            "ucl": [4.0],
+            "sigma": [1.0],
+            "method": ["R-bar/d2"],
+        }
+    )
+    return ChartResult("cusum", points, limits, statistic="cusum", by="crew" if strata else None)
 
 
 def variation_result(levels: tuple[str, ...] = ("A", "B", "C"), k: int = 4) -> VariationResult:
@@ -117,6 +163,7 @@ def variation_result(levels: tuple[str, ...] = ("A", "B", "C"), k: int = 4) -> V
             "p": [0.5] * n_lv + [0.02],
             "lower": [0.5] * n_lv + [np.nan],
             "upper": [3.5] * n_lv + [np.nan],
+            "signal": [False, False, True, *([False] * (n_lv - 3))][:n_lv] + [False],
         }
     )
     components = pd.DataFrame(
@@ -135,6 +182,10 @@ def variation_result(levels: tuple[str, ...] = ("A", "B", "C"), k: int = 4) -> V
         multivari=pd.concat([crew, nozzle], ignore_index=True),
         method="ANOVA (expected mean squares)",
     )
+
+
+#: The figures do not draw the AR(1) fit.
+AR1_UNUSED = AR1Fit(*[float("nan")] * 6)
 
 
 def time_result(k: int = 30, shift_at: int = 15) -> TimeResult:
@@ -165,7 +216,7 @@ def time_result(k: int = 30, shift_at: int = 15) -> TimeResult:
             "p": [0.001],
         }
     )
-    return TimeResult(acf, pd.DataFrame(), {}, shifts, series=series)
+    return TimeResult(acf, pd.DataFrame(), AR1_UNUSED, shifts, series=series, effective_n=k / 3)
 
 
 def capability_result(shift: float = 0.0) -> CapabilityResult:
@@ -269,7 +320,8 @@ def test_chart_split_gives_one_panel_per_stratum_with_shared_axes():
     assert "chart" not in models and "chart_title" in models
     assert len({p.y_range.id for p in panels}) == 1
     assert len({p.x_range.id for p in panels + lower}) == 1
-    assert [p.title.text for p in panels] == ["mean, crew = A", "mean, crew = B", "mean, crew = C"]
+    titles = [p.title.text for p in panels]
+    assert titles == [f"Subgroup mean, crew = {level}" for level in "ABC"]
     # each panel draws its own stratum's rows of the shared source, through a filter on
     # the panel_code column
     codes = models["chart_points"].data["panel_code"]
@@ -350,15 +402,199 @@ def test_palette_is_okabe_ito_in_a_fixed_order():
     colours = draw.palette_for(["w", "x", "y", "z"])
     rgb = [tuple(int(c[i : i + 2], 16) for i in (1, 3, 5)) for c in colours.values()]
     assert rgb == [(0, 114, 178), (230, 159, 0), (0, 158, 115), (204, 121, 167)]
-    assert theme.ACCENT not in theme.STRATA_COLORS  # signals never look like a stratum
+    assert palette.ACCENT not in palette.STRATA_COLORS  # signals never look like a stratum
 
 
-@given(st.lists(st.text(min_size=1, max_size=4), min_size=1, max_size=7, unique=True))
+@given(st.lists(st.text(min_size=1, max_size=4), min_size=1, max_size=8, unique=True))
 def test_palette_is_deterministic_and_distinct(levels):
     first = draw.palette_for(levels)
     assert first == draw.palette_for(list(levels))
     assert list(first) == levels
     assert len(set(first.values())) == len(levels)
+
+
+# CIELAB from sRGB: the sRGB transfer function and primaries matrix of IEC 61966-2-1:1999,
+# then the CIELAB formulas of CIE 15:2004 with the D65 white of that matrix (its rows sum
+# to X, Y, Z = 0.9505, 1, 1.0890).
+SRGB_TO_XYZ = np.array(
+    [[0.4124, 0.3576, 0.1805], [0.2126, 0.7152, 0.0722], [0.0193, 0.1192, 0.9505]]
+)
+
+
+def srgb_to_lab(colour: str) -> np.ndarray:
+    rgb = np.array([int(colour[i : i + 2], 16) for i in (1, 3, 5)]) / 255.0
+    linear = np.where(rgb <= 0.04045, rgb / 12.92, ((rgb + 0.055) / 1.055) ** 2.4)
+    t = SRGB_TO_XYZ @ linear / SRGB_TO_XYZ.sum(axis=1)
+    f = np.where(t > (6 / 29) ** 3, np.cbrt(t), t / (3 * (6 / 29) ** 2) + 4 / 29)
+    return np.array([116 * f[1] - 16, 500 * (f[0] - f[1]), 200 * (f[1] - f[2])])
+
+
+def ciede2000(lab1, lab2) -> float:
+    """CIEDE2000 colour difference (kL = kC = kH = 1), as written out step by step in
+    Sharma, Wu and Dalal, "The CIEDE2000 color-difference formula: implementation notes,
+    supplementary test data, and mathematical observations", Color Res. Appl. 30 (2005)."""
+    (l1, a1, b1), (l2, a2, b2) = lab1, lab2
+    c_bar = (np.hypot(a1, b1) + np.hypot(a2, b2)) / 2
+    g = 0.5 * (1 - np.sqrt(c_bar**7 / (c_bar**7 + 25.0**7)))
+    a1p, a2p = (1 + g) * a1, (1 + g) * a2
+    c1p, c2p = np.hypot(a1p, b1), np.hypot(a2p, b2)
+    h1p = np.degrees(np.arctan2(b1, a1p)) % 360 if c1p else 0.0
+    h2p = np.degrees(np.arctan2(b2, a2p)) % 360 if c2p else 0.0
+    dh = h2p - h1p if c1p * c2p else 0.0
+    dh = dh - 360 if dh > 180 else dh + 360 if dh < -180 else dh
+    d_l, d_c = l2 - l1, c2p - c1p
+    d_h = 2 * np.sqrt(c1p * c2p) * np.sin(np.radians(dh / 2))
+    l_bar, cp_bar = (l1 + l2) / 2, (c1p + c2p) / 2
+    if c1p * c2p == 0:
+        h_bar = h1p + h2p
+    elif abs(h1p - h2p) <= 180:
+        h_bar = (h1p + h2p) / 2
+    else:
+        h_bar = (h1p + h2p + (360 if h1p + h2p < 360 else -360)) / 2
+    t = (
+        1
+        - 0.17 * np.cos(np.radians(h_bar - 30))
+        + 0.24 * np.cos(np.radians(2 * h_bar))
+        + 0.32 * np.cos(np.radians(3 * h_bar + 6))
+        - 0.20 * np.cos(np.radians(4 * h_bar - 63))
+    )
+    r_c = 2 * np.sqrt(cp_bar**7 / (cp_bar**7 + 25.0**7))
+    r_t = -np.sin(np.radians(60 * np.exp(-(((h_bar - 275) / 25) ** 2)))) * r_c
+    s_l = 1 + 0.015 * (l_bar - 50) ** 2 / np.sqrt(20 + (l_bar - 50) ** 2)
+    s_c, s_h = 1 + 0.045 * cp_bar, 1 + 0.015 * cp_bar * t
+    terms = (d_l / s_l, d_c / s_c, d_h / s_h)
+    return float(np.sqrt(sum(x * x for x in terms) + r_t * terms[1] * terms[2]))
+
+
+def colour_distance(a: str, b: str) -> float:
+    return ciede2000(srgb_to_lab(a), srgb_to_lab(b))
+
+
+@pytest.mark.parametrize(
+    "lab1, lab2, expected",
+    [  # Sharma, Wu and Dalal (2005), Table 1, pairs 1, 2, 3, 7, 17-20 (from memory)
+        ((50.0, 2.6772, -79.7751), (50.0, 0.0, -82.7485), 2.0425),
+        ((50.0, 3.1571, -77.2803), (50.0, 0.0, -82.7485), 2.8615),
+        ((50.0, 2.8361, -74.0200), (50.0, 0.0, -82.7485), 3.4412),
+        ((50.0, 0.0, 0.0), (50.0, -1.0, 2.0), 2.3669),
+        ((50.0, 2.5, 0.0), (73.0, 25.0, -18.0), 27.1492),
+        ((50.0, 2.5, 0.0), (61.0, -5.0, 29.0), 22.8977),
+        ((50.0, 2.5, 0.0), (56.0, -27.0, -3.0), 31.9030),
+        ((50.0, 2.5, 0.0), (58.0, 24.0, 15.0), 19.4535),
+    ],
+)
+def test_ciede2000_matches_the_published_test_pairs(lab1, lab2, expected):
+    assert ciede2000(lab1, lab2) == pytest.approx(expected, abs=5e-5)
+    assert ciede2000(lab2, lab1) == pytest.approx(expected, abs=5e-5)
+
+
+def test_srgb_to_lab_matches_the_primaries():
+    # CIELAB (D65) of the sRGB primaries and white, as commonly tabulated (from memory)
+    for colour, lab in {
+        "#FF0000": (53.24, 80.09, 67.20),
+        "#00FF00": (87.73, -86.18, 83.18),
+        "#0000FF": (32.30, 79.19, -107.86),
+        "#FFFFFF": (100.0, 0.0, 0.0),
+    }.items():
+        np.testing.assert_allclose(srgb_to_lab(colour), lab, atol=0.05)
+
+
+#: Least CIEDE2000 difference between the signal accent and any colour a level or a
+#: neutral point takes. About 2 is a just-noticeable difference side by side; the old
+#: accent (Okabe-Ito vermillion) was 22 from the orange of the second level, read as the
+#: same hue on a projector. 30 keeps the accent clearly apart from every stratum.
+ACCENT_DISTANCE = 30.0
+#: Least difference between two stratum colours (the closest pair of the Okabe-Ito set,
+#: orange and yellow, is 21.7).
+STRATA_DISTANCE = 20.0
+
+
+def test_no_stratum_colour_comes_near_the_signal_accent():
+    others = (*palette.STRATA_COLORS, palette.OTHERS, palette.POINT, palette.LIMIT)
+    distances = {c: colour_distance(palette.ACCENT, c) for c in others}
+    assert min(distances.values()) >= ACCENT_DISTANCE, distances
+    # the accent the palette had before fails this test: it is not a vacuous check
+    assert colour_distance("#D55E00", palette.STRATA_COLORS[1]) < ACCENT_DISTANCE
+    strata = palette.STRATA_COLORS
+    pairs = [colour_distance(a, b) for i, a in enumerate(strata) for b in strata[i + 1 :]]
+    assert min(pairs) >= STRATA_DISTANCE
+
+
+@given(st.integers(1, 40), st.data())
+def test_no_colour_is_used_for_two_levels(count, data):
+    levels = [f"L{i}" for i in range(count)]
+    highlight = data.draw(st.none() | st.sampled_from(levels))
+    colours = draw.palette_for(levels, highlight=highlight)
+    coloured = {level: c for level, c in colours.items() if c != palette.OTHERS}
+    assert len(set(coloured.values())) == len(coloured)  # never a repeated colour
+    if count <= palette.COLOURED:
+        assert len(coloured) == count
+    else:  # one chosen level coloured, the rest grey
+        assert list(coloured) == [highlight or "L0"]
+
+
+def test_beyond_eight_levels_one_chosen_level_is_coloured_and_the_rest_grey():
+    days = tuple(f"day {i}" for i in range(1, 29))
+    result = chart_result(k=56, strata=days)
+    for highlight, chosen in ((None, "day 1"), ("day 14", "day 14")):
+        layout = draw.chart_figure(result, highlight=highlight)
+        frame = point_strata(layout)
+        colour = dict(zip(frame["s"], frame["c"], strict=False))
+        assert colour.pop(chosen) == palette.STRATA_COLORS[0]
+        assert set(colour.values()) == {palette.OTHERS}
+        # the legend: the chosen level and "others", so it is never cut off
+        legend = data_of(layout, "chart_legend")
+        assert list(legend["label"]) == [chosen, palette.OTHERS_LABEL]
+        assert list(legend["color"]) == [palette.STRATA_COLORS[0], palette.OTHERS]
+    eight = draw.chart_figure(chart_result(k=56, strata=days[:8]))
+    assert list(data_of(eight, "chart_legend")["label"]) == list(days[:8])  # all listed
+    assert point_strata(eight).groupby("s")["c"].first().nunique() == 8
+    with pytest.raises(QCDataError, match="highlight: 'day 40'"):
+        draw.chart_figure(result, highlight="day 40")
+
+
+def test_highlight_colours_the_same_level_on_multivari_and_anom():
+    levels = tuple(f"N{i}" for i in range(1, 13))
+    result = variation_result(levels=levels)
+    mv = data_of(draw.multivari_figure(result, highlight={"crew": "N5"}), "multivari_points")
+    crew = mv["factor"] == "crew"
+    colour = dict(zip(mv["level"][crew], mv["color"][crew], strict=False))
+    assert colour.pop("N5") == palette.STRATA_COLORS[0]
+    assert set(colour.values()) == {palette.OTHERS}
+    anom = data_of(draw.anom_figure(result, "crew", highlight="N5"), "anom_points")
+    assert dict(zip(anom["level"], anom["color"], strict=True))["N5"] == palette.STRATA_COLORS[0]
+    with pytest.raises(QCDataError, match="highlight"):
+        draw.multivari_figure(result, highlight={"shift": "early"})
+    with pytest.raises(QCDataError, match="highlight"):
+        draw.anom_figure(result, "crew", highlight="N13")
+
+
+def test_legends_list_every_level_and_wrap_instead_of_running_off():
+    result = variation_result()
+    models = named(draw.multivari_figure(result))
+    assert list(models["multivari_legend_0"].data["label"]) == ["A", "B", "C"]
+    assert list(models["multivari_legend_1"].data["label"]) == ["1", "2", "3"]
+    # long level names: fewer entries a row, every entry still shown
+    long = tuple(f"filling line {i} in the north hall" for i in range(1, 9))
+    layout = draw.chart_figure(chart_result(k=16, strata=long))
+    fig = named(layout)["chart"]
+    legend = fig.above[-1]
+    entries = len(data_of(layout, "chart_legend")["label"])
+    assert entries == 8 and 1 <= legend.ncols < 8
+    longest = max(len(name) for name in long)
+    assert legend.ncols * (40 + 8 * longest) <= fig.width  # each row fits the figure
+
+
+def test_refresh_into_more_levels_than_colours_is_data_only():
+    layout = draw.chart_figure(chart_result(k=56, strata=("A", "B", "C")))
+    ids = {m.id for m in layout.references()}
+    days = tuple(f"day {i}" for i in range(1, 29))
+    assert not draw.needs_rebuild(layout, chart_result(k=56, strata=days))
+    draw.refresh(layout, chart_result(k=56, strata=days))
+    assert {m.id for m in layout.references()} == ids
+    frame = point_strata(layout)
+    assert set(frame.loc[frame["s"] != "day 1", "c"]) == {palette.OTHERS}
+    assert list(data_of(layout, "chart_legend")["label"]) == ["day 1", palette.OTHERS_LABEL]
 
 
 def test_one_colour_per_stratum_and_the_same_colour_across_figures():
@@ -394,13 +630,13 @@ def test_no_strata_draws_one_neutral_colour_and_no_legend():
         "time",
     }
     dots = [r for r in named(layout)["chart"].renderers if r.data_source.name == "chart_points"]
-    assert dots[0].glyph.fill_color == theme.POINT
+    assert dots[0].glyph.fill_color == palette.POINT
     assert not named(layout)["chart"].legend
 
 
 def test_legend_lists_each_stratum_once_in_its_colour():
     legend = data_of(draw.chart_figure(chart_result(strata=("A", "B", "C"))), "chart_legend")
-    assert list(legend["stratum"]) == ["A", "B", "C"]
+    assert list(legend["label"]) == ["A", "B", "C"]
     assert list(legend["color"]) == list(draw.palette_for(["A", "B", "C"]).values())
 
 
@@ -410,22 +646,26 @@ def test_legend_lists_each_stratum_once_in_its_colour():
 )
 def test_codes_name_each_row_s_level(values, categorical):
     column = pd.Series(pd.Categorical(values) if categorical else pd.Series(values, dtype=object))
-    levels = [str(v) for v in theme.levels_of(column)]
-    codes = theme.codes_for(column, levels)
-    assert list(np.array([*levels, ""], dtype=object)[codes]) == list(theme.labels(column))
-    palette = draw.palette_for(levels)
-    colours = np.array([*theme.STRATA_COLORS, theme.POINT], dtype=object)[theme.color_codes(codes)]
-    assert list(colours) == [palette.get(v, theme.POINT) for v in theme.labels(column)]
+    levels = [str(v) for v in encode.levels_of(column)]
+    codes = encode.codes_for(column, levels)
+    assert list(np.array([*levels, ""], dtype=object)[codes]) == list(encode.labels(column))
+    colours_of = draw.palette_for(levels)
+    table = np.array([*palette.STRATA_COLORS, palette.OTHERS, palette.POINT], dtype=object)
+    colours = table[palette.color_codes(codes, levels)]
+    assert list(colours) == [colours_of.get(v, palette.POINT) for v in encode.labels(column)]
 
 
 def test_colour_mapper_gives_each_code_its_palette_colour():
-    # code i -> STRATA_COLORS[i], as palette_for gives the i-th level; no level -> POINT
+    # code i -> STRATA_COLORS[i], as palette_for gives the i-th level; the code after
+    # them is the grey of the levels not highlighted; no level -> POINT
     mapper = named(draw.chart_figure(chart_result()))["chart_colors"]
-    codes = np.arange(-1, len(theme.STRATA_COLORS))
-    assert list(mapped_colours(mapper, codes)) == [theme.POINT, *theme.STRATA_COLORS]
-    levels = [f"L{i}" for i in range(9)]  # more levels than colours: they repeat
-    colours = np.array(theme.STRATA_COLORS, dtype=object)[theme.color_codes(np.arange(9))]
-    assert list(colours) == list(draw.palette_for(levels).values())
+    codes = np.arange(-1, palette.COLOURED + 1)
+    expected = [palette.POINT, *palette.STRATA_COLORS, palette.OTHERS]
+    assert list(mapped_colours(mapper, codes)) == expected
+    for count in (palette.COLOURED, palette.COLOURED + 1, 30):
+        levels = [f"L{i}" for i in range(count)]
+        drawn = mapped_colours(mapper, palette.color_codes(np.arange(count), levels, "L3"))
+        assert list(drawn) == list(draw.palette_for(levels, highlight="L3").values())
 
 
 def test_per_point_and_per_segment_sources_hold_only_number_columns():
@@ -503,7 +743,9 @@ def test_hover_looks_up_stratum_and_rules_texts_and_formats_times():
         "xbar_r", result.points.assign(subgroup=pd.Categorical(hours, ordered=True)), result.limits
     )
     layout = draw.chart_figure(timed)
-    np.testing.assert_array_equal(data_of(layout, "chart_points")["subgroup"], theme.time_ms(hours))
+    np.testing.assert_array_equal(
+        data_of(layout, "chart_points")["subgroup"], encode.time_ms(hours)
+    )
     dots = named(layout)["chart"].select({"type": HoverTool})[0]
     assert dict(dots.tooltips)["subgroup"] == "@subgroup{%F %H:%M}"
     assert dots.formatters["@subgroup"] == "datetime"
@@ -522,7 +764,7 @@ def test_signals_source_holds_exactly_the_signalled_rows_with_rules_in_words():
     assert all(RULE_TEXT["N1"] in text and "N5" in text for text in words)
     assert "rules_code" not in data_of(layout, "chart_points")  # only signals have rules
     marks = [r for r in named(layout)["chart"].renderers if r.data_source.name == "chart_signals"]
-    assert marks[0].glyph.fill_color is None and marks[0].glyph.line_color == theme.ACCENT
+    assert marks[0].glyph.fill_color is None and marks[0].glyph.line_color == palette.ACCENT
 
 
 def test_limits_vary_per_point_as_step_lines():
@@ -538,6 +780,21 @@ def test_limits_vary_per_point_as_step_lines():
     assert center[["x0", "x1", "y0", "y1"]].to_numpy().tolist() == [[0.5, 3.5, 10.0, 10.0]]
 
 
+@given(
+    st.lists(st.tuples(st.integers(0, 8), st.sampled_from([1.0, 2.0, np.nan])), min_size=1),
+)
+def test_step_lines_do_not_depend_on_the_order_of_the_points(rows):
+    # increasing positions take a path without sorting; it must agree with the sorted one
+    x = np.array([r[0] for r in rows], dtype=float)
+    y = np.array([r[1] for r in rows])
+    xu, first = np.unique(x, return_index=True)
+    assert parts.increasing(xu)
+    given_order = parts.steps(x, {"center": y}, 0.5)
+    in_order = parts.steps(xu, {"center": y[first]}, 0.5)
+    np.testing.assert_equal(given_order, in_order)
+    assert parts.line_ends(x, {"c": y}, 0.5)["x"].tolist() == [in_order["x1"].max()]
+
+
 def test_line_joins_points_within_a_stratum_when_strata_share_subgroups():
     result = chart_result(k=4, start=False)
     pts = pd.concat([result.points, result.points.assign(stratum="B")]).reset_index(drop=True)
@@ -545,6 +802,142 @@ def test_line_joins_points_within_a_stratum_when_strata_share_subgroups():
     line = data_of(draw.chart_figure(ChartResult("xbar_r", pts, result.limits)), "chart_line")
     assert len(line["x0"]) == 6  # 3 segments per stratum, none across strata
     assert np.all(line["x1"] - line["x0"] == 1)
+
+
+# --- labels of every chart kind, and the values written on the lines ----------------------
+
+
+def y_label(layout, figure: str) -> str:
+    return named(layout)[figure].yaxis[0].axis_label
+
+
+def test_every_chart_kind_of_the_statistics_has_its_own_words():
+    from qcexplore.stats import charts as chart_stats
+
+    # with the secondary charts and the moving-centre chart of the time structure
+    kinds = {*chart_stats.VARIABLE_KINDS, *chart_stats.ATTRIBUTE_KINDS, "r", "s", "mr"}
+    kinds.add("ewma_center")
+    assert kinds <= set(charts._KIND_WORDS)
+
+
+def test_s_chart_lower_panel_says_standard_deviation():
+    layout = draw.chart_figure(chart_result(kind="xbar_s"))
+    assert y_label(layout, "chart") == "Subgroup mean"
+    assert y_label(layout, "secondary_chart") == "Subgroup standard deviation"
+    assert draw.chart_figure(chart_result()).select_one({"name": "secondary_chart_y_axis"})
+    split = named(draw.chart_figure(chart_result(kind="xbar_s"), split=True))
+    assert split["secondary_chart_0"].title.text == "Subgroup standard deviation, crew = A"
+    assert split["secondary_chart_0"].yaxis[0].axis_label == "Subgroup standard deviation"
+    for models in (named(layout), split):
+        texts = [m.axis_label for m in models.values() if hasattr(m, "axis_label")]
+        texts += [m.title.text for m in models.values() if isinstance(m, Plot)]
+        assert not any("range" in t.lower() for t in texts), texts
+
+
+def test_refresh_relabels_the_axes_in_place():
+    layout = draw.chart_figure(chart_result(kind="xbar_r"))
+    assert y_label(layout, "secondary_chart") == "Subgroup range"
+    ids = {m.id for m in layout.references()}
+    draw.refresh(layout, chart_result(kind="xbar_s"))
+    assert {m.id for m in layout.references()} == ids
+    assert y_label(layout, "secondary_chart") == "Subgroup standard deviation"
+
+
+def test_individuals_chart_says_single_values():
+    result = chart_result(strata=None)
+    points = result.points.assign(n=1)
+    mr = ChartResult("mr", result.secondary.points.assign(n=1), result.limits)
+    single = ChartResult("imr", points, result.limits, secondary=mr, statistic="value")
+    layout = draw.chart_figure(single)
+    assert y_label(layout, "chart") == "Single value"
+    assert y_label(layout, "secondary_chart") == "Moving range"
+    assert "mean" not in y_label(layout, "chart").lower()
+
+
+def test_cusum_draws_both_sums_each_labelled():
+    layout = draw.chart_figure(cusum_result())
+    models = named(layout)
+    points = models["chart_points"].data
+    np.testing.assert_array_equal(points["value"], CUSUM_UPPER)
+    np.testing.assert_array_equal(points["lower"], CUSUM_LOWER)
+    fig = models["chart"]
+    dots = [r for r in fig.renderers if r.data_source.name == "chart_points"]
+    dots = [r for r in dots if r.glyph.marker != "x"]  # not the crosses of left-out points
+    assert {(r.glyph.y, r.glyph.marker) for r in dots} == {
+        ("value", "triangle"),
+        ("lower", "inverted_triangle"),
+    }
+    # each sum joined by its own line
+    line = pd.DataFrame(models["chart_line"].data)
+    x = np.arange(1.0, CUSUM_UPPER.size + 1)
+    expected = [
+        (x[i], y[i], x[i + 1], y[i + 1])
+        for y in (CUSUM_UPPER, CUSUM_LOWER)
+        for i in range(x.size - 1)
+    ]
+    assert sorted(map(tuple, line[["x0", "y0", "x1", "y1"]].to_numpy().tolist())) == sorted(
+        expected
+    )
+    label = fig.yaxis[0].axis_label
+    assert label.startswith("Cumulative sums") and "C+" in label and "C\u2212" in label
+    assert "ewma" not in label.lower() + fig.title.text.lower()
+    sums = {}
+    for tool in fig.select({"type": HoverTool}):
+        tips = dict(tool.tooltips)
+        if "sum" in tips:
+            sums[tool.renderers[0].glyph.y] = tips["sum"]
+    assert sums == {"value": "upper, C+", "lower": "lower, C\u2212"}
+
+
+def test_cusum_signals_sit_on_the_sum_that_signalled():
+    layout = draw.chart_figure(cusum_result())
+    signals = pd.DataFrame(data_of(layout, "chart_signals"))
+    rings = sorted(zip(signals["x"], signals["value"], strict=True))
+    assert rings == [(6.0, 5.0), (7.0, 6.0), (10.0, -5.0), (11.0, -6.0)]
+    assert ((signals["value"] > 4) | (signals["value"] < -4)).all()  # none inside the limits
+
+
+def test_cusum_needs_its_lower_sum():
+    result = cusum_result()
+    without = dataclasses.replace(result, points=result.points.drop(columns="stat_lower"))
+    with pytest.raises(QCDataError, match="stat_lower"):
+        draw.chart_figure(without)
+    assert draw.needs_rebuild(draw.chart_figure(chart_result(strata=None)), result)
+
+
+def test_centre_and_limit_values_are_written_at_the_right_end():
+    ucl = np.array([13.0, 13.0, 14.0])
+    layout = draw.chart_figure(chart_result(k=3, strata=None, start=False, ucl=ucl))
+    models = named(layout)
+    values = pd.DataFrame(models["chart_limit_values"].data)
+    limits = pd.DataFrame(models["chart_limits"].data)
+    assert (values["x"] == limits["x1"].max()).all() and values["x"].iloc[0] == 3.5
+    # centre 10, lower 7 and upper limit 14 at the last point, to 3 digits of their spread
+    assert values["y"].tolist() == [10.0, 7.0, 14.0]
+    assert values["text"].tolist() == ["10.00", "7.00", "14.00"]
+    written = [r for r in models["chart"].renderers if r.data_source.name == "chart_limit_values"]
+    assert [(r.glyph.x, r.glyph.y, r.glyph.text) for r in written] == [("x", "y", "text")]
+    assert written[0].glyph.text_align == "right"
+    assert "secondary_limit_values" in models
+    # small multiples: each panel writes its own values
+    split_layout = draw.chart_figure(chart_result(strata=("A", "B")), split=True)
+    split = data_of(split_layout, "chart_limit_values")
+    assert sorted(split["panel_code"].tolist()) == [0, 0, 0, 1, 1, 1]
+    anom = pd.DataFrame(data_of(draw.anom_figure(variation_result(), "crew"), "anom_limit_values"))
+    assert anom["x"].tolist() == [3.5] * 3 and anom["y"].tolist() == [2.0, 0.5, 3.5]
+
+
+def test_anom_rings_the_levels_the_result_marks():
+    result = variation_result()
+    table = result.comparisons["crew"]
+    # level A lies inside its limits but the result marks it: draw follows the result
+    marked = table.assign(signal=(table["level"] == "A") & (table["test"] == "anom"))
+    marked_result = dataclasses.replace(result, comparisons={"crew": marked})
+    models = named(draw.anom_figure(marked_result, "crew"))
+    assert list(models["anom_signals"].data["level"]) == ["A"]
+    unmarked = {"crew": table.drop(columns="signal")}
+    with pytest.raises(QCDataError, match="'signal'"):
+        draw.anom_figure(dataclasses.replace(result, comparisons=unmarked), "crew")
 
 
 # --- large series -----------------------------------------------------------------------
@@ -595,7 +988,7 @@ def test_multivari_leaves_out_the_subgroup_mean_rows():
     assert len(models["multivari_points"].data["x"]) == len(mv)
 
 
-def test_anom_figure_marks_levels_outside_their_decision_limits():
+def test_anom_figure_rings_the_signalling_levels():
     result = variation_result()
     models = named(draw.anom_figure(result, "crew"))
     assert {"anom", "anom_points", "anom_signals", "anom_limits"} <= set(models)
@@ -631,9 +1024,7 @@ def test_shifts_figure_draws_levels_before_and_after():
     pieces = sorted(map(tuple, steps[["x0", "x1", "y0", "y1"]].to_numpy().tolist()))
     assert pieces == [(0.5, 15.5, 0.0, 0.0), (15.5, 15.5, 0.0, 1.0), (15.5, 30.5, 1.0, 1.0)]
     assert set(steps["subgroup"]) == {"16"}
-    bad = TimeResult(
-        result.acf, result.ljung_box, {}, result.shifts.assign(subgroup=99), series=result.series
-    )
+    bad = dataclasses.replace(result, shifts=result.shifts.assign(subgroup=99))
     with pytest.raises(QCDataError, match="99"):
         draw.shifts_figure(bad)
 
@@ -661,6 +1052,7 @@ FIGURES = [
         ),
     ),
     (lambda r: draw.anom_figure(r, "crew"), lambda s: variation_result()),
+    (lambda r: draw.chart_figure(r), lambda s: cusum_result(seed=s, strata=("A", "B"))),
     (draw.components_figure, lambda s: variation_result()),
     (draw.acf_figure, lambda s: time_result()),
     (draw.shifts_figure, lambda s: time_result(shift_at=10 + s)),
@@ -730,9 +1122,9 @@ def test_needs_rebuild_when_the_structure_changes():
     assert draw.needs_rebuild(layout, chart_result(start=False))
     assert draw.needs_rebuild(layout, chart_result(strata=None))
     assert draw.needs_rebuild(layout, variation_result())
-    wide = draw.chart_figure(chart_result(k=theme.WEBGL_FROM, start=False))
-    assert draw.needs_rebuild(wide, chart_result(k=theme.WEBGL_FROM + 1, start=False))
-    assert not draw.needs_rebuild(wide, chart_result(k=theme.WEBGL_FROM - 1, start=False))
+    wide = draw.chart_figure(chart_result(k=parts.WEBGL_FROM, start=False))
+    assert draw.needs_rebuild(wide, chart_result(k=parts.WEBGL_FROM + 1, start=False))
+    assert not draw.needs_rebuild(wide, chart_result(k=parts.WEBGL_FROM - 1, start=False))
     split = draw.chart_figure(chart_result(), split=True)
     assert draw.needs_rebuild(split, chart_result(strata=("A", "B", "C")))
     assert not draw.needs_rebuild(split, chart_result(seed=3))
@@ -766,6 +1158,13 @@ def test_any_chart_builds_with_one_point_per_row(k, n_strata, flags, split, star
         assert set(frame["s"]) == set(result.points["stratum"].astype(str))
     else:
         assert "color_code" not in points
+    # each panel's centre and limit values sit at the right end of its lines
+    limits = pd.DataFrame(data_of(layout, "chart_limits"))
+    values = pd.DataFrame(data_of(layout, "chart_limit_values"))
+    by = ["panel_code"] if "panel_code" in limits else np.zeros(len(limits), dtype=int)
+    ends = limits.groupby(by)["x1"].max().to_numpy()
+    by = ["panel_code"] if "panel_code" in values else np.zeros(len(values), dtype=int)
+    assert (values.groupby(by)["x"].agg(["min", "max"]).to_numpy().T == ends).all()
     assert not draw.needs_rebuild(layout, result)
 
 
@@ -812,19 +1211,24 @@ def test_palette_colours_mean_levels_only_and_the_accent_means_signals_only():
             for prop in ("fill_color", "line_color"):
                 colour = getattr(glyph, prop, None)
                 if isinstance(colour, str):
-                    assert colour not in (*theme.STRATA_COLORS, theme.ACCENT), (
+                    assert colour not in (*palette.STRATA_COLORS, palette.ACCENT), (
                         layout.name,
                         prop,
                     )
             bars = renderer.data_source.data.get("color", [])
-            assert not set(bars) & {*theme.STRATA_COLORS, theme.ACCENT}, layout.name
+            assert not set(bars) & {*palette.STRATA_COLORS, palette.ACCENT}, layout.name
 
 
-def test_every_figure_is_a_plot_with_a_title():
+def test_every_figure_is_a_plot_with_a_title_that_fits():
     layouts = [build(make(1)) for build, make in FIGURES]
+    layouts.append(draw.chart_figure(chart_result(strata=tuple("ABCDEF")), split=True))
     for layout in layouts:
         for plot in layout.select({"type": Plot}):
             assert plot.title.text, plot.name
+            # about 8 pixels a character at 12 pt, beside the toolbar: no line runs off
+            room = max(30, (plot.width - 40) // 8)
+            for line in plot.title.text.splitlines():
+                assert len(line) <= room or " " not in line, (plot.name, line)
 
 
 def test_figures_build_from_the_study_results_of_the_demo():
@@ -845,10 +1249,22 @@ def test_figures_build_from_the_study_results_of_the_demo():
     by_shift = study.chart(by="shift")
     assert not draw.needs_rebuild(layout, by_shift)  # another factor, same structure
     draw.refresh(layout, by_shift)
-    assert set(data_of(layout, "chart_legend")["stratum"]) == {"early", "late", "night"}
+    assert set(data_of(layout, "chart_legend")["label"]) == {"early", "late", "night"}
     variation = study.variation()
     for build in (draw.multivari_figure, draw.components_figure):
         assert build(variation).name.endswith("_layout")
+    # every kind labelled for what it plots; CUSUM rings only beyond the limits
+    assert y_label(draw.chart_figure(study.chart(kind="xbar_s")), "secondary_chart") == (
+        "Subgroup standard deviation"
+    )
+    cusum = study.chart(kind="cusum")
+    signals = pd.DataFrame(data_of(draw.chart_figure(cusum), "chart_signals"))
+    limit = cusum.points.loc[0, "ucl"]
+    assert len(signals) >= int(cusum.points["signal"].sum()) > 0
+    assert (signals["value"].abs() > limit * (1 - 1e-9)).all()
+    single = qx.Study(frame.head(300), value="net_g", time="taken_at").chart()
+    assert single.kind == "imr"
+    assert y_label(draw.chart_figure(single), "chart") == "Single value"
     time_structure = study.time_structure()
     draw.acf_figure(time_structure)
     draw.shifts_figure(time_structure)

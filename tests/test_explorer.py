@@ -19,13 +19,15 @@ from bokeh.models import BoxSelectTool, ColumnDataSource
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from qcexplore import views
 from qcexplore.app import resources
-from qcexplore.app.explorer import PAGE_ROWS, PANELS, Explorer
-from qcexplore.app.state import ExplorerState, fingerprint
+from qcexplore.app.explorer import PAGE_ROWS, Explorer
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
+from qcexplore.options import ChartOptions
 from qcexplore.spec import Spec
 from qcexplore.study import Study
+from qcexplore.views.log import ExplorerState
 
 FACTORS = ["crew", "shift", "nozzle"]
 
@@ -54,6 +56,11 @@ def ex(study: Study) -> Explorer:
     return Explorer(study)
 
 
+def chart_control(ex: Explorer, name: str):
+    """The chart view's control of one option (generated from ChartOptions)."""
+    return ex.panels["chart"].controls[name]
+
+
 def source(ex: Explorer, name: str = "chart_points") -> ColumnDataSource:
     return ex.slots["chart"].layout.select_one({"name": name, "type": ColumnDataSource})
 
@@ -79,16 +86,16 @@ def assert_shows(ex: Explorer, result) -> None:
 def test_builds_with_chart_only(ex: Explorer, study: Study) -> None:
     assert ex.status.value.count("Chart:") == 1 and "qcx-ok" in ex.status.value
     assert set(ex._shown) == {"chart"}  # the other panels wait until their tab is shown
-    assert ex.tabs.titles == tuple(title for _, title in PANELS)
+    assert ex.tabs.titles == tuple(v.title for v in views.VIEWS)
     assert_shows(ex, study.chart())
 
 
 def test_split_by_gives_one_colour_per_stratum(ex: Explorer, study: Study) -> None:
-    ex.settings.by.value = "crew"  # as a user's choice in the dropdown
-    assert ex.state.by == "crew"
+    chart_control(ex, "by").value = "crew"  # as a user's choice in the dropdown
+    assert ex.options("chart").by == "crew"
     assert_shows(ex, study.chart(by="crew"))
     # The points carry codes: stratum text from chart_strata, colour from the mapper's
-    # palette (code i is palette[i]; see qcexplore.draw.theme.strata_color_mapper).
+    # palette (code i is palette[i]; see qcexplore.draw.palette.strata_color_mapper).
     points = source(ex).data
     layout = ex.slots["chart"].layout
     names = np.asarray(source(ex, "chart_strata").data["stratum"], dtype=object)
@@ -102,10 +109,10 @@ def test_split_by_gives_one_colour_per_stratum(ex: Explorer, study: Study) -> No
 
 
 def test_per_stratum_limits_equal_study_chart(ex: Explorer, study: Study) -> None:
-    assert ex.settings.limits.disabled  # no split: one set of limits is all there is
+    assert chart_control(ex, "limits").disabled  # no split: one set of limits is all there is
     ex.set(by="shift", limits="per_stratum")
     expected = study.chart(by="shift", limits="per_stratum")
-    assert not ex.settings.limits.disabled
+    assert not chart_control(ex, "limits").disabled
     assert_shows(ex, expected)
     pd.testing.assert_frame_equal(ex.chart().limits, expected.limits)
 
@@ -119,7 +126,7 @@ def test_per_stratum_limits_equal_study_chart(ex: Explorer, study: Study) -> Non
         ({"kind": "xbar_s"}, {"kind": "xbar_s"}),
         ({"kind": "ewma"}, {"kind": "ewma"}),
         ({"center": 503.0}, {"center": 503.0}),
-        ({"adjust": True}, {"adjust_for": True}),
+        ({"adjust_for": True}, {"adjust_for": True}),
     ],
 )
 def test_each_chart_setting(ex: Explorer, study: Study, changes: dict, arguments: dict) -> None:
@@ -128,25 +135,21 @@ def test_each_chart_setting(ex: Explorer, study: Study, changes: dict, arguments
 
 
 def test_controls_write_the_state(ex: Explorer) -> None:
-    s = ex.settings
-    s.sigma_level.value = 2.5
-    s.rules.value = "western_electric"
-    s.kind.value = "xbar_s"
-    s.center_mode.value = "target"  # no target typed yet: reported, nothing breaks
-    assert "target" in ex.status.value.lower() and "qcx-error" in ex.status.value
-    s.target.value = "501,5"  # a decimal comma is read as a point
-    assert ex.state.center == 501.5
-    assert (ex.state.sigma_level, ex.state.rules, ex.state.kind) == (
-        2.5,
-        "western_electric",
-        "xbar_s",
-    )
+    chart_control(ex, "sigma_level").value = 2.5
+    chart_control(ex, "rules").value = "western_electric"
+    chart_control(ex, "kind").value = "xbar_s"
+    chart_control(ex, "center").value = "five hundred"  # not a number: reported, nothing breaks
+    assert "not a number" in ex.status.value and "qcx-error" in ex.status.value
+    chart_control(ex, "center").value = "501,5"  # a decimal comma is read as a point
+    options = ex.options("chart")
+    assert options.center == 501.5
+    assert (options.sigma_level, options.rules, options.kind) == (2.5, "western_electric", "xbar_s")
     assert float(source(ex, "chart_limits").data["y0"][0]) in result_limit_values(ex.chart())
 
 
 def test_date_window(ex: Explorer, study: Study) -> None:
-    ex.settings.start.value = dt.date(2026, 9, 8)
-    ex.settings.end.value = dt.date(2026, 9, 9)
+    ex.roles.start.value = dt.date(2026, 9, 8)
+    ex.roles.end.value = dt.date(2026, 9, 9)
     assert (ex.state.start, ex.state.end) == ("2026-09-08", "2026-09-09")
     window = study.restrict("2026-09-08", pd.Timestamp("2026-09-10") - pd.Timedelta(1, "ns"))
     assert len(source(ex).data["value"]) == len(window.subgroups) == 48
@@ -154,11 +157,11 @@ def test_date_window(ex: Explorer, study: Study) -> None:
 
 
 def test_roles_build_a_new_study(ex: Explorer, study: Study) -> None:
-    ex.settings.subgroup.value = ""  # individual values
+    ex.roles.subgroup.value = ""  # individual values
     assert ex.state.subgroup is None
     assert len(source(ex).data["value"]) == len(study.data)
     assert ex.chart().kind == "imr"
-    ex.settings.subgroup.value = "day"  # daily subgroups: a new Study from study.data
+    ex.roles.subgroup.value = "day"  # daily subgroups: a new Study from study.data
     assert len(source(ex).data["value"]) == 14
     assert ex.study_for().subgroup == "day" and "day" not in ex.study_for().factors
 
@@ -166,7 +169,7 @@ def test_roles_build_a_new_study(ex: Explorer, study: Study) -> None:
 def test_in_place_refresh_keeps_the_figure(ex: Explorer) -> None:
     layout, points = ex.slots["chart"].layout, source(ex)
     before = list(points.data["value"])
-    ex.set(adjust=True)
+    ex.set(adjust_for=True)
     assert ex.slots["chart"].layout is layout and source(ex) is points
     assert list(points.data["value"]) != before
     ex.set(by="crew")
@@ -185,8 +188,8 @@ def test_failing_computation_is_reported_and_view_kept(
     def broken(self, *args, **kwargs):
         raise RuntimeError("the chart engine broke")
 
-    monkeypatch.setattr(Study, "chart", broken)
-    ex.settings.by.value = "shift"  # must not raise
+    monkeypatch.setattr(Study, "chart_of", broken)
+    chart_control(ex, "by").value = "shift"  # must not raise
     assert "the chart engine broke" in ex.status.value and "qcx-error" in ex.status.value
     assert list(source(ex).data["value"]) == before
     monkeypatch.undo()
@@ -195,9 +198,9 @@ def test_failing_computation_is_reported_and_view_kept(
 
 
 def test_bad_roles_are_refused_and_controls_go_back(ex: Explorer) -> None:
-    ex.settings.subgroup.value = "net_g"  # the value cannot be its own subgroup
+    ex.roles.subgroup.value = "net_g"  # the value cannot be its own subgroup
     assert "qcx-error" in ex.status.value and "cannot also be the subgroup" in ex.status.value
-    assert ex.state.subgroup == "round" and ex.settings.subgroup.value == "round"
+    assert ex.state.subgroup == "round" and ex.roles.subgroup.value == "round"
 
 
 def test_tabs_compute_lazily_and_only_what_changed(
@@ -212,13 +215,14 @@ def test_tabs_compute_lazily_and_only_what_changed(
     def broken(self, *args, **kwargs):
         raise RuntimeError("variation must not be recomputed")
 
-    monkeypatch.setattr(Study, "variation", broken)
+    monkeypatch.setattr(Study, "variation_of", broken)
     ex.set(by="crew")  # the chart changes, the sources of variation do not
     assert "qcx-error" not in ex.status.value
-    assert ex._shown["chart"] != ex.state.chart_key  # the hidden chart waits
+    chart = views.view_named("chart")
+    assert ex._shown["chart"] != ex._view_key(chart)  # the hidden chart waits
     monkeypatch.undo()
     ex.tabs.selected_index = 0
-    assert ex._shown["chart"] == ex.state.chart_key
+    assert ex._shown["chart"] == ex._view_key(chart)
 
 
 def test_time_and_capability_panels(ex: Explorer, study: Study) -> None:
@@ -274,7 +278,7 @@ def test_log_round_trip(ex: Explorer, study: Study, tmp_path) -> None:
     ex.add_note("Crew B reads high on its own scale.")
     path = ex.save(tmp_path / "log.json")
     saved = json.loads(path.read_text())
-    assert saved["fingerprint"] == fingerprint(study.frame, study.roles())
+    assert saved["fingerprint"] == study.fingerprint
 
     again = Explorer(demo_study(), log=path)
     assert again.state == ex.state
@@ -307,19 +311,19 @@ def test_log_against_other_data_is_refused(ex: Explorer, tmp_path) -> None:
     notes=st.lists(st.text(max_size=20), max_size=3),
 )
 def test_state_json_round_trip(by, level, method, notes) -> None:
-    state = ExplorerState(
-        value="net_g", subgroup="round", by=by, sigma_level=level, sigma_method=method
-    )
+    chart = ChartOptions(by=by, sigma_level=level, sigma_method=method)
+    state = ExplorerState(value="net_g", subgroup="round").with_options("chart", chart)
     for text in notes:
         state = state.note(text)
-    assert ExplorerState.from_dict(json.loads(json.dumps(state.to_dict()))) == state
+    back = ExplorerState.from_dict(json.loads(json.dumps(state.to_dict())), views.option_types())
+    assert back == state
 
 
 def test_stable_classes_and_bokehjs_outside_kernel(ex: Explorer) -> None:
     assert "qcx-explorer" in ex._dom_classes
-    assert "qcx-split-by" in ex.settings.by._dom_classes
+    assert "qcx-split-by" in chart_control(ex, "by")._dom_classes
     assert "qcx-exclude" in ex.actions.exclude._dom_classes
-    assert "qcx-panel-findings" in ex.panels["findings"]._dom_classes
+    assert "qcx-panel-findings" in ex.panels["findings"].box._dom_classes
     assert "qcx-status" in ex.status._dom_classes
     assert resources.load_bokehjs() is False  # no kernel, no page: nothing sent
     bundle = ex._repr_mimebundle_()
@@ -329,10 +333,13 @@ def test_stable_classes_and_bokehjs_outside_kernel(ex: Explorer) -> None:
 def test_comparison_chart_is_drawn_without_a_choice(ex: Explorer) -> None:
     # The "Compare levels of" dropdown starts on the first factor, so the analysis of
     # means is on show as soon as the panel opens.
-    assert ex.anom_factor.value == FACTORS[0]
     ex.tabs.selected_index = 1
+    assert ex.panels["variation"].choice.value == FACTORS[0]
     assert ex.slots["anom"].layout is not None
-    assert f"Comparisons of {FACTORS[0]}" in ex.texts["comparisons"].value
+    assert f"Comparisons of the levels of {FACTORS[0]}" in ex.texts["variation"].value
+    ex.panels["variation"].choice.value = FACTORS[1]  # the comparison follows the choice
+    assert f"Comparisons of the levels of {FACTORS[1]}" in ex.texts["variation"].value
+    assert ex.state.choice_for("variation") == FACTORS[1]
 
 
 def test_selection_tools_are_added_before_the_figure_goes_to_the_page(
@@ -358,8 +365,8 @@ def test_selection_tools_are_added_before_the_figure_goes_to_the_page(
 
 def test_split_by_a_derived_factor(ex: Explorer, study: Study) -> None:
     # weekday and hour come from the time column (qcexplore.data.derive), not the data.
-    offered = [value for _label, value in ex.settings.by.options]
+    offered = [value for _label, value in chart_control(ex, "by").options]
     assert {"weekday", "hour"} <= set(offered) and offered[0] == ""  # "" is "no split"
-    ex.settings.by.value = "weekday"
+    chart_control(ex, "by").value = "weekday"
     assert_shows(ex, study.chart(by="weekday"))
     assert "split by weekday" in ex.status.value

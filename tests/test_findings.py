@@ -20,9 +20,17 @@ from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
 import qcexplore as qx
+from qcexplore.caution import NET_CONTENT, caution
+from qcexplore.data.validate import as_factor, finite_mask, numeric_values, parse_times
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
-from qcexplore.findings import CAUTION, KINDS, Finding, findings, findings_frame, holm
+from qcexplore.findings import KINDS, Finding, findings, findings_frame
+from qcexplore.stats.capability import capability
+from qcexplore.stats.charts import control_chart
+from qcexplore.stats.evidence import collect_evidence, holm, level_spread
+from qcexplore.stats.results import ChartResult
+from qcexplore.stats.timeseries import time_structure
+from qcexplore.stats.variation import adjusted_values, measurement_offsets, variation
 
 ROLES = dict(
     value="net_g",
@@ -44,7 +52,7 @@ def production_day(when) -> int:
 def demo():
     frame, truth = filling_line()
     study = qx.Study(frame, spec=qx.Spec(lsl=500), **ROLES)
-    return study, truth, findings(study)
+    return study, truth, findings(study.evidence())
 
 
 # --------------------------------------------------------------------------- Holm
@@ -159,8 +167,9 @@ def test_capability_finding_carries_the_caution(demo):
     study, truth, found = demo
     cap = [f for f in found if f.kind == "capability"]
     assert len(cap) == 1
-    assert CAUTION in cap[0].detail and cap[0].caveat == CAUTION
-    assert "weights-and-measures" in CAUTION and "quality system" in CAUTION
+    expected = caution("g", study.spec)  # grams against a minimum fill: a fill quantity
+    assert expected in cap[0].detail and cap[0].caveat == expected
+    assert NET_CONTENT in expected and "weights-and-measures" in NET_CONTENT
     index = study.capability().indices.set_index("index")["value"]
     assert cap[0].effect == pytest.approx(index["ppk"])  # points beyond limits: Ppk
 
@@ -252,7 +261,7 @@ def test_no_effects_no_findings_beyond_alpha():
     counts: Counter[str] = Counter()
     for seed in range(20):
         frame, _ = filling_line(seed, **NULL_EFFECTS)
-        counts.update({f.kind for f in findings(qx.Study(frame, **ROLES))})
+        counts.update({f.kind for f in qx.Study(frame, **ROLES).findings()})
     for kind in (
         "measurement_offset",
         "stream_difference",
@@ -319,7 +328,7 @@ def test_findings_never_crash_and_every_number_is_finite(
 def test_min_effect_suppresses_small_effects():
     frame, _ = filling_line()
     study = qx.Study(frame, **ROLES)
-    found = findings(study, min_effect=5.0)  # larger than any planted effect (g)
+    found = findings(study.evidence(), min_effect=5.0)  # larger than any planted effect (g)
     assert not {f.kind for f in found} & {"measurement_offset", "stream_difference"}
     assert {f.kind for f in found} >= {"autocorrelation", "out_of_control"}
 
@@ -332,7 +341,7 @@ def test_min_effect_suppresses_small_effects():
 )  # fmt: skip
 def test_bad_options_raise_qcdataerror(demo, options, match):
     with pytest.raises(QCDataError, match=match):
-        findings(demo[0], **options)
+        findings(demo[0].evidence(), **options)
 
 
 def test_study_findings_is_the_module_function(demo):
@@ -379,4 +388,187 @@ def test_offset_confounded_with_a_process_factor_is_not_claimed_alone() -> None:
     assert offsets and all("cannot tell" in f.title and "shift" in f.title for f in offsets)
     assert any(
         f.kind == "confounded" and {"crew", "shift"} <= set(f.title.lower().split()) for f in found
+    )
+
+
+# --------------------------------------------------------------------------- evidence
+
+
+def demo_table():
+    """The demo as the stats functions take it, prepared without a Study.
+
+    The data layer's checks (numbers, times, factor levels), the rows in time order and
+    the rounds as an ordered categorical in time order: what the stats layer expects.
+    """
+    frame, _ = filling_line()
+    values = numeric_values(frame, "net_g")
+    keep, _ = finite_mask(values)
+    data = frame.loc[keep].assign(net_g=values[keep].to_numpy())
+    data["taken_at"] = parse_times(data["taken_at"], "taken_at")
+    for name in ROLES["factors"]:
+        data[name] = as_factor(data[name])
+    data = data.sort_values("taken_at", kind="stable")
+    rounds = data["round"].to_numpy()
+    data["round"] = pd.Categorical(rounds, categories=pd.unique(rounds), ordered=True)
+    order = np.argsort(data["round"].cat.codes.to_numpy(), kind="stable")
+    return data.iloc[order].reset_index(drop=True)
+
+
+def test_findings_from_results_alone_equal_the_study_findings(demo):
+    # Every result computed by the stats functions and bundled by collect_evidence, no
+    # Study anywhere: the findings are the Study's, field for field.
+    study, _, found = demo
+    data = demo_table()
+    columns = dict(value="net_g", subgroup="round", time="taken_at")
+    factors, measured_by = ("crew", "shift", "nozzle"), ("crew",)
+    chart = control_chart(data, **columns)
+    offsets = measurement_offsets(
+        data, value="net_g", subgroup="round", measured_by=measured_by, factors=factors[1:]
+    )
+    adjusted = data.assign(net_g=adjusted_values(data, value="net_g", offsets=offsets))
+    spec = qx.Spec(lsl=500)
+    evidence = collect_evidence(
+        data,
+        **columns,
+        factors=factors,
+        measured_by=measured_by,
+        units="g",
+        chart=chart,
+        variation=variation(
+            data, value="net_g", subgroup="round", factors=factors, measured_by=measured_by
+        ),
+        time_result=time_structure(adjusted, **columns),
+        capability=capability(
+            data,
+            value="net_g",
+            spec=spec,
+            sigma_within=float(chart.limits["sigma"].iloc[0]),
+            in_control=not chart.points["beyond"].any(),
+        ),
+        adjusted_chart=control_chart(adjusted, **columns),
+    )
+    alone = findings(evidence)
+    assert [f.kind for f in alone] == [f.kind for f in found] and len(alone) >= 6
+    pd.testing.assert_frame_equal(findings_frame(alone), findings_frame(found), check_exact=True)
+
+
+def test_the_gate_family_is_every_gate_test_under_holm(demo):
+    # Reference: statsmodels multipletests(method="holm") over the family and over each
+    # factor's levels; the beyond-limits test is scipy's binomial test.
+    study, _, _ = demo
+    ev = study.evidence()
+    tests = ev.tests
+    assert tests["p_adjusted"].to_numpy() == pytest.approx(
+        multipletests(tests["p"], method="holm")[1]
+    )
+    gates = tests["test"].tolist()
+    assert gates[:3] == ["anova"] * 3 and tests["factor"].tolist()[:3] == [
+        "crew",
+        "shift",
+        "nozzle",
+    ]
+    assert gates.count("brown_forsythe") == 3 and gates[-2:] == ["ar1", "beyond_limits"]
+    steps = tests[tests["test"] == "step"]
+    assert steps["position"].tolist() == ev.time.shifts["position"].tolist()
+    assert tests["p"].iloc[-2] == ev.time.ar1.p
+    beyond = ev.beyond
+    assert beyond.p == pytest.approx(
+        stats.binomtest(beyond.count, beyond.points, 2 * stats.norm.sf(3.0), "greater").pvalue
+    )
+    for factor, levels in ev.levels.groupby("factor"):
+        assert levels["p_adjusted"].to_numpy() == pytest.approx(
+            multipletests(levels["p"], method="holm")[1]
+        ), factor
+    assert set(ev.levels["factor"]) == {"crew", "shift", "nozzle"}
+    assert {(o.factor, o.level) for o in ev.onsets} == {("nozzle", str(i)) for i in range(1, 7)}
+
+
+def test_level_spread_is_the_weighted_within_subgroup_sd():
+    # Reference: pandas groupby. Each deviation from its subgroup mean, weighted by
+    # 1 - 1/n of its subgroup, gives sd^2 = sum(dev^2) / sum(1 - 1/n) per level.
+    rng = np.random.default_rng(2)
+    sg = np.repeat(np.arange(30), 4)
+    frame = pd.DataFrame(
+        {"sg": sg, "head": np.tile(list("abcd"), 30), "w": rng.normal(0.0, 1.0, sg.size)}
+    )
+    frame = frame.iloc[rng.permutation(len(frame))[:100]].sort_values("sg", kind="stable")
+    table = level_spread(frame, value="w", subgroup="sg", factors=["head"])
+    grouped = frame.groupby("sg")["w"]
+    dev2 = (frame["w"] - grouped.transform("mean")) ** 2
+    weight = 1 - 1 / grouped.transform("size")
+    sums = pd.DataFrame({"d": dev2, "w": weight, "head": frame["head"]}).groupby("head").sum()
+    assert table["level"].tolist() == list(frame["head"].unique())
+    expected = np.sqrt(sums["d"] / sums["w"]).reindex(table["level"]).to_numpy()
+    np.testing.assert_allclose(table["sd"], expected, rtol=1e-12)
+    others = np.sqrt((sums["d"].sum() - sums["d"]) / (sums["w"].sum() - sums["w"]))
+    np.testing.assert_allclose(table["others_sd"], others.reindex(table["level"]), rtol=1e-12)
+
+
+# --------------------------------------------------------------------------- immutability
+
+
+def vandalise(frame: pd.DataFrame) -> None:
+    """Write into every cell a caller can reach, then add and delete columns, in place."""
+    for column in list(frame.columns):
+        cells = frame[column].dropna()
+        # Categorical, text and time columns refuse numbers: they get one of their own cells.
+        for junk in (1e9, cells.iloc[-1] if len(cells) else None):
+            try:
+                frame.loc[:, column] = junk
+                break
+            except (TypeError, ValueError):
+                continue
+    frame.insert(0, "vandal", 1)
+    del frame[frame.columns[1]]
+
+
+def tables_of(result) -> dict[str, pd.DataFrame]:
+    """Every table a result hands out, by name (charts' secondary charts included)."""
+    out = {}
+    for name in (f.name for f in dataclasses.fields(result)):
+        value = getattr(result, name)
+        if isinstance(value, pd.DataFrame):
+            out[name] = value
+        elif isinstance(value, dict):
+            out.update({f"{name}:{key}": frame for key, frame in value.items()})
+        elif isinstance(value, ChartResult):
+            out.update({f"{name}.{key}": frame for key, frame in tables_of(value).items()})
+    return out
+
+
+def test_mutating_returned_tables_changes_no_later_answer():
+    # A caller edits every table of every result it is handed (the chart's limits first,
+    # before capability reads them): every later answer equals a fresh Study's.
+    frame, _ = filling_line(days=10)
+    roles = {**ROLES, "spec": qx.Spec(lsl=500)}
+    fresh, study = qx.Study(frame, **roles), qx.Study(frame, **roles)
+    answers = {
+        "chart": lambda s: s.chart(),
+        "capability": lambda s: s.capability(),
+        "variation": lambda s: s.variation(),
+        "time": lambda s: s.time_structure(),
+        "evidence": lambda s: s.evidence(),
+    }
+    for name, answer in answers.items():
+        tables = tables_of(answer(study))
+        assert tables, name
+        for table in tables.values():
+            vandalise(table)
+    study.variation().comparisons.clear()
+    found = study.findings()
+    found.clear()
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        study.findings()[0].effect = 0.0
+    vandalise(findings_frame(study.findings()))
+    with pytest.raises(TypeError):
+        study.time_structure().ar1["phi"] = 0.0
+    with pytest.raises(ValueError, match="read-only"):
+        study.chart().limits["sigma"].to_numpy()[0] = 1e9
+    for name, answer in answers.items():
+        mine, theirs = tables_of(answer(study)), tables_of(answer(fresh))
+        assert list(mine) == list(theirs), name
+        for key in theirs:
+            pd.testing.assert_frame_equal(mine[key], theirs[key], obj=f"{name} {key}")
+    pd.testing.assert_frame_equal(
+        findings_frame(study.findings()), findings_frame(fresh.findings()), check_exact=True
     )

@@ -14,7 +14,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from qcexplore.errors import QCDataError
-from qcexplore.stats.gauge import GaugeResult, gauge_study
+from qcexplore.stats.gauge import gauge_study
+from qcexplore.stats.results import GaugeResult
 
 
 def _study(seed: int, parts=8, ops=3, reps=3, sd_op=0.3, sd_int=0.2, sd_rep=0.25) -> pd.DataFrame:

@@ -5,8 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+import statsmodels.api as sm
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from scipy import stats
 
 from qcexplore.errors import QCDataError
 from qcexplore.stats.onset import stream_onset
@@ -164,3 +166,39 @@ def test_bad_min_points_raises_qcdataerror(bad):
             level="a",
             min_points=bad,
         )
+
+
+def test_onset_p_is_the_f_test_of_the_fitted_change_against_a_constant():
+    # Reference: statsmodels OLS residual sums of squares of the constant model and of the
+    # change model at the onset found; F on 2 and n - 3 degrees of freedom (the onset and
+    # the change are the two extra parameters), times the 2 (n - 9) onsets searched.
+    rng = np.random.default_rng(5)
+    n = 60
+    y = np.where(np.arange(n) >= 35, 1.5, 0.0) + rng.normal(0.0, 0.5, n)
+    found = stream_onset(two_streams(y), value="w", subgroup="sg", factor="stream", level="a")
+    assert found.model == "step"
+    rss0 = sm.OLS(y, np.ones(n)).fit().ssr
+    design = np.column_stack([np.ones(n), np.arange(n) >= found.position]).astype(float)
+    rss = sm.OLS(y, design).fit().ssr
+    f = ((rss0 - rss) / 2) / (rss / (n - 3))
+    assert found.p == pytest.approx(min(1.0, stats.f.sf(f, 2, n - 3) * 2 * (n - 9)), rel=1e-9)
+    assert found.p < 0.05 and (found.factor, found.level) == ("stream", "a")
+
+
+def test_onset_p_is_missing_below_fourteen_points():
+    found = stream_onset(
+        two_streams(np.r_[np.zeros(7), np.ones(6)], noise=0.1),
+        value="w", subgroup="sg", factor="stream", level="a", min_points=3,
+    )  # fmt: skip
+    assert found is not None and np.isnan(found.p)
+
+
+def test_onset_p_keeps_its_level_without_a_change():
+    # Simulation: 200 contrasts of 60 points of pure noise; the Bonferroni-bounded p falls
+    # below 0.05 at most at the 5 % rate plus two binomial standard errors (0.081).
+    rng = np.random.default_rng(21)
+    hits = 0
+    for _ in range(200):
+        frame = two_streams(rng.normal(0.0, 1.0, 60))
+        hits += stream_onset(frame, value="w", subgroup="sg", factor="stream", level="a").p < 0.05
+    assert hits / 200 <= 0.05 + 2 * np.sqrt(0.05 * 0.95 / 200)

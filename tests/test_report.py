@@ -13,17 +13,17 @@ from pathlib import Path
 
 import pytest
 
-from qcexplore.app.state import ExplorerState
-from qcexplore.app.text import CAUTION
+from qcexplore.caution import GENERAL, NET_CONTENT, caution
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
 from qcexplore.report import write_report
 from qcexplore.spec import Spec
 from qcexplore.study import Study
+from qcexplore.views.log import ExplorerState
 
 EVIL_COLUMN = "<script>alert(1)</script>"
 EVIL_LEVEL = "<b>A</b>"
-SECTIONS = ("roles", "chart", "split", "variation", "time", "capability", "findings", "log")
+SECTIONS = ("roles", "chart", "variation", "time", "capability", "findings", "log")
 
 
 class Page(HTMLParser):
@@ -92,7 +92,8 @@ def report(study: Study, tmp_path_factory: pytest.TempPathFactory) -> Path:
 def test_all_sections_and_caution(report: Path) -> None:
     page = parse(report)
     assert page.sections == list(SECTIONS)
-    assert CAUTION in page.visible.replace("\n", " ")
+    assert caution("g", Spec(lsl=500)) in page.visible.replace("\n", " ")
+    assert "Split by nozzle" in page.visible  # the chart view's variants: one per factor
     titles = [a for t, a in page.tags if t == "title"]
     assert titles and "Honey <line> 3" in page.visible
 
@@ -156,3 +157,13 @@ def test_no_spec_and_log_file(tmp_path: Path) -> None:
     other = Study(filling_line(seed=3, days=14)[0], value="net_g", subgroup="round")
     with pytest.raises(QCDataError, match="other data"):
         write_report(other, tmp_path / "r2.html", log=log)
+
+
+def test_the_net_content_caution_only_for_fill_quantities(tmp_path: Path) -> None:
+    frame, _ = filling_line(days=2)
+    torque = Study(frame, value="net_g", subgroup="round", units="N m")
+    page = parse(write_report(torque, tmp_path / "torque.html")).visible.replace("\n", " ")
+    assert GENERAL in page and NET_CONTENT not in page
+    minimum_fill = Study(frame, value="net_g", subgroup="round", spec=Spec(lsl=500))
+    page = parse(write_report(minimum_fill, tmp_path / "fill.html")).visible.replace("\n", " ")
+    assert NET_CONTENT in page

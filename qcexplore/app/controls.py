@@ -1,45 +1,29 @@
-"""The explorer's widgets: one place that builds them, names them and reads them.
+"""The explorer's widgets: built from the roles and from the views' option fields.
 
-Every widget has a plain description and an HTML class ``qcx-...`` (stable, for
-the served app and browser tests). :class:`Settings` maps the analysis widgets to
-the fields of :class:`~qcexplore.app.state.ExplorerState` and back; it never
-computes anything.
+Every widget has a plain description and an HTML class ``qcx-...`` (stable, for the served
+app and browser tests). :class:`RoleControls` holds the roles and the date window;
+:class:`OptionControls` is generated from an options type's fields (``options.controls_of``),
+so a new option is one field and needs no edit here. Neither computes anything.
 """
 
 from __future__ import annotations
 
 import datetime as dt
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from typing import Any
 
 import ipywidgets as widgets
 import pandas as pd
 
-from qcexplore.app.state import ExplorerState
 from qcexplore.errors import QCDataError
+from qcexplore.options import Control, Options, controls_of
+from qcexplore.views.log import ExplorerState
 
 #: Dropdown value standing for "none" (ipywidgets treats a None value as no selection).
 NONE = ""
 
-KIND_OPTIONS = (
-    ("automatic (by subgroup size)", "auto"),
-    ("means with ranges", "xbar_r"),
-    ("means with standard deviations", "xbar_s"),
-    ("single values with moving ranges", "imr"),
-    ("EWMA of the means", "ewma"),
-    ("CUSUM of the means", "cusum"),
-)
-LIMIT_OPTIONS = (("one set for all strata", "pooled"), ("separate for each stratum", "per_stratum"))
-SIGMA_OPTIONS = (
-    ("within subgroups", "within"),
-    ("between subgroup means", "between_means"),
-    ("overall (for comparison)", "overall"),
-)
-RULE_OPTIONS = (("Nelson (8 tests)", "nelson"), ("Western Electric (4 tests)", "western_electric"))
-CENTER_OPTIONS = (("estimated from the data", "estimated"), ("a target value", "target"))
-
-_WIDE = widgets.Layout(width="300px")
-_STYLE = {"description_width": "120px"}
+_WIDE = widgets.Layout(width="340px")
+_STYLE = {"description_width": "130px"}
 
 
 def styled(widget: widgets.Widget, css: str) -> widgets.Widget:
@@ -91,162 +75,168 @@ def role_options(frame: pd.DataFrame) -> dict[str, list[tuple[str, str]]]:
     }
 
 
-class Settings:
-    """The analysis controls, mapped to and from :class:`ExplorerState` fields.
+class _Muted:
+    """Widgets written by the program fire no user callbacks while ``muted`` is set."""
 
-    ``write(state, split_choices)`` shows a state without firing callbacks;
-    ``read()`` returns the state fields the widgets hold; ``observe(callback)``
-    calls ``callback(field)`` when the user changes one.
-    """
-
-    def __init__(self, frame: pd.DataFrame, state: ExplorerState) -> None:
-        roles = role_options(frame)
-        self.value = _dropdown("Measured value", "value", roles["value"], state.value)
-        self.subgroup = _dropdown("Subgroup", "subgroup", roles["subgroup"], state.subgroup or NONE)
-        self.time = _dropdown("Time", "time", roles["time"], state.time or NONE)
-        self.kind = _dropdown("Chart", "kind", KIND_OPTIONS, state.kind)
-        self.by = _dropdown("Split by", "split-by", [("no split", NONE)], NONE)
-        self.limits = _dropdown("Limits", "limits", LIMIT_OPTIONS, state.limits)
-        self.sigma_level = styled(
-            widgets.BoundedFloatText(
-                description="Limits at ± sigma",
-                value=state.sigma_level,
-                min=1.0,
-                max=6.0,
-                step=0.5,
-                layout=_WIDE,
-                style=_STYLE,
-            ),
-            "sigma-level",
-        )
-        self.sigma_method = _dropdown("Sigma from", "sigma-method", SIGMA_OPTIONS, "within")
-        self.rules = _dropdown("Run tests", "rules", RULE_OPTIONS, state.rules)
-        self.center_mode = _dropdown("Centre line", "center", CENTER_OPTIONS, "estimated")
-        self.target = styled(
-            widgets.Text(
-                description="Target",
-                placeholder="type the target value",
-                layout=_WIDE,
-                continuous_update=False,
-                style=_STYLE,
-            ),
-            "target",
-        )
-        self.adjust = styled(
-            widgets.Checkbox(description="Remove the sampling offsets", value=False, indent=False),
-            "adjust",
-        )
-        self.start = styled(widgets.DatePicker(description="From", style=_STYLE), "start")
-        self.end = styled(widgets.DatePicker(description="To", style=_STYLE), "end")
-        self._muted = False
+    def __init__(self) -> None:
+        self.muted = False
         self._callback: Callable[[str], None] | None = None
-        self._fields = {
-            "value": self.value,
-            "subgroup": self.subgroup,
-            "time": self.time,
-            "kind": self.kind,
-            "by": self.by,
-            "limits": self.limits,
-            "sigma_level": self.sigma_level,
-            "sigma_method": self.sigma_method,
-            "rules": self.rules,
-            "center": self.center_mode,
-            "target": self.target,
-            "adjust": self.adjust,
-            "start": self.start,
-            "end": self.end,
-        }
-        for name, widget in self._fields.items():
-            widget.observe(self._changed(name), names="value")
-        self.box = styled(
-            widgets.HBox(
-                [
-                    widgets.VBox([self.value, self.subgroup, self.time, self.start, self.end]),
-                    widgets.VBox([self.kind, self.by, self.limits, self.rules, self.adjust]),
-                    widgets.VBox(
-                        [self.sigma_level, self.sigma_method, self.center_mode, self.target]
-                    ),
-                ]
-            ),
-            "settings",
-        )
-
-    def _changed(self, name: str) -> Callable[[dict], None]:
-        def handler(change: dict) -> None:
-            if not self._muted and self._callback is not None:
-                self._callback(name)
-
-        return handler
 
     def observe(self, callback: Callable[[str], None]) -> None:
         """Call ``callback(field)`` when the user changes a control."""
         self._callback = callback
 
-    def write(self, state: ExplorerState, split_choices: tuple[str, ...], adjustable: str) -> None:
-        """Show ``state`` in the widgets without firing callbacks.
+    def _changed(self, name: str) -> Callable[[dict], None]:
+        def handler(change: dict) -> None:
+            if not self.muted and self._callback is not None:
+                self._callback(name)
 
-        ``split_choices``: the factors the current study can split by;
-        ``adjustable``: the measured_by factors in words (empty: the offset switch is off).
-        """
-        self._muted = True
+        return handler
+
+
+class RoleControls(_Muted):
+    """The roles of the columns and the date window, mapped to and from the state."""
+
+    def __init__(self, frame: pd.DataFrame, state: ExplorerState) -> None:
+        super().__init__()
+        roles = role_options(frame)
+        self.value = _dropdown("Measured value", "value", roles["value"], state.value)
+        self.subgroup = _dropdown("Subgroup", "subgroup", roles["subgroup"], state.subgroup or NONE)
+        self.time = _dropdown("Time", "time", roles["time"], state.time or NONE)
+        self.start = styled(widgets.DatePicker(description="From", style=_STYLE), "start")
+        self.end = styled(widgets.DatePicker(description="To", style=_STYLE), "end")
+        self.fields = {
+            "value": self.value,
+            "subgroup": self.subgroup,
+            "time": self.time,
+            "start": self.start,
+            "end": self.end,
+        }
+        for name, widget in self.fields.items():
+            widget.observe(self._changed(name), names="value")
+        self.box = styled(widgets.VBox(list(self.fields.values())), "roles")
+
+    def write(self, state: ExplorerState) -> None:
+        """Show ``state`` in the widgets without firing callbacks."""
+        self.muted = True
         try:
-            options = [("no split", NONE)] + [(f, f) for f in split_choices]
-            if list(self.by.options) != options:
-                self.by.options = options
-            self.by.value = state.by if state.by in split_choices else NONE
             self.value.value = state.value
             self.subgroup.value = state.subgroup or NONE
             self.time.value = state.time or NONE
-            self.kind.value = state.kind
-            self.limits.value = state.limits
-            # Limits per stratum need strata: without a split the choice would do nothing.
-            self.limits.disabled = self.by.value == NONE
-            self.sigma_level.value = state.sigma_level
-            self.sigma_method.value = state.sigma_method
-            self.rules.value = state.rules
-            self.center_mode.value = "estimated" if state.center is None else "target"
-            if state.center is not None:
-                self.target.value = f"{state.center:g}"
-            self.adjust.value = state.adjust
-            self.adjust.disabled = not adjustable
-            self.adjust.description = (
-                f"Remove the sampling offsets ({adjustable})"
-                if adjustable
-                else "Remove the sampling offsets (no measured_by factor)"
-            )
             self.start.value = None if state.start is None else dt.date.fromisoformat(state.start)
             self.end.value = None if state.end is None else dt.date.fromisoformat(state.end)
         finally:
-            self._muted = False
+            self.muted = False
 
     def read(self) -> dict[str, Any]:
         """The state fields the widgets hold now."""
-        center = None
-        if self.center_mode.value == "target":
-            text = self.target.value.strip().replace(",", ".")
-            try:
-                center = float(text)
-            except ValueError:
-                raise QCDataError(
-                    f"Target {self.target.value!r} is not a number: type the target value "
-                    "for the centre line, or choose 'estimated from the data'."
-                ) from None
         start, end = self.start.value, self.end.value
         return {
             "value": self.value.value,
             "subgroup": self.subgroup.value or None,
             "time": self.time.value or None,
-            "kind": self.kind.value,
-            "by": self.by.value or None,
-            "limits": self.limits.value,
-            "sigma_level": float(self.sigma_level.value),
-            "sigma_method": self.sigma_method.value,
-            "rules": self.rules.value,
-            "center": center,
-            "adjust": bool(self.adjust.value),
             "start": None if start is None else start.isoformat(),
             "end": None if end is None else end.isoformat(),
         }
+
+
+def _option_widget(name: str, control: Control) -> widgets.Widget:
+    css = control.css or name.replace("_", "-")
+    if control.kind == "choice":
+        options = [(words, value) for value, words in control.choices.items()]
+        if control.none_label:
+            options.insert(0, (control.none_label, NONE))
+        return _dropdown(control.label, css, options, options[0][1] if options else None)
+    if control.kind == "number":
+        low, high = control.bounds or (float("-inf"), float("inf"))
+        widget = widgets.BoundedFloatText(
+            description=control.label, min=low, max=high, step=control.step, layout=_WIDE,
+            style=_STYLE,
+        )  # fmt: skip
+        return styled(widget, css)
+    if control.kind == "optional_number":
+        widget = widgets.Text(
+            description=control.label, placeholder=control.none_label, layout=_WIDE,
+            continuous_update=False, style=_STYLE,
+        )  # fmt: skip
+        return styled(widget, css)
+    if control.kind == "switch":
+        return styled(widgets.Checkbox(description=control.label, indent=False), css)
+    raise ValueError(f"No widget for a control of kind {control.kind!r} (option {name}).")
+
+
+class OptionControls(_Muted):
+    """The widgets of one options type, one per shown field, generated from the fields."""
+
+    def __init__(self, options_type: type[Options]) -> None:
+        super().__init__()
+        self.options_type = options_type
+        self.controls = controls_of(options_type)
+        self.widgets = {name: _option_widget(name, c) for name, c in self.controls.items()}
+        for name, widget in self.widgets.items():
+            widget.observe(self._changed(name), names="value")
+        self.box = styled(widgets.VBox(list(self.widgets.values())), "options")
+
+    def __getitem__(self, name: str) -> widgets.Widget:
+        return self.widgets[name]
+
+    def write(
+        self,
+        options: Options,
+        live: Mapping[str, Mapping[Any, str]],
+        inactive: Mapping[str, str],
+    ) -> None:
+        """Show ``options`` without firing callbacks.
+
+        ``live``: choices that depend on the study (e.g. the factors to split by);
+        ``inactive``: fields that would do nothing now, with the reason (shown in the label).
+        """
+        self.muted = True
+        try:
+            for name, widget in self.widgets.items():
+                control = self.controls[name]
+                if name in live:
+                    offered = [(control.none_label, NONE)] if control.none_label else []
+                    offered += [(words, value) for value, words in live[name].items()]
+                    if list(widget.options) != offered:
+                        widget.options = offered
+                value = getattr(options, name)
+                if control.kind == "optional_number":
+                    widget.value = "" if value is None else f"{value:g}"
+                elif control.kind == "switch":
+                    widget.value = bool(value)
+                else:
+                    widget.value = NONE if value is None else value
+                widget.disabled = name in inactive
+                reason = inactive.get(name)
+                widget.description = f"{control.label} ({reason})" if reason else control.label
+        finally:
+            self.muted = False
+
+    def read(self, current: Options) -> Options:
+        """The options the widgets hold now (fields without a widget kept from ``current``)."""
+        values: dict[str, Any] = {}
+        for name, widget in self.widgets.items():
+            control = self.controls[name]
+            if control.kind == "optional_number":
+                text = widget.value.strip().replace(",", ".")
+                if not text:
+                    values[name] = None
+                    continue
+                try:
+                    values[name] = float(text)
+                except ValueError:
+                    raise QCDataError(
+                        f"{control.label}: {widget.value!r} is not a number; type a number, or "
+                        f"leave it empty for {control.none_label or 'none'}."
+                    ) from None
+            elif control.kind == "switch":
+                values[name] = bool(widget.value)
+            elif control.kind == "number":
+                values[name] = float(widget.value)
+            else:
+                values[name] = None if widget.value == NONE else widget.value
+        return current.replace(**values)
 
 
 class Actions:

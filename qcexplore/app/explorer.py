@@ -1,65 +1,42 @@
-"""The explorer: one widget for an investigation, its state held in one place.
+"""The explorer: one widget for an investigation, a host over the registered views.
 
-Layout: the settings on top, then the panels as tabs ("Chart", "Where the
-variation comes from", "Over time", "Against the specification", "What the data
-say"), then the selection, exclusions, notes and the investigation log, and a
-status line at the bottom.
+Layout: the roles and date window on top, then one tab per view of ``qcexplore.views.VIEWS``
+(each with its option controls, generated from its options type, its figures and its tables),
+then the notes and the investigation log, and a status line at the bottom. Nothing here knows
+a particular analysis: a new view shows up as a new tab.
 
-Flow: a control change makes a new :class:`~qcexplore.app.state.ExplorerState`;
-the visible panel is brought up to date and the others are marked stale and
-computed when their tab is first shown. Each panel knows which part of the state
-it depends on, so a change only recomputes what it affects (and the Study caches
-its results). Numbers come from :class:`~qcexplore.study.Study`, figures from
-:mod:`qcexplore.draw`; existing figures get new data in place through
-``draw.refresh`` and are rebuilt only when ``draw.needs_rebuild`` says so. A
-failing computation is reported in the status line and the last good view stays.
+Flow: a control change makes a new :class:`~qcexplore.views.log.ExplorerState`; the visible
+view is brought up to date and the others are computed when their tab is first shown. A view
+is recomputed only when what it depends on changed (the Study caches results by options).
+Existing figures get new data in place through ``draw.refresh`` and are rebuilt only when
+``draw.needs_rebuild`` says so. A failing computation is reported in the status line and the
+last good view stays.
 """
 
 from __future__ import annotations
 
 import html
-import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import ipywidgets as widgets
-import numpy as np
 import pandas as pd
 from bokeh.models import ColumnDataSource, LayoutDOM
 from jupyter_bokeh import BokehModel
 
-from qcexplore import draw
-from qcexplore.app.controls import Actions, Settings, styled
+from qcexplore import draw, views
+from qcexplore.app.controls import Actions, OptionControls, RoleControls, styled
 from qcexplore.app.resources import load_bokehjs
-from qcexplore.app.state import (
-    ExplorerState,
-    chart_arguments,
-    fingerprint,
-    load_log,
-    save_log,
-)
-from qcexplore.app.text import findings_html, log_html, notes_html, table_html
 from qcexplore.errors import QCDataError
 from qcexplore.study import Study
+from qcexplore.views.base import View
+from qcexplore.views.log import ExplorerState, load_log, save_log
+from qcexplore.views.text import log_html, table_html
 
 #: Rows of the selection table per page: never the whole data set in the page.
 PAGE_ROWS = 20
-PANELS = (
-    ("chart", "Chart"),
-    ("variation", "Where the variation comes from"),
-    ("time", "Over time"),
-    ("capability", "Against the specification"),
-    ("findings", "What the data say"),
-)
-
-
-def _draw(name: str) -> Callable[..., Any]:
-    function = getattr(draw, name, None)
-    if function is None:
-        raise QCDataError(f"qcexplore.draw has no {name}() yet: this panel cannot be drawn.")
-    return function
 
 
 @dataclass
@@ -87,10 +64,9 @@ class FigureSlot:
 
     def show(self, result: Any, build: Callable[[], LayoutDOM], options: tuple = ()) -> bool:
         """Put ``result`` on show; returns True when a new figure was built."""
-        needs_rebuild = _draw("needs_rebuild")
         for i, (opts, layout, model) in enumerate(self.built):
-            if opts == options and not needs_rebuild(layout, result):
-                _draw("refresh")(layout, result)
+            if opts == options and not draw.needs_rebuild(layout, result):
+                draw.refresh(layout, result)
                 if i:
                     self.built.insert(0, self.built.pop(i))
                     self.box.children = [model]
@@ -112,6 +88,45 @@ class FigureSlot:
         self.built.clear()
 
 
+@dataclass
+class Panel:
+    """One view's tab: its option controls, its choice control, figure slots and HTML."""
+
+    view: View
+    controls: OptionControls | None
+    choice: widgets.Dropdown | None
+    text: widgets.HTML
+    figures: widgets.VBox
+    box: widgets.VBox
+    slots: dict[str, FigureSlot] = field(default_factory=dict)
+
+    @classmethod
+    def of(cls, view: View, extra: list[widgets.Widget]) -> Panel:
+        controls = None if view.options_type is None else OptionControls(view.options_type)
+        if controls is not None and not controls.widgets:
+            controls = None
+        choice = None
+        if view.choice_label:
+            choice = styled(
+                widgets.Dropdown(
+                    description=view.choice_label, options=[], style={"description_width": "130px"}
+                ),
+                f"{view.name}-choice",
+            )
+        text = styled(widgets.HTML(value=""), f"{view.name}-text")
+        figures = styled(widgets.VBox([]), f"{view.name}-figures")
+        parts = [w for w in (controls.box if controls else None, choice) if w is not None]
+        box = styled(widgets.VBox([*parts, figures, text, *extra]), f"panel-{view.name}")
+        return cls(view, controls, choice, text, figures, box)
+
+    def slot(self, name: str) -> FigureSlot:
+        """The figure place of this name, made on first use, in the order first asked for."""
+        if name not in self.slots:
+            self.slots[name] = FigureSlot(name)
+            self.figures.children = [s.box for s in self.slots.values()]
+        return self.slots[name]
+
+
 class Explorer(widgets.VBox):
     """The interactive explorer of a Study (an ipywidgets VBox).
 
@@ -119,7 +134,7 @@ class Explorer(widgets.VBox):
     ----------
     study : the Study to explore; changing the value, subgroup or time control
         builds a new Study from ``study.data`` with the new roles
-    state : an ExplorerState to start from (default: the study's roles, no split)
+    state : an ExplorerState to start from (default: the study's roles, default options)
     log : path of an investigation log to load (refused for other data)
 
     Examples
@@ -129,7 +144,7 @@ class Explorer(widgets.VBox):
     >>> ex = Explorer(Study(frame, value="net_g", subgroup="round", time="taken_at",
     ...                     factors=["crew", "nozzle"], measured_by=["crew"]))
     >>> ex.set(by="crew")
-    >>> ex.state.by
+    >>> ex.options("chart").by
     'crew'
     """
 
@@ -141,60 +156,24 @@ class Explorer(widgets.VBox):
         log: str | Path | None = None,
     ) -> None:
         self.study = study
-        self.data_id = fingerprint(study.frame, study.roles())
+        self.data_id = study.fingerprint
         self._frame = study.data
         self._studies: dict[tuple, Study] = {}
         self.state = state or ExplorerState(
             value=study.value, subgroup=study.subgroup, time=study.time
         )
-        self.settings = Settings(self._frame, self.state)
+        self.roles = RoleControls(self._frame, self.state)
         self.actions = Actions()
         self.status = styled(widgets.HTML(value=""), "status")
-        self.slots = {
-            "chart": FigureSlot("chart"),
-            "multivari": FigureSlot("multivari"),
-            "components": FigureSlot("components"),
-            "anom": FigureSlot("anom"),
-            "acf": FigureSlot("acf"),
-            "shifts": FigureSlot("shifts"),
-            "capability": FigureSlot("capability"),
-        }
-        self.texts = {
-            name: styled(widgets.HTML(value=""), f"{name}-text")
-            for name in ("chart", "variation", "comparisons", "time", "capability", "findings")
-        }
-        self.anom_factor = styled(
-            widgets.Dropdown(
-                description="Compare levels of", options=[], style={"description_width": "130px"}
-            ),
-            "anom-factor",
-        )
+        self.views = list(views.VIEWS)
         self.panels = {
-            "chart": widgets.VBox(
-                [self.slots["chart"].box, self.texts["chart"], self.actions.selection_box]
-            ),
-            "variation": widgets.VBox(
-                [
-                    self.texts["variation"],
-                    self.slots["components"].box,
-                    self.slots["multivari"].box,
-                    self.anom_factor,
-                    self.slots["anom"].box,
-                    self.texts["comparisons"],
-                ]
-            ),
-            "time": widgets.VBox(
-                [self.slots["acf"].box, self.slots["shifts"].box, self.texts["time"]]
-            ),
-            "capability": widgets.VBox([self.slots["capability"].box, self.texts["capability"]]),
-            "findings": widgets.VBox([self.texts["findings"]]),
+            v.name: Panel.of(v, [self.actions.selection_box] if v.uses_exclusions else [])
+            for v in self.views
         }
-        for name, panel in self.panels.items():
-            styled(panel, f"panel-{name}")
         self.tabs = styled(
             widgets.Tab(
-                children=[self.panels[name] for name, _ in PANELS],
-                titles=[title for _, title in PANELS],
+                children=[p.box for p in self.panels.values()],
+                titles=[v.title for v in self.views],
             ),
             "panels",
         )
@@ -204,15 +183,13 @@ class Explorer(widgets.VBox):
         self._selected_rows: pd.DataFrame = pd.DataFrame()
         self._selection_source: ColumnDataSource | None = None
         self._points: dict[int, ColumnDataSource] = {}
-        # Tab titles are our panel names in plain words: let them take the width they need
+        # Tab titles are our view names in plain words: let them take the width they need
         # instead of the toolkit's fixed tab width, which cuts them off.
         tab_style = widgets.HTML(
             "<style>.qcx-panels .lm-TabBar-tab "
             "{ flex: 0 0 auto !important; max-width: none !important; }</style>"
         )
-        super().__init__(
-            [tab_style, self.settings.box, self.tabs, self.actions.log_box, self.status]
-        )
+        super().__init__([tab_style, self.roles.box, self.tabs, self.actions.log_box, self.status])
         styled(self, "explorer")
         self._wire()
         if log is not None:
@@ -228,11 +205,18 @@ class Explorer(widgets.VBox):
     # ---- wiring ------------------------------------------------------------------
     def _wire(self) -> None:
         a = self.actions
-        self.settings.observe(lambda _field: self._guard("settings", self._from_controls))
-        self.tabs.observe(lambda _change: self._guard("panel", self._refresh), "selected_index")
-        self.anom_factor.observe(
-            lambda _change: self._guard("comparison", self._show_anom), "value"
-        )
+        self.roles.observe(lambda _f: self._guard("settings", self._from_roles))
+        for name, panel in self.panels.items():
+            if panel.controls is not None:
+                panel.controls.observe(
+                    lambda _f, name=name: self._guard("settings", lambda: self._from_options(name))
+                )
+            if panel.choice is not None:
+                panel.choice.observe(
+                    lambda _c, name=name: self._guard("view", lambda: self._from_choice(name)),
+                    "value",
+                )
+        self.tabs.observe(lambda _change: self._guard("view", self._refresh), "selected_index")
         a.exclude.on_click(lambda _b: self._guard("exclusion", self.exclude_selected))
         a.restore.on_click(lambda _b: self._guard("exclusion", self.restore_selected))
         a.restore_all.on_click(lambda _b: self._guard("exclusion", self.restore_all))
@@ -260,41 +244,70 @@ class Explorer(widgets.VBox):
         self.status.value = f"<span class='qcx-ok'>{html.escape(text)}</span>"
 
     # ---- state -------------------------------------------------------------------
+    def options(self, view: str, state: ExplorerState | None = None) -> Any:
+        """The options a view computes with now (None for a view without options)."""
+        state = state or self.state
+        return views.view_named(view).options_for(self.study_for(state), state)
+
     def set(self, **changes: Any) -> None:
-        """Change state fields from Python (as the controls would) and update the view.
+        """Change roles, the date window or any view's options from Python, as the controls
+        would, and update the view.
 
         Returns nothing, so that a cell ending in ``explorer.set(...)`` does not show
         the explorer a second time.
         """
-        self._apply(self.state.replace(**changes))
+        state = self.state
+        roles = {k: v for k, v in changes.items() if k in ExplorerState.__dataclass_fields__}
+        rest = {k: v for k, v in changes.items() if k not in roles}
+        for view in self.views:
+            if view.options_type is None or not rest:
+                continue
+            own = {
+                k: rest.pop(k) for k in list(rest) if k in view.options_type.__dataclass_fields__
+            }
+            if own:
+                current = state.options_for(view.name, view.options_type)
+                state = state.with_options(view.name, current.replace(**own))
+        if rest:
+            raise QCDataError(f"The explorer has no setting {', '.join(sorted(rest))}.")
+        self._apply(state.replace(**roles))
 
-    def _from_controls(self) -> None:
-        self._apply(self.state.replace(**self.settings.read()))
+    def _from_roles(self) -> None:
+        self._apply(self.state.replace(**self.roles.read()))
+
+    def _from_options(self, name: str) -> None:
+        panel = self.panels[name]
+        assert panel.controls is not None and panel.view.options_type is not None
+        current = self.state.options_for(name, panel.view.options_type)
+        self._apply(self.state.with_options(name, panel.controls.read(current)))
+
+    def _from_choice(self, name: str) -> None:
+        choice = self.panels[name].choice
+        assert choice is not None
+        self._apply(self.state.with_choice(name, choice.value or None))
 
     def _apply(self, state: ExplorerState) -> None:
         """Make ``state`` the current one, show it in the controls, update the view."""
         try:
             study = self.study_for(state)
+            for view in self.views:  # every options object must hold for the new study
+                view.options_for(study, state)
         except Exception:
             self._write_controls(self.state)  # the controls go back to the last good state
             raise
-        if state.by is not None and state.by not in study.available_factors:
-            state = state.replace(by=None)
         self.state = state
         self._write_controls(state)
-        choices = list(study.factors)
-        if list(self.anom_factor.options) != choices:
-            self.anom_factor.options = choices
-        if self.anom_factor.value not in choices and choices:
-            # ipywidgets leaves a Dropdown empty when its options change: without a factor
-            # the comparison chart (analysis of means) would never be drawn.
-            self.anom_factor.value = choices[0]
         self._show_log()
         self._refresh()
 
     def _write_controls(self, state: ExplorerState) -> None:
         study = self.study_for(state)
-        self.settings.write(state, study.available_factors, ", ".join(study.measured_by))
+        self.roles.write(state)
+        for view in self.views:
+            controls = self.panels[view.name].controls
+            if controls is not None:
+                options = view.options_for(study, state)
+                controls.write(options, view.live_choices(study), view.inactive(study, options))
 
     def study_for(self, state: ExplorerState | None = None) -> Study:
         """The Study for a state's roles and date window (built once, then reused)."""
@@ -326,123 +339,102 @@ class Explorer(widgets.VBox):
             self._studies[key] = study
         return self._studies[key]
 
-    def chart_options(self, state: ExplorerState | None = None) -> dict[str, Any]:
-        """The arguments of ``Study.chart`` that a state stands for."""
-        state = state or self.state
-        return chart_arguments(state, self.study_for(state))
-
     def chart(self) -> Any:
         """The ChartResult on show (from the Study's cache)."""
-        return self.study_for().chart(**self.chart_options())
+        return self.study_for().chart_of(self.options("chart"))
 
-    # ---- panels ------------------------------------------------------------------
+    # ---- views -------------------------------------------------------------------
     @property
     def visible(self) -> str:
-        """The name of the panel on show."""
-        return PANELS[self.tabs.selected_index or 0][0]
+        """The name of the view on show."""
+        return self.views[self.tabs.selected_index or 0].name
 
-    def _panel_key(self, name: str) -> tuple:
-        return self.state.chart_key if name == "chart" else self.state.roles_key
+    def _view_key(self, view: View) -> tuple:
+        """What decides what a view shows: roles, its options, its choice, the exclusions."""
+        return (
+            self.state.roles_key,
+            self.options(view.name),
+            self.state.choice_for(view.name),
+            self.state.excluded if view.uses_exclusions else (),
+        )
 
     def _refresh(self) -> None:
-        """Bring the visible panel up to date if the state changed what it shows."""
-        name = self.visible
-        key = self._panel_key(name)
-        if self._shown.get(name) == key:
+        """Bring the visible view up to date if the state changed what it shows."""
+        view = self.views[self.tabs.selected_index or 0]
+        key = self._view_key(view)
+        if self._shown.get(view.name) == key:
             return
-        began = time.perf_counter()
         try:
-            summary = getattr(self, f"_show_{name}")()
+            summary = self._show(view)
         except Exception as error:
-            self._report_error(dict(PANELS)[name], error)
+            self._report_error(view.title, error)
             return
-        self._shown[name] = key
-        ms = (time.perf_counter() - began) * 1000
-        self._say(f"{dict(PANELS)[name]}: {summary} ({ms:.0f} ms).")
+        self._shown[view.name] = key
+        self._say(f"{view.title}: {summary}.")
 
-    def _show_chart(self) -> str:
-        result = self.chart()
-        slot = self.slots["chart"]
-        if slot.show(result, lambda: _draw("chart_figure")(result)):
-            self._watch_selection(slot.layout)
-        source = self._points.get(id(slot.layout))
+    def _show(self, view: View) -> str:
+        panel = self.panels[view.name]
+        study = self.study_for()
+        why_not = view.available(study)
+        if why_not:
+            for slot in panel.slots.values():
+                slot.clear()
+            panel.text.value = f"<p>{html.escape(why_not)}</p>"
+            return why_not.split(":")[0].lower()
+        result = view.compute(study, view.options_for(study, self.state))
+        shown = view.show(study, result)
+        choice = self._choice(panel, study, result)
+        chosen = view.show_choice(study, result, choice) if choice is not None else None
+        figures = shown.figures + (chosen.figures if chosen else ())
+        for figure in figures:
+            slot = panel.slot(figure.slot)
+            if slot.show(figure.result, figure.build, figure.variant):
+                self._watch_selection(slot.layout)
+        if view.uses_exclusions:
+            self._attach_selection(panel)
+        panel.text.value = shown.html + (chosen.html if chosen else "")
+        return shown.summary
+
+    def _choice(self, panel: Panel, study: Study, result: Any) -> str | None:
+        choices = panel.view.choices(study, result)
+        if panel.choice is None or not choices:
+            return None
+        wanted = self.state.choice_for(panel.view.name)
+        chosen = wanted if wanted in choices else choices[0]
+        panel.choice.unobserve_all("value")
+        try:
+            if list(panel.choice.options) != list(choices):
+                panel.choice.options = list(choices)
+            # ipywidgets leaves a Dropdown empty when its options change: set it, or the
+            # comparison chart would never be drawn.
+            panel.choice.value = chosen
+        finally:
+            name = panel.view.name
+            panel.choice.observe(
+                lambda _c: self._guard("view", lambda: self._from_choice(name)), "value"
+            )
+        return chosen
+
+    @property
+    def slots(self) -> dict[str, FigureSlot]:
+        """Every figure place of every view, by slot name."""
+        return {name: s for p in self.panels.values() for name, s in p.slots.items()}
+
+    @property
+    def texts(self) -> dict[str, widgets.HTML]:
+        """The HTML of every view, by view name."""
+        return {name: p.text for name, p in self.panels.items()}
+
+    # ---- selection and exclusions -----------------------------------------------
+    def _attach_selection(self, panel: Panel) -> None:
+        """Point the selection at the chart on show, starting with nothing selected."""
+        sources = [self._points.get(id(s.layout)) for s in panel.slots.values()]
+        source = next((s for s in sources if s is not None), None)
         self._selection_source = source
         if source is not None and source.selected.indices:
             source.selected.indices = []
         self._select(())
-        self.texts["chart"].value = table_html(result.limits, "Limits") + notes_html(result.notes)
-        split = f", split by {result.by}" if result.by else ""
-        signals = int(result.points["signal"].sum())
-        return f"{result.kind} chart of {len(result.points)} points{split}, {signals} signals"
 
-    def _show_variation(self) -> str:
-        result = self.study_for().variation()
-        parts = [
-            table_html(result.structure, "How the factors relate to the subgroups"),
-            table_html(result.anova, "Analysis of variance (with the error term each test uses)"),
-            table_html(result.components, "Variance components"),
-        ]
-        if len(result.offsets):
-            parts.append(table_html(result.offsets, "Sampling and measurement offsets"))
-        if len(result.spread):
-            parts.append(table_html(result.spread, "Equal spread between levels?"))
-        self.texts["variation"].value = "".join(parts) + notes_html(result.notes)
-        self.slots["components"].show(result, lambda: _draw("components_figure")(result))
-        self.slots["multivari"].show(result, lambda: _draw("multivari_figure")(result))
-        self._show_anom()
-        return f"{len(result.components)} variance components"
-
-    def _show_anom(self) -> None:
-        factor = self.anom_factor.value
-        if factor is None or self.visible != "variation":
-            return
-        result = self.study_for().variation()
-        self.slots["anom"].show(
-            result, lambda: _draw("anom_figure")(result, factor), options=(factor,)
-        )
-        comparison = result.comparisons.get(factor)
-        self.texts["comparisons"].value = (
-            "" if comparison is None else table_html(comparison, f"Comparisons of {factor}")
-        )
-
-    def _show_time(self) -> str:
-        result = self.study_for().time_structure()
-        self.slots["acf"].show(result, lambda: _draw("acf_figure")(result))
-        self.slots["shifts"].show(result, lambda: _draw("shifts_figure")(result))
-        ar1 = pd.DataFrame([result.ar1])
-        self.texts["time"].value = (
-            table_html(result.ljung_box, "Ljung-Box tests of autocorrelation")
-            + table_html(ar1, "First-order autoregressive fit")
-            + table_html(result.shifts, "Step changes")
-            + notes_html(result.notes)
-        )
-        return f"{len(result.acf)} lags, {len(result.shifts)} step changes"
-
-    def _show_capability(self) -> str:
-        study = self.study_for()
-        if study.spec is None:
-            self.slots["capability"].clear()
-            self.texts["capability"].value = (
-                "<p>No specification: build the Study with spec=Spec(lsl=..., usl=...) "
-                "to see capability.</p>"
-            )
-            return "no specification"
-        result = study.capability()
-        self.slots["capability"].show(result, lambda: _draw("capability_figure")(result))
-        self.texts["capability"].value = (
-            table_html(result.indices, "Capability indices")
-            + table_html(result.ppm, "Parts per million outside the specification")
-            + table_html(result.normality, "Normality")
-            + notes_html(result.warnings)
-        )
-        return f"{len(result.indices)} indices"
-
-    def _show_findings(self) -> str:
-        found = self.study_for().findings()
-        self.texts["findings"].value = findings_html(found)
-        return f"{len(found)} findings"
-
-    # ---- selection and exclusions -----------------------------------------------
     def _watch_selection(self, layout: LayoutDOM) -> None:
         # draw.chart_figure puts the box and tap selection tools on the chart's points.
         points = layout.select_one({"name": "chart_points", "type": ColumnDataSource})
@@ -469,15 +461,7 @@ class Explorer(widgets.VBox):
     def _select(self, labels: tuple[str, ...]) -> None:
         self._selected = labels
         self._page = 0
-        if not labels:
-            self._selected_rows = pd.DataFrame()
-        else:
-            study = self.study_for()
-            column = study.frame[study.subgroup_column]
-            names = column.cat.categories.astype(str)
-            chosen = np.flatnonzero(np.isin(np.asarray(names, dtype=object), labels))
-            rows = np.isin(column.cat.codes.to_numpy(), chosen)
-            self._selected_rows = study.data.loc[rows]
+        self._selected_rows = self.study_for().rows_of(labels) if labels else pd.DataFrame()
         self._show_page()
 
     @property
@@ -539,7 +523,7 @@ class Explorer(widgets.VBox):
 
     def load(self, path: str | Path) -> None:
         """Load an investigation log saved on the same data (other data are refused)."""
-        state = load_log(path, data_id=self.data_id)
+        state = load_log(path, data_id=self.data_id, option_types=views.option_types())
         self._shown.clear()
         self._apply(state)
         # Said before what the panel update reported (which may be an error), not instead.

@@ -12,28 +12,23 @@ left idle (a closed tab) are shut down after ``idle_timeout`` seconds.
 
 from __future__ import annotations
 
-import collections
 import ipaddress
 import json
 import os
 import pickle
-import queue
 import secrets
 import shutil
-import signal
 import socket
-import subprocess
 import sys
 import tempfile
-import threading
-import time
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable
 from dataclasses import asdict, dataclass
 from importlib.resources import files
 from pathlib import Path
 from typing import Any
 
 from qcexplore.demo import ROLES as DEMO_ROLES
+from qcexplore.demo import TITLE as DEMO_TITLE
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
 from qcexplore.study import Study
@@ -44,7 +39,6 @@ CONFIG_ENV = "QCEXPLORE_APP_CONFIG"
 NOTEBOOK = "app.ipynb"
 _STUDY_FILE = "study.pickle"
 _CONFIG_FILE = "app.json"
-DEMO_TITLE = "Demo: honey filling line (seed {seed})"
 
 
 def is_loopback(host: str) -> bool:
@@ -61,6 +55,25 @@ def is_loopback(host: str) -> bool:
         return ipaddress.ip_address(host).is_loopback
     except ValueError:
         return False
+
+
+def require_access_control(host: str, token: str | None) -> None:
+    """Refuse to serve the network without an access token (loopback needs none).
+
+    Examples
+    --------
+    >>> require_access_control("127.0.0.1", None)
+    >>> require_access_control("0.0.0.0", None)  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: Serving on 0.0.0.0 lets others on the network in: ...
+    """
+    if not is_loopback(host) and not token:
+        raise QCDataError(
+            f"Serving on {host} lets others on the network in: give an access token "
+            "(--token TOKEN, or --token auto to generate one), or serve this machine only "
+            "(the default host 127.0.0.1)."
+        )
 
 
 def new_token() -> str:
@@ -173,7 +186,7 @@ def load_app_study(config: str | os.PathLike | None = None) -> tuple[Study, AppS
     """
     path = config if config is not None else os.environ.get(CONFIG_ENV)
     if not path:
-        return demo_study(), AppSettings(title=DEMO_TITLE.format(seed=0))
+        return demo_study(), AppSettings(title=DEMO_TITLE)
     path = Path(path)
     content = json.loads(path.read_text(encoding="utf-8"))
     with (path.parent / content.pop("study")).open("rb") as handle:
@@ -303,11 +316,7 @@ def serve(
     ...
     qcexplore.errors.QCDataError: Serving on 0.0.0.0 lets others on the network in: ...
     """
-    if not is_loopback(host) and not token:
-        raise QCDataError(
-            f"Serving on {host} lets others on the network in: give an access token "
-            "(or use the default host 127.0.0.1)."
-        )
+    require_access_control(host, token)
     from tornado.ioloop import IOLoop
     from tornado.web import GZipContentEncoding
     from voila.app import Voila
@@ -370,114 +379,3 @@ def _stop_kernels(server: Any) -> None:
                 run_sync(manager.shutdown_kernel)(kernel_id, now=True)
             except Exception as gone:  # already stopped on its own
                 server.log.info("Kernel %s: %s", kernel_id, gone)
-
-
-def private_environment(
-    home: str | os.PathLike,
-    base: Mapping[str, str] | None = None,
-    *,
-    python_path: Sequence[str | os.PathLike] = (),
-) -> dict[str, str]:
-    """An environment in which Jupyter (Voila, JupyterLab, kernels) writes only under ``home``.
-
-    For tests and throw-away servers: ``HOME``, the Jupyter config, data and runtime
-    folders and the IPython folder all point into ``home``. ``base``: the environment
-    to start from (default: this process's); ``python_path``: folders put first on
-    ``PYTHONPATH`` (e.g. a source checkout, so kernels import it).
-
-    Examples
-    --------
-    >>> env = private_environment("/tmp/h", {})
-    >>> env["HOME"], env["JUPYTER_RUNTIME_DIR"], env["JUPYTER_PLATFORM_DIRS"]
-    ('/tmp/h', '/tmp/h/runtime', '1')
-    """
-    home = Path(home)
-    env = dict(os.environ if base is None else base)
-    env.update(
-        HOME=str(home),
-        JUPYTER_PLATFORM_DIRS="1",
-        JUPYTER_CONFIG_DIR=str(home / "config"),
-        JUPYTER_DATA_DIR=str(home / "data"),
-        JUPYTER_RUNTIME_DIR=str(home / "runtime"),
-        IPYTHONDIR=str(home / "ipython"),
-    )
-    paths = [str(p) for p in python_path] + [env.get("PYTHONPATH", "")]
-    env["PYTHONPATH"] = os.pathsep.join(p for p in paths if p)
-    return env
-
-
-def launch(
-    args: Sequence[str] = (),
-    *,
-    env: Mapping[str, str] | None = None,
-    timeout: float = 60.0,
-) -> tuple[subprocess.Popen, str]:
-    """Start ``qcexplore app ARGS`` in a process group of its own; return it and its address.
-
-    For scripts and tests that need the app in the background. Stop it with
-    :func:`stop`, which ends the server and its kernels together.
-
-    Examples
-    --------
-    >>> process, address = launch(["--idle-timeout", "60"])
-    >>> address.startswith("http://127.0.0.1:")
-    True
-    >>> stop(process)
-    0
-    """
-    command = [sys.executable, "-m", "qcexplore", "app", *args]
-    process = subprocess.Popen(
-        command,
-        env=dict(os.environ if env is None else env),
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-        start_new_session=True,
-    )
-    lines: queue.Queue[str | None] = queue.Queue()
-    errors: collections.deque[str] = collections.deque(maxlen=5)
-
-    def pump() -> None:
-        # Keep reading for the server's lifetime so a full pipe never blocks it.
-        for line in process.stdout:
-            lines.put(line)
-        lines.put(None)
-
-    threading.Thread(target=pump, daemon=True).start()
-    threading.Thread(target=errors.extend, args=(process.stderr,), daemon=True).start()
-    deadline = time.monotonic() + timeout
-    while (left := deadline - time.monotonic()) > 0:
-        try:
-            line = lines.get(timeout=left)
-        except queue.Empty:
-            break
-        if line is None:
-            break
-        if line.startswith("qcexplore app: http"):
-            return process, line.split()[2]
-    stop(process)
-    last = [e.strip() for e in errors if e.strip()]
-    raise RuntimeError(
-        f"`{' '.join(command)}` gave no address within {timeout:g} s"
-        + (f"; it said: {last[-1]}" if last else "")
-    )
-
-
-def stop(process: subprocess.Popen, *, timeout: float = 20.0) -> int:
-    """Stop a server started by :func:`launch` (its whole process group); return its exit code.
-
-    Examples
-    --------
-    See :func:`launch`.
-    """
-    if process.poll() is None:
-        try:
-            os.killpg(process.pid, signal.SIGTERM)
-        except ProcessLookupError:
-            pass
-        try:
-            process.wait(timeout)
-        except subprocess.TimeoutExpired:
-            os.killpg(process.pid, signal.SIGKILL)
-            process.wait(timeout)
-    return process.returncode

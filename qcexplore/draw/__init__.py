@@ -3,14 +3,16 @@
 Each ``*_figure(result, ...)`` returns a bokeh layout whose figures and data sources
 carry stable ``name``s (see each module's docstring); :func:`refresh` swaps a new
 result's data into such a layout in place, and :func:`needs_rebuild` says when a new
-figure is needed instead. Nothing here loads BokehJS: the explorer and the report
-load it inline (never from a CDN).
+figure is needed instead. Colours are in :mod:`~qcexplore.draw.palette`, the bokeh
+pieces the figures share in :mod:`~qcexplore.draw.parts`, and the conversion of result
+columns into page data in :mod:`~qcexplore.draw.encode`. Nothing here loads BokehJS:
+the explorer and the report load it inline (never from a CDN).
 """
 
 from qcexplore.draw.capability import capability_figure
 from qcexplore.draw.charts import chart_figure
+from qcexplore.draw.palette import palette_for
 from qcexplore.draw.refresh import needs_rebuild, refresh
-from qcexplore.draw.theme import palette_for
 from qcexplore.draw.timeseries import acf_figure, shifts_figure
 from qcexplore.draw.variation import anom_figure, components_figure, multivari_figure
 

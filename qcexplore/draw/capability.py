@@ -16,22 +16,13 @@ import numpy as np
 from bokeh.layouts import column
 from bokeh.models import HoverTool, LayoutDOM
 
-from qcexplore.draw import theme
+from qcexplore.draw import palette, parts
 from qcexplore.stats.results import CapabilityResult
 
-
-def capability_spec(result: CapabilityResult) -> dict[str, Any]:
-    """Build description of the capability layout (nothing in it depends on the data).
-
-    Examples
-    --------
-    >>> capability_spec(None)
-    {'figure': 'capability', 'options': {}}
-    """
-    return {"figure": "capability", "options": {}}
+capability_plan = parts.fixed_plan("capability")
 
 
-def capability_sources(result: CapabilityResult, spec: dict[str, Any]) -> dict[str, dict]:
+def capability_sources(result: CapabilityResult, plan: dict[str, Any]) -> dict[str, dict]:
     """Column data of the capability layout's sources (see the module docstring).
 
     Examples
@@ -42,7 +33,7 @@ def capability_sources(result: CapabilityResult, spec: dict[str, Any]) -> dict[s
     >>> curve = pd.DataFrame({"x": [0.0, 2.0], "density": [1.0, 1.0]})
     >>> r = CapabilityResult(pd.DataFrame(), pd.DataFrame(), pd.DataFrame(), lsl=0.2,
     ...                      mean=1.1, histogram=hist, curve=curve)
-    >>> capability_sources(r, capability_spec(r))["capability_spec"]["label"].tolist()
+    >>> capability_sources(r, capability_plan(r))["capability_spec"]["label"].tolist()
     ['LSL 0.2', 'mean 1.1']
     """
     hist, curve = result.histogram, result.curve
@@ -72,7 +63,7 @@ def capability_sources(result: CapabilityResult, spec: dict[str, Any]) -> dict[s
     }
 
 
-def capability_texts(result: CapabilityResult, spec: dict[str, Any]) -> dict[str, str]:
+def capability_texts(result: CapabilityResult, plan: dict[str, Any]) -> dict[str, str]:
     """Title of the capability figure (n, mean and the within-subgroup sd of the curve).
 
     Examples
@@ -103,43 +94,36 @@ def capability_figure(result: CapabilityResult) -> LayoutDOM:
     ...                   usl=2.0, histogram=hist, curve=curve)).name
     'capability_layout'
     """
-    spec = capability_spec(result)
-    data = capability_sources(result, spec)
-    sources = {name: theme.source(name, cols) for name, cols in data.items()}
-    fig = theme.new_figure("capability", capability_texts(result, spec)["capability"])
+    plan = capability_plan(result)
+    data = capability_sources(result, plan)
+    sources = {name: parts.source(name, cols) for name, cols in data.items()}
+    fig = parts.new_figure("capability", capability_texts(result, plan)["capability"])
     bars = fig.quad(
         left="left",
         right="right",
         bottom=0,
         top="count",
         source=sources["capability_histogram"],
-        fill_color=theme.BAND,
+        fill_color=palette.BAND,
         line_color="#ffffff",
     )
     fig.line(
         "x",
         "density",
         source=sources["capability_curve"],
-        line_color=theme.POINT,
+        line_color=palette.POINT,
         line_width=2,
     )
-    spec_src = sources["capability_spec"]
+    spec_lines = sources["capability_spec"]
     styles = {
-        "limit": {"line_color": theme.CENTER, "line_width": 2},
-        "target": {"line_color": theme.CENTER, "line_dash": "dashed"},
-        "mean": {"line_color": theme.LIMIT, "line_dash": "dotted"},
+        "limit": {"line_color": palette.CENTER, "line_width": 2},
+        "target": {"line_color": palette.CENTER, "line_dash": "dashed"},
+        "mean": {"line_color": palette.LIMIT, "line_dash": "dotted"},
     }
     for role, style in styles.items():
-        fig.segment("x", "y0", "x", "y1", source=spec_src, view=theme.view(role=role), **style)
-    fig.text(
-        x="x",
-        y="y1",
-        text="label",
-        source=spec_src,
-        text_align="center",
-        text_baseline="bottom",
-        text_font_size="10pt",
-        text_color=theme.CENTER,
+        fig.segment("x", "y0", "x", "y1", source=spec_lines, view=parts.view(role=role), **style)
+    parts.write(
+        fig, spec_lines, x="x", y="y1", text="label", text_align="center", text_baseline="bottom"
     )
     fig.add_tools(
         HoverTool(
@@ -155,4 +139,4 @@ def capability_figure(result: CapabilityResult) -> LayoutDOM:
     fig.yaxis.axis_label = "Count"
     fig.y_range.start = 0
     fig.y_range.range_padding = 0.12
-    return column(fig, name="capability_layout", tags=[spec])
+    return column(fig, name="capability_layout", tags=[plan])

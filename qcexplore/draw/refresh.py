@@ -1,25 +1,27 @@
 """Live updates: swap new data into an existing layout's named sources.
 
-Every figure function stores a build description in its layout's ``tags`` (the
-``*_spec`` functions). A new result that gives the same description can be shown by
-assigning new ``.data`` to the layout's named ColumnDataSources and new title texts
+Every figure function stores a build plan in its layout's ``tags`` (the ``*_plan``
+functions). A new result that gives the same plan can be shown by assigning new
+``.data`` to the layout's named ColumnDataSources and new title and axis texts
 (:func:`refresh`); the explorer then updates in place through jupyter_bokeh's
-BokehModel. A different description needs a new figure (:func:`needs_rebuild`):
+BokehModel. A different plan needs a new figure (:func:`needs_rebuild`):
 
 - chart: another number or set of panels (overlay <-> small multiples, another
   ``by``, per-stratum limits switched on or off, a stratum level appearing), the
   secondary chart appearing or disappearing, strata appearing or disappearing, the x
-  axis switching between positions and times, or the point count crossing
-  :data:`~qcexplore.draw.theme.WEBGL_FROM` (WebGL on/off);
-- multi-vari: another set of factors or WebGL on/off; ANOM: another factor or other
-  levels; components: other sources; step changes: the x axis switching between
-  positions and times, or WebGL on/off;
+  axis switching between positions and times, legend labels that need other legend
+  columns, CUSUM (two sums) for another kind or back, or the point count crossing
+  :data:`~qcexplore.draw.parts.WEBGL_FROM` (WebGL on/off);
+- multi-vari: another set of factors, legend labels that need other legend columns,
+  or WebGL on/off; ANOM: another factor or other levels; components: other sources;
+  step changes: the x axis switching between positions and times, or WebGL on/off;
 - ACF and capability: never (their layout does not depend on the data);
 - a result of another type than the one the layout was built from.
 
-Re-colouring (another split factor with the same panel structure) is data only: the
-colours travel as codes in the ``color_code`` column of the sources (see
-:mod:`qcexplore.draw.charts`).
+Re-colouring (another split factor with the same panel structure, more or fewer
+levels than colours) is data only: the colours travel as codes in the ``color_code``
+column of the sources (see :mod:`qcexplore.draw.charts`). The figure options (split,
+x, highlight) stay those the layout was built with.
 """
 
 from __future__ import annotations
@@ -28,59 +30,59 @@ import weakref
 from collections.abc import Callable
 from typing import Any, NamedTuple
 
-from bokeh.models import Div, LayoutDOM
+from bokeh.models import Axis, Div, LayoutDOM
 
-from qcexplore.draw import capability, charts, theme, timeseries, variation
+from qcexplore.draw import capability, charts, parts, timeseries, variation
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import CapabilityResult, ChartResult, TimeResult, VariationResult
 
 
 class _Figure(NamedTuple):
     result_type: type
-    spec: Callable[..., dict[str, Any]]
+    plan: Callable[..., dict[str, Any]]
     sources: Callable[[Any, dict[str, Any]], dict[str, dict]]
     texts: Callable[[Any, dict[str, Any]], dict[str, str]]
 
 
 _FIGURES: dict[str, _Figure] = {
-    "chart": _Figure(ChartResult, charts.chart_spec, charts.chart_sources, charts.chart_texts),
+    "chart": _Figure(ChartResult, charts.chart_plan, charts.chart_sources, charts.chart_texts),
     "multivari": _Figure(
         VariationResult,
-        variation.multivari_spec,
+        variation.multivari_plan,
         variation.multivari_sources,
         variation.multivari_texts,
     ),
     "anom": _Figure(
-        VariationResult, variation.anom_spec, variation.anom_sources, variation.anom_texts
+        VariationResult, variation.anom_plan, variation.anom_sources, variation.anom_texts
     ),
     "components": _Figure(
         VariationResult,
-        variation.components_spec,
+        variation.components_plan,
         variation.components_sources,
         variation.components_texts,
     ),
-    "acf": _Figure(TimeResult, timeseries.acf_spec, timeseries.acf_sources, timeseries.acf_texts),
+    "acf": _Figure(TimeResult, timeseries.acf_plan, timeseries.acf_sources, timeseries.acf_texts),
     "shifts": _Figure(
-        TimeResult, timeseries.shifts_spec, timeseries.shifts_sources, timeseries.shifts_texts
+        TimeResult, timeseries.shifts_plan, timeseries.shifts_sources, timeseries.shifts_texts
     ),
     "capability": _Figure(
         CapabilityResult,
-        capability.capability_spec,
+        capability.capability_plan,
         capability.capability_sources,
         capability.capability_texts,
     ),
 }
 
 
-def _new_spec(layout: LayoutDOM, result: Any) -> tuple[_Figure, dict[str, Any]] | None:
-    old = theme.spec_of(layout)
+def _new_plan(layout: LayoutDOM, result: Any) -> tuple[_Figure, dict[str, Any]] | None:
+    old = parts.plan_of(layout)
     if old is None or old["figure"] not in _FIGURES:
         return None
     fig = _FIGURES[old["figure"]]
     if not isinstance(result, fig.result_type):
         return None
     try:
-        new = fig.spec(result, **old["options"])
+        new = fig.plan(result, **old["options"])
     except QCDataError:  # e.g. the factor of an ANOM layout is not in the new result
         return None
     return (fig, new) if new == old else None
@@ -113,14 +115,14 @@ def needs_rebuild(layout: LayoutDOM, result: Any) -> bool:
     >>> needs_rebuild(chart_figure(r), r)
     False
     """
-    return _new_spec(layout, result) is None
+    return _new_plan(layout, result) is None
 
 
 def refresh(layout: LayoutDOM, result: Any) -> None:
     """Show ``result`` in ``layout`` by assigning new data to its named sources in place.
 
     The models keep their ids, so a layout inside a jupyter_bokeh BokehModel updates
-    without a new figure. Titles are updated too.
+    without a new figure. Titles and axis labels are updated too.
 
     Raises
     ------
@@ -139,22 +141,24 @@ def refresh(layout: LayoutDOM, result: Any) -> None:
     >>> layout.select_one({"name": "chart_points"}).data["value"].tolist()
     [3.0, 4.0]
     """
-    found = _new_spec(layout, result)
+    found = _new_plan(layout, result)
     if found is None:
-        old = theme.spec_of(layout)
+        old = parts.plan_of(layout)
         what = old["figure"] if old else "unknown"
         raise QCDataError(
             f"result: a {type(result).__name__} that does not fit this {what} layout (other "
             f"panels, axis or figure type); build a new figure with {what}_figure(...) "
             "(check with needs_rebuild first)."
         )
-    fig, spec = found
+    fig, plan = found
     named = _named(layout)
-    for name, data in fig.sources(result, spec).items():
+    for name, data in fig.sources(result, plan).items():
         named[name].data = data
-    for name, text in fig.texts(result, spec).items():
+    for name, text in fig.texts(result, plan).items():
         model = named[name]
         if isinstance(model, Div):
             model.text = text
+        elif isinstance(model, Axis):
+            model.axis_label = text
         else:
-            model.title.text = theme.wrapped_title(text, model.width)
+            model.title.text = parts.wrapped_title(text, model.width)

@@ -5,20 +5,28 @@ Names (layout / figures / sources and their columns):
 - :func:`multivari_figure`: ``"multivari_layout"``; one panel per factor, named
   ``"multivari"`` (one factor) or ``"multivari_0"``, ``"multivari_1"``, ...;
   ``"multivari_points"`` (``x, value, subgroup, factor, level, n, color`` + ``panel``
-  with several factors) and ``"multivari_line"`` (``x0, y0, x1, y1`` + ``panel``).
+  with several factors), ``"multivari_line"`` (``x0, y0, x1, y1`` + ``panel``) and
+  one legend source per panel, ``"multivari_legend"`` or ``"multivari_legend_0"``, ...
+  (``label, color, x, value``: each level, or the highlighted level and "others").
   Within each subgroup the level means sit side by side (in level order, the x offset
   is only for legibility) and are joined by a thin line. The result's rows of the
   subgroup means (``factor == "subgroup"``) are not drawn.
 - :func:`anom_figure`: ``"anom_layout"``, figure ``"anom"``; ``"anom_points"``
-  (``x, value, level, lower, upper, p, color``), ``"anom_signals"`` (the levels whose
-  mean lies outside its decision limits) and ``"anom_limits"`` (``x0, y0, x1, y1, role,
-  panel``: decision limits dashed, their midpoint solid). Levels sit at x = 1..L.
+  (``x, value, level, lower, upper, p, color``), ``"anom_signals"`` (the levels that
+  the result's ``signal`` column marks: their mean lies outside its decision limits),
+  ``"anom_limits"`` (``x0, y0, x1, y1, role, panel``: decision limits dashed, their
+  midpoint solid) and ``"anom_limit_values"`` (``x, y, text, anchor``: the values
+  written at the right end of those lines). Levels sit at x = 1..L.
 - :func:`components_figure`: ``"components_layout"``, figure ``"components"``;
   ``"components_bars"`` (``source, share, variance, sd, label, color``).
+
+Levels are coloured as on every other panel (:mod:`qcexplore.draw.palette`): beyond
+eight levels, the ``highlight`` level is coloured and the others are grey.
 """
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
@@ -26,7 +34,7 @@ import pandas as pd
 from bokeh.layouts import column
 from bokeh.models import FixedTicker, HoverTool, LayoutDOM, NumeralTickFormatter
 
-from qcexplore.draw import theme
+from qcexplore.draw import encode, palette, parts
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import VariationResult
 
@@ -37,7 +45,7 @@ SUBGROUP_MEANS = "subgroup"
 
 def _factor_levels(frame: pd.DataFrame) -> list[str]:
     present = set(frame["level"].dropna().astype(str))
-    return [str(v) for v in theme.levels_of(frame["level"]) if str(v) in present]
+    return [str(v) for v in encode.levels_of(frame["level"]) if str(v) in present]
 
 
 def _level_means(result: VariationResult) -> pd.DataFrame:
@@ -45,11 +53,28 @@ def _level_means(result: VariationResult) -> pd.DataFrame:
     # stats.variation.multivari_table), not a factor's levels: a panel of them would
     # colour hundreds of subgroups with a repeating palette.
     mv = result.multivari
-    return mv[theme.labels(mv["factor"]) != SUBGROUP_MEANS].reset_index(drop=True)
+    return mv[encode.labels(mv["factor"]) != SUBGROUP_MEANS].reset_index(drop=True)
 
 
-def multivari_spec(result: VariationResult) -> dict[str, Any]:
-    """Build description of the multi-vari layout (a new figure when it changes).
+def _legend_data(levels: list[str], highlight: Any) -> dict[str, np.ndarray]:
+    labels, colours = palette.legend_entries(levels, levels, highlight)
+    return {
+        "label": np.array(labels, dtype=object),
+        "color": np.array(colours, dtype=object),
+        "x": np.full(len(labels), np.nan),
+        "value": np.full(len(labels), np.nan),
+    }
+
+
+def multivari_plan(
+    result: VariationResult, *, highlight: Mapping[str, Any] | None = None
+) -> dict[str, Any]:
+    """Build plan of the multi-vari layout (a new figure when it changes).
+
+    Raises
+    ------
+    QCDataError
+        Without level means, or when ``highlight`` names a factor or level not shown.
 
     Examples
     --------
@@ -58,7 +83,7 @@ def multivari_spec(result: VariationResult) -> dict[str, Any]:
     >>> mv = pd.DataFrame({"subgroup": [1, 1], "factor": "crew", "level": ["A", "B"],
     ...                    "mean": [1.0, 2.0], "n": 3})
     >>> r = VariationResult(pd.DataFrame(), pd.DataFrame(), pd.DataFrame(), multivari=mv)
-    >>> multivari_spec(r)["panels"]
+    >>> multivari_plan(r)["panels"]
     ['crew']
     """
     mv = _level_means(result)
@@ -68,15 +93,28 @@ def multivari_spec(result: VariationResult) -> dict[str, Any]:
             "variation(...) with at least one factor."
         )
     factors = [str(f) for f in pd.unique(mv["factor"])]
+    chosen = {str(f): str(level) for f, level in (highlight or {}).items()}
+    unknown = sorted(set(chosen) - set(factors))
+    if unknown:
+        raise QCDataError(
+            f"highlight: factor(s) {unknown} have no panel here; use one of {factors}."
+        )
+    factor = encode.labels(mv["factor"])
+    columns = []
+    for name in factors:
+        levels = _factor_levels(mv[factor == name])
+        labels = palette.legend_entries(levels, levels, chosen.get(name))[0]
+        columns.append(parts.legend_columns(labels))
     return {
         "figure": "multivari",
-        "options": {},
+        "options": {"highlight": chosen or None},
         "panels": factors,
-        "webgl": len(mv) > theme.WEBGL_FROM,
+        "legend_columns": columns,
+        "webgl": len(mv) > parts.WEBGL_FROM,
     }
 
 
-def multivari_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str, dict]:
+def multivari_sources(result: VariationResult, plan: dict[str, Any]) -> dict[str, dict]:
     """Column data of the multi-vari layout's sources (see the module docstring).
 
     Examples
@@ -86,7 +124,7 @@ def multivari_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str
     >>> mv = pd.DataFrame({"subgroup": [1, 1], "factor": "crew", "level": ["A", "B"],
     ...                    "mean": [1.0, 2.0], "n": 3})
     >>> r = VariationResult(pd.DataFrame(), pd.DataFrame(), pd.DataFrame(), multivari=mv)
-    >>> multivari_sources(r, multivari_spec(r))["multivari_points"]["x"].tolist()
+    >>> multivari_sources(r, multivari_plan(r))["multivari_points"]["x"].tolist()
     [0.85, 1.15]
     """
     mv = _level_means(result)
@@ -98,21 +136,27 @@ def multivari_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str
     ).astype(float) + 1.0
     x = np.empty(len(mv))
     color = np.empty(len(mv), dtype=object)
-    factor = theme.labels(mv["factor"])
-    level = theme.labels(mv["level"])
-    for name in spec["panels"]:
+    factor = encode.labels(mv["factor"])
+    level = encode.labels(mv["level"])
+    chosen = plan["options"]["highlight"] or {}
+    panels = plan["panels"]
+    out: dict[str, dict] = {}
+    for name, legend in zip(
+        panels, parts.panel_names("multivari_legend", len(panels)), strict=True
+    ):
         rows = factor == name
         levels = _factor_levels(mv[rows])
         index = pd.Index(levels).get_indexer(level[rows])
         count = len(levels)
         x[rows] = position[rows] + (index - (count - 1) / 2.0) * _DODGE / max(count, 1)
-        color[rows] = theme.colors_for(pd.Series(level[rows]), levels)
-    panel = factor if len(spec["panels"]) > 1 else np.full(len(mv), "all", dtype=object)
+        color[rows] = palette.colors_for(level[rows], levels, chosen.get(name))
+        out[legend] = _legend_data(levels, chosen.get(name))
+    panel = factor if len(panels) > 1 else np.full(len(mv), "all", dtype=object)
     y = mv["mean"].to_numpy(dtype=float)
     points = {
         "x": x,
         "value": y,
-        "subgroup": theme.labels(sub),
+        "subgroup": encode.labels(sub),
         "factor": factor,
         "level": level,
         "n": mv["n"].to_numpy(),
@@ -121,15 +165,15 @@ def multivari_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str
     }
     # One group per (factor, subgroup): the level means of a subgroup are joined.
     group = pd.factorize(factor)[0] * (position.max(initial=0.0) + 1.0) + position
-    keep = theme.line_rows(len(mv))
-    line = theme.segments(x[keep], y[keep], group[keep], panel[keep])
-    if len(spec["panels"]) == 1:
+    keep = parts.line_rows(len(mv))
+    line = parts.segments(x[keep], y[keep], group[keep], panel[keep])
+    if len(panels) == 1:
         points.pop("panel")
         line.pop("panel")
-    return {"multivari_points": points, "multivari_line": line}
+    return {"multivari_points": points, "multivari_line": line, **out}
 
 
-def multivari_texts(result: VariationResult, spec: dict[str, Any]) -> dict[str, str]:
+def multivari_texts(result: VariationResult, plan: dict[str, Any]) -> dict[str, str]:
     """Titles of the multi-vari panels by figure name.
 
     Examples
@@ -137,18 +181,28 @@ def multivari_texts(result: VariationResult, spec: dict[str, Any]) -> dict[str, 
     >>> multivari_texts(None, {"panels": ["crew"]})
     {'multivari': 'Mean of each crew level within each subgroup (multi-vari chart)'}
     """
-    names = theme.panel_names("multivari", len(spec["panels"]))
+    names = parts.panel_names("multivari", len(plan["panels"]))
     return {
         name: f"Mean of each {factor} level within each subgroup (multi-vari chart)"
-        for name, factor in zip(names, spec["panels"], strict=True)
+        for name, factor in zip(names, plan["panels"], strict=True)
     }
 
 
-def multivari_figure(result: VariationResult) -> LayoutDOM:
+def multivari_figure(
+    result: VariationResult, *, highlight: Mapping[str, Any] | None = None
+) -> LayoutDOM:
     """Multi-vari chart: each factor's level means within each subgroup, over time.
 
-    One panel per factor, stacked, sharing both axes; a level keeps its colour
-    (:func:`~qcexplore.draw.theme.palette_for` of the factor's levels in order).
+    One panel per factor, stacked, sharing both axes, each with its legend above; a
+    level keeps its colour (:func:`~qcexplore.draw.palette.palette_for` of the factor's
+    levels in order).
+
+    Parameters
+    ----------
+    result : VariationResult
+    highlight : mapping, optional
+        ``{factor: level}``: the level to colour in the panel of a factor with more
+        than eight levels (the others are grey); default each factor's first level.
 
     Examples
     --------
@@ -160,32 +214,39 @@ def multivari_figure(result: VariationResult) -> LayoutDOM:
     >>> multivari_figure(r).select_one({"name": "multivari"}) is not None
     True
     """
-    spec = multivari_spec(result)
-    data = multivari_sources(result, spec)
-    sources = {name: theme.source(name, cols) for name, cols in data.items()}
-    texts = multivari_texts(result, spec)
-    panels = spec["panels"]
+    plan = multivari_plan(result, highlight=highlight)
+    data = multivari_sources(result, plan)
+    sources = {name: parts.source(name, cols) for name, cols in data.items()}
+    texts = multivari_texts(result, plan)
+    panels = plan["panels"]
     figs = []
-    height = theme.HEIGHT if len(panels) == 1 else max(200, 2 * theme.HEIGHT // len(panels))
-    for name, panel in zip(theme.panel_names("multivari", len(panels)), panels, strict=True):
+    height = parts.HEIGHT if len(panels) == 1 else max(200, 2 * parts.HEIGHT // len(panels))
+    names = zip(
+        parts.panel_names("multivari", len(panels)),
+        parts.panel_names("multivari_legend", len(panels)),
+        panels,
+        plan["legend_columns"],
+        strict=True,
+    )
+    for name, legend, panel, columns in names:
         shared = {"x_range": figs[0].x_range, "y_range": figs[0].y_range} if figs else {}
-        fig = theme.new_figure(name, texts[name], height=height, webgl=spec["webgl"], **shared)
+        fig = parts.new_figure(name, texts[name], height=height, webgl=plan["webgl"], **shared)
         fig.segment(
             "x0",
             "y0",
             "x1",
             "y1",
             source=sources["multivari_line"],
-            view=theme.view(panel if len(panels) > 1 else None),
-            line_color=theme.LINE,
-            line_width=theme.LINE_WIDTH,
+            view=parts.view(panel if len(panels) > 1 else None),
+            line_color=palette.LINE,
+            line_width=parts.LINE_WIDTH,
         )
         dots = fig.scatter(
             "x",
             "value",
             source=sources["multivari_points"],
-            view=theme.view(panel if len(panels) > 1 else None),
-            size=theme.POINT_SIZE + 2,
+            view=parts.view(panel if len(panels) > 1 else None),
+            size=parts.POINT_SIZE + 2,
             color="color",
             line_color="color",
         )
@@ -201,11 +262,12 @@ def multivari_figure(result: VariationResult) -> LayoutDOM:
                 ],
             )
         )
+        parts.legend_above(fig, sources[legend], columns)
         fig.xaxis.axis_label = "Subgroup (position in time order)"
         fig.yaxis.axis_label = "Level mean"
-        theme.whole_number_ticks(fig)
+        parts.whole_number_ticks(fig)
         figs.append(fig)
-    return column(*figs, name="multivari_layout", tags=[spec])
+    return column(*figs, name="multivari_layout", tags=[plan])
 
 
 def _anom_rows(result: VariationResult, factor: str) -> pd.DataFrame:
@@ -216,31 +278,46 @@ def _anom_rows(result: VariationResult, factor: str) -> pd.DataFrame:
             f"factor: no analysis of means for {factor!r} in the result; "
             f"factors with one: {known or 'none'}."
         )
+    if "signal" not in table:
+        raise QCDataError(
+            f"result: the comparisons of {factor!r} have no 'signal' column (which levels lie "
+            "outside their decision limits); compute them with variation(...)."
+        )
     return table[table["test"] == "anom"].reset_index(drop=True)
 
 
-def anom_spec(result: VariationResult, *, factor: str) -> dict[str, Any]:
-    """Build description of the ANOM layout: the factor and its levels on the x axis.
+def anom_plan(result: VariationResult, *, factor: str, highlight: Any = None) -> dict[str, Any]:
+    """Build plan of the ANOM layout: the factor and its levels on the x axis.
+
+    Raises
+    ------
+    QCDataError
+        When the result has no analysis of means of ``factor``, or ``highlight`` is not
+        one of its levels.
 
     Examples
     --------
     >>> import pandas as pd
     >>> from qcexplore.stats.results import VariationResult
     >>> cmp = pd.DataFrame({"test": "anom", "level": ["A", "B"], "versus": "overall",
-    ...     "estimate": [1.0, 2.0], "statistic": 0.0, "p": 0.5, "lower": 0.5, "upper": 2.5})
+    ...     "estimate": [1.0, 2.0], "statistic": 0.0, "p": 0.5, "lower": 0.5, "upper": 2.5,
+    ...     "signal": False})
     >>> r = VariationResult(pd.DataFrame(), pd.DataFrame(), pd.DataFrame(), {"crew": cmp})
-    >>> anom_spec(r, factor="crew")["levels"]
+    >>> anom_plan(r, factor="crew")["levels"]
     ['A', 'B']
     """
     rows = _anom_rows(result, factor)
+    levels = [str(v) for v in encode.labels(rows["level"])]
+    chosen = None if highlight is None else str(highlight)
+    palette.highlight_index(levels, chosen)
     return {
         "figure": "anom",
-        "options": {"factor": factor},
-        "levels": [str(v) for v in theme.labels(rows["level"])],
+        "options": {"factor": factor, "highlight": chosen},
+        "levels": levels,
     }
 
 
-def anom_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str, dict]:
+def anom_sources(result: VariationResult, plan: dict[str, Any]) -> dict[str, dict]:
     """Column data of the ANOM layout's sources (see the module docstring).
 
     Examples
@@ -248,36 +325,38 @@ def anom_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str, dic
     >>> import pandas as pd
     >>> from qcexplore.stats.results import VariationResult
     >>> cmp = pd.DataFrame({"test": "anom", "level": ["A", "B"], "versus": "overall",
-    ...     "estimate": [1.0, 3.0], "statistic": 0.0, "p": 0.5, "lower": 0.5, "upper": 2.5})
+    ...     "estimate": [1.0, 3.0], "statistic": 0.0, "p": 0.5, "lower": 0.5, "upper": 2.5,
+    ...     "signal": [False, True]})
     >>> r = VariationResult(pd.DataFrame(), pd.DataFrame(), pd.DataFrame(), {"crew": cmp})
-    >>> anom_sources(r, anom_spec(r, factor="crew"))["anom_signals"]["level"].tolist()
+    >>> anom_sources(r, anom_plan(r, factor="crew"))["anom_signals"]["level"].tolist()
     ['B']
     """
-    rows = _anom_rows(result, spec["options"]["factor"])
-    levels = spec["levels"]
+    rows = _anom_rows(result, plan["options"]["factor"])
+    levels = plan["levels"]
     x = np.arange(1, len(rows) + 1, dtype=float)
-    y = rows["estimate"].to_numpy(dtype=float)
     lower = rows["lower"].to_numpy(dtype=float)
     upper = rows["upper"].to_numpy(dtype=float)
     points = {
         "x": x,
-        "value": y,
+        "value": rows["estimate"].to_numpy(dtype=float),
         "level": np.array(levels, dtype=object),
         "lower": lower,
         "upper": upper,
         "p": rows["p"].to_numpy(dtype=float),
-        "color": theme.colors_for(pd.Series(levels), levels),
+        "color": palette.colors_for(levels, levels, plan["options"]["highlight"]),
     }
-    outside = (y < lower) | (y > upper)
-    limits = theme.steps(x, {"center": (lower + upper) / 2.0, "lower": lower, "upper": upper}, 0.5)
+    signal = rows["signal"].to_numpy(dtype=bool)
+    # The solid line between the decision limits marks where they are centred.
+    lines = {"center": (lower + upper) / 2.0, "lower": lower, "upper": upper}
     return {
         "anom_points": points,
-        "anom_signals": {k: v[outside] for k, v in points.items()},
-        "anom_limits": limits,
+        "anom_signals": {k: v[signal] for k, v in points.items()},
+        "anom_limits": parts.steps(x, lines, parts.POSITION_PAD),
+        "anom_limit_values": parts.line_ends(x, lines, parts.POSITION_PAD),
     }
 
 
-def anom_texts(result: VariationResult, spec: dict[str, Any]) -> dict[str, str]:
+def anom_texts(result: VariationResult, plan: dict[str, Any]) -> dict[str, str]:
     """Title of the ANOM figure.
 
     Examples
@@ -285,45 +364,57 @@ def anom_texts(result: VariationResult, spec: dict[str, Any]) -> dict[str, str]:
     >>> anom_texts(None, {"options": {"factor": "crew"}})["anom"][:24]
     'Analysis of means: crew '
     """
-    factor = spec["options"]["factor"]
+    factor = plan["options"]["factor"]
     return {
         "anom": f"Analysis of means: {factor} level means with decision limits "
         "around the overall mean"
     }
 
 
-def anom_figure(result: VariationResult, factor: str) -> LayoutDOM:
+def anom_figure(result: VariationResult, factor: str, *, highlight: Any = None) -> LayoutDOM:
     """Analysis of means: each level's mean with its decision limits.
 
-    A level whose mean lies outside its decision limits gets the accent ring. The
-    decision limits come from the result (``comparisons[factor]``, ``test == "anom"``).
+    A level that the result marks as a signal (``signal`` in ``comparisons[factor]``,
+    ``test == "anom"``: its mean lies outside its decision limits) gets the accent
+    ring. The decision limits come from the same rows; their values are written at the
+    right end of their lines.
+
+    Parameters
+    ----------
+    result : VariationResult
+    factor : str
+    highlight : optional
+        The level to colour when the factor has more than eight levels (the others are
+        grey); default the first level.
 
     Examples
     --------
     >>> import pandas as pd
     >>> from qcexplore.stats.results import VariationResult
     >>> cmp = pd.DataFrame({"test": "anom", "level": ["A", "B"], "versus": "overall",
-    ...     "estimate": [1.0, 2.0], "statistic": 0.0, "p": 0.5, "lower": 0.5, "upper": 2.5})
+    ...     "estimate": [1.0, 2.0], "statistic": 0.0, "p": 0.5, "lower": 0.5, "upper": 2.5,
+    ...     "signal": False})
     >>> r = VariationResult(pd.DataFrame(), pd.DataFrame(), pd.DataFrame(), {"crew": cmp})
     >>> anom_figure(r, "crew").name
     'anom_layout'
     """
-    spec = anom_spec(result, factor=factor)
-    data = anom_sources(result, spec)
-    sources = {name: theme.source(name, cols) for name, cols in data.items()}
-    fig = theme.new_figure(
+    plan = anom_plan(result, factor=factor, highlight=highlight)
+    data = anom_sources(result, plan)
+    sources = {name: parts.source(name, cols) for name, cols in data.items()}
+    fig = parts.new_figure(
         "anom",
-        anom_texts(result, spec)["anom"],
-        width=min(theme.WIDTH, max(640, 200 + 80 * len(spec["levels"]))),
+        anom_texts(result, plan)["anom"],
+        width=min(parts.WIDTH, max(640, 200 + 80 * len(plan["levels"]))),
     )
-    theme.centre_and_limits(
-        fig, sources["anom_limits"], theme.view(role="center"), theme.view(role="limit")
+    parts.centre_and_limits(
+        fig, sources["anom_limits"], parts.view(role="center"), parts.view(role="limit")
     )
+    parts.end_values(fig, sources["anom_limit_values"], parts.view())
     dots = fig.scatter(
         "x",
         "value",
         source=sources["anom_points"],
-        size=theme.POINT_SIZE + 4,
+        size=parts.POINT_SIZE + 4,
         color="color",
         line_color="color",
     )
@@ -331,9 +422,9 @@ def anom_figure(result: VariationResult, factor: str) -> LayoutDOM:
         "x",
         "value",
         source=sources["anom_signals"],
-        size=theme.SIGNAL_SIZE + 4,
+        size=parts.SIGNAL_SIZE + 4,
         fill_color=None,
-        line_color=theme.ACCENT,
+        line_color=palette.ACCENT,
         line_width=2,
     )
     fig.add_tools(
@@ -347,17 +438,17 @@ def anom_figure(result: VariationResult, factor: str) -> LayoutDOM:
             ],
         )
     )
-    ticks = list(range(1, len(spec["levels"]) + 1))
+    ticks = list(range(1, len(plan["levels"]) + 1))
     fig.xaxis.ticker = FixedTicker(ticks=ticks)
-    fig.xaxis.major_label_overrides = dict(zip(ticks, spec["levels"], strict=True))
+    fig.xaxis.major_label_overrides = dict(zip(ticks, plan["levels"], strict=True))
     fig.xaxis.axis_label = factor
     fig.yaxis.axis_label = "Level mean"
     fig.x_range.range_padding = 0.3
-    return column(fig, name="anom_layout", tags=[spec])
+    return column(fig, name="anom_layout", tags=[plan])
 
 
-def components_spec(result: VariationResult) -> dict[str, Any]:
-    """Build description of the components layout: the sources, in order, on the y axis.
+def components_plan(result: VariationResult) -> dict[str, Any]:
+    """Build plan of the components layout: the sources, in order, on the y axis.
 
     Examples
     --------
@@ -365,17 +456,17 @@ def components_spec(result: VariationResult) -> dict[str, Any]:
     >>> from qcexplore.stats.results import VariationResult
     >>> comp = pd.DataFrame({"source": ["crew", "residual"], "variance": [1.0, 3.0],
     ...                      "sd": [1.0, 3.0 ** 0.5], "share": [0.25, 0.75]})
-    >>> components_spec(VariationResult(pd.DataFrame(), pd.DataFrame(), comp))["sources"]
+    >>> components_plan(VariationResult(pd.DataFrame(), pd.DataFrame(), comp))["sources"]
     ['crew', 'residual']
     """
     return {
         "figure": "components",
         "options": {},
-        "sources": [str(s) for s in theme.labels(result.components["source"])],
+        "sources": [str(s) for s in encode.labels(result.components["source"])],
     }
 
 
-def components_sources(result: VariationResult, spec: dict[str, Any]) -> dict[str, dict]:
+def components_sources(result: VariationResult, plan: dict[str, Any]) -> dict[str, dict]:
     """Column data of ``"components_bars"`` (see the module docstring).
 
     Examples
@@ -385,13 +476,13 @@ def components_sources(result: VariationResult, spec: dict[str, Any]) -> dict[st
     >>> comp = pd.DataFrame({"source": ["crew", "residual"], "variance": [1.0, 3.0],
     ...                      "sd": [1.0, 3.0 ** 0.5], "share": [0.25, 0.75]})
     >>> r = VariationResult(pd.DataFrame(), pd.DataFrame(), comp)
-    >>> components_sources(r, components_spec(r))["components_bars"]["label"].tolist()
+    >>> components_sources(r, components_plan(r))["components_bars"]["label"].tolist()
     ['25%', '75%']
     """
     comp = result.components
     share = comp["share"].to_numpy(dtype=float)
-    names = np.array(spec["sources"], dtype=object)
-    color = np.where(names == "residual", theme.LIMIT, theme.POINT).astype(object)
+    names = np.array(plan["sources"], dtype=object)
+    color = np.where(names == "residual", palette.LIMIT, palette.POINT).astype(object)
     return {
         "components_bars": {
             "source": names,
@@ -404,7 +495,7 @@ def components_sources(result: VariationResult, spec: dict[str, Any]) -> dict[st
     }
 
 
-def components_texts(result: VariationResult, spec: dict[str, Any]) -> dict[str, str]:
+def components_texts(result: VariationResult, plan: dict[str, Any]) -> dict[str, str]:
     """Title of the components figure (names the estimation method of the result).
 
     Examples
@@ -431,27 +522,18 @@ def components_figure(result: VariationResult) -> LayoutDOM:
     >>> components_figure(VariationResult(pd.DataFrame(), pd.DataFrame(), comp)).name
     'components_layout'
     """
-    spec = components_spec(result)
-    data = components_sources(result, spec)
-    bars = theme.source("components_bars", data["components_bars"])
-    fig = theme.new_figure(
+    plan = components_plan(result)
+    data = components_sources(result, plan)
+    bars = parts.source("components_bars", data["components_bars"])
+    fig = parts.new_figure(
         "components",
-        components_texts(result, spec)["components"],
-        height=max(160, 60 + 36 * len(spec["sources"])),
-        y_range=list(reversed(spec["sources"])),
+        components_texts(result, plan)["components"],
+        height=max(160, 60 + 36 * len(plan["sources"])),
+        y_range=list(reversed(plan["sources"])),
         x_range=(0, 1.12),
     )
     rects = fig.hbar(y="source", right="share", height=0.6, source=bars, color="color")
-    fig.text(
-        x="share",
-        y="source",
-        text="label",
-        source=bars,
-        x_offset=4,
-        text_baseline="middle",
-        text_font_size="10pt",
-        text_color=theme.CENTER,
-    )
+    parts.write(fig, bars, x="share", y="source", text="label", x_offset=4, text_baseline="middle")
     fig.add_tools(
         HoverTool(
             renderers=[rects],
@@ -466,4 +548,4 @@ def components_figure(result: VariationResult) -> LayoutDOM:
     fig.xaxis.axis_label = "Share of total variance"
     fig.xaxis.formatter = NumeralTickFormatter(format="0%")
     fig.ygrid.grid_line_color = None
-    return column(fig, name="components_layout", tags=[spec])
+    return column(fig, name="components_layout", tags=[plan])

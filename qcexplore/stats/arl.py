@@ -20,14 +20,15 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
 from scipy import sparse, special
 from scipy.sparse import linalg as sparse_linalg
 
+from qcexplore.data.coding import is_real_number
 from qcexplore.errors import QCDataError
+from qcexplore.stats.results import ArlResult
 from qcexplore.stats.rules import evaluate_rows, resolve_rules
 
 KINDS = ("xbar_r", "xbar_s", "imr", "ewma", "cusum")
@@ -38,31 +39,12 @@ _ZONE_RULES = frozenset({"WE1", "WE2", "WE3", "WE4", "N1", "N2", "N5", "N6", "N7
 _GRID = 200
 
 
-@dataclass(frozen=True)
-class ArlResult:
-    """An average run length and how it was obtained.
-
-    Attributes
-    ----------
-    value : float
-        Average run length in plotted points.
-    method : str
-        ``"exact"``, ``"markov_chain"``, ``"brook_evans"`` or ``"monte_carlo"``.
-    se : float
-        Standard error of ``value``: 0.0 except for ``"monte_carlo"``.
-    """
-
-    value: float
-    method: str
-    se: float = 0.0
-
-
 def _bad(name: str, value: object, what: str) -> QCDataError:
     return QCDataError(f"{name}={value!r}: {what}")
 
 
 def _positive(name: str, value: object, *, upper: float = math.inf) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+    if not is_real_number(value, finite=False):
         raise _bad(name, value, "must be a number.")
     value = float(value)
     if not (0.0 < value <= upper) or math.isnan(value):
@@ -261,7 +243,7 @@ def arl_detail(
     """
     if kind not in KINDS:
         raise _bad("kind", kind, f"unknown chart kind; use one of {', '.join(KINDS)}.")
-    if isinstance(shift, bool) or not isinstance(shift, (int, float, np.integer, np.floating)):
+    if not is_real_number(shift, finite=False):
         raise _bad("shift", shift, "must be a number of process standard deviations.")
     if not math.isfinite(float(shift)):
         raise _bad("shift", shift, "must be finite.")
@@ -273,8 +255,7 @@ def arl_detail(
     delta = float(shift) * math.sqrt(int(n))
     if kind == "cusum":
         k_value = 0.5 if k is None else k
-        numeric = isinstance(k_value, (int, float, np.integer, np.floating))
-        if isinstance(k_value, bool) or not numeric or not 0.0 <= float(k_value) < math.inf:
+        if not is_real_number(k_value) or float(k_value) < 0.0:
             raise _bad("k", k, "the CUSUM allowance must be a non-negative number of sigma.")
         return _cusum(delta, float(k_value), _positive("h", 5.0 if h is None else h))
     if kind == "ewma":

@@ -9,25 +9,25 @@ normal, stable process; the result says so in ``warnings`` when the data disagre
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 from scipy import stats
 
-from qcexplore.data.validate import finite_array
+from qcexplore.data.coding import real_number
+from qcexplore.data.validate import finite_column, require_frame
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import CapabilityResult
+
+if TYPE_CHECKING:
+    from qcexplore.spec import Spec
 
 #: Fewer values than this make the indices too uncertain to quote without a warning.
 _SMALL_SAMPLE = 30
 #: Normality is doubted when the Anderson-Darling p value falls below this.
 _NORMALITY_ALPHA = 0.05
 _MIN_VALUES = 3
-
-CAUTION = (
-    "Capability indices support an investigation only: product disposition and net-content "
-    "compliance follow local weights-and-measures rules and the site's quality system."
-)
 
 
 def anderson_darling_normal(values: np.ndarray) -> tuple[float, float]:
@@ -68,34 +68,7 @@ def anderson_darling_normal(values: np.ndarray) -> tuple[float, float]:
     return float(a2), float(min(max(p, 0.0), 1.0))
 
 
-def _number(name: str, x: object) -> float | None:
-    """``x`` as a float (None stays None); anything that is not a number is a QCDataError."""
-    if x is None:
-        return None
-    if isinstance(x, bool) or not isinstance(x, (int, float, np.integer, np.floating)):
-        raise QCDataError(f"capability: {name}={x!r} is not a number; pass a number or None.")
-    return float(x)
-
-
-def _check_inputs(
-    values: np.ndarray,
-    lsl: float | None,
-    usl: float | None,
-    sigma_within: float | None,
-    confidence: float,
-) -> None:
-    if lsl is None and usl is None:
-        raise QCDataError(
-            "capability: no specification limit given; pass lsl=, usl= or both "
-            "(a minimum-fill rule has only lsl)."
-        )
-    for name, limit in (("lsl", lsl), ("usl", usl)):
-        if limit is not None and not math.isfinite(limit):
-            raise QCDataError(f"capability: {name}={limit!r} is not a finite number.")
-    if lsl is not None and usl is not None and lsl >= usl:
-        raise QCDataError(
-            f"capability: lsl={lsl} is not below usl={usl}; check the order of the limits."
-        )
+def _check_inputs(values: np.ndarray) -> None:
     if values.size < _MIN_VALUES:
         raise QCDataError(
             f"capability: {values.size} values given; at least {_MIN_VALUES} are needed "
@@ -106,12 +79,6 @@ def _check_inputs(
             "capability: all values are identical, so the spread is zero; check the "
             "measurement resolution or the value column."
         )
-    if sigma_within is not None and not (math.isfinite(sigma_within) and sigma_within > 0):
-        raise QCDataError(
-            f"capability: sigma_within={sigma_within!r} must be a positive finite number."
-        )
-    if not 0.0 < confidence < 1.0:
-        raise QCDataError(f"capability: confidence={confidence!r} must lie between 0 and 1.")
 
 
 def _index_rows(
@@ -145,11 +112,10 @@ def _histogram(
 
 
 def capability(
-    values: np.ndarray | pd.Series,
+    data: pd.DataFrame,
     *,
-    lsl: float | None = None,
-    usl: float | None = None,
-    target: float | None = None,
+    value: str,
+    spec: Spec,
     sigma_within: float | None = None,
     in_control: bool | None = None,
     confidence: float = 0.95,
@@ -158,9 +124,11 @@ def capability(
 
     Parameters
     ----------
-    values : individual measurements (not subgroup means), finite floats
-    lsl, usl : lower and upper specification limits; either may be absent
-    target : nominal value, kept in the result (does not change the indices)
+    data : one row per measurement
+    value : the individual measurements (not subgroup means), finite numbers
+    spec : the specification (``qcexplore.Spec``, checked when it was made): ``lsl`` and
+        ``usl``, either of which may be absent, and the ``target``, kept in the result
+        (it does not change the indices)
     sigma_within : short-term standard deviation (for instance R-bar/d2 from the control
         chart). Without it ``cp``/``cpk`` are omitted and a warning says so.
     in_control : whether the chart showed a stable process; ``False`` adds a warning
@@ -195,18 +163,20 @@ def capability(
 
     Examples
     --------
+    >>> from qcexplore.spec import Spec
     >>> rng = np.random.default_rng(1)
-    >>> r = capability(rng.normal(500.0, 2.0, 100), lsl=494.0, sigma_within=2.0)
+    >>> f = pd.DataFrame({"net_g": rng.normal(500.0, 2.0, 100)})
+    >>> r = capability(f, value="net_g", spec=Spec(lsl=494.0), sigma_within=2.0)
     >>> r.indices["index"].tolist()
     ['cpl', 'cpk', 'ppl', 'ppk']
     """
-    x = finite_array(values, "capability values")
-    lsl, usl, target = _number("lsl", lsl), _number("usl", usl), _number("target", target)
-    sigma_within = _number("sigma_within", sigma_within)
-    confidence = _number("confidence", confidence)
-    if confidence is None:
-        raise QCDataError("capability: confidence=None; give a level between 0 and 1, e.g. 0.95.")
-    _check_inputs(x, lsl, usl, sigma_within, confidence)
+    require_frame(data)
+    x = finite_column(data, value, "value")
+    _check_inputs(x)
+    lsl, usl, target = spec.lsl, spec.usl, spec.target
+    if sigma_within is not None:
+        sigma_within = real_number("sigma_within", sigma_within, lower=0, inclusive=False)
+    confidence = real_number("confidence", confidence, lower=0, upper=1, inclusive=False)
     n = x.size
     mean = float(x.mean())
     sd = float(x.std(ddof=1))
@@ -219,7 +189,7 @@ def capability(
             "the overall standard deviation."
         )
     else:
-        point.update(_index_rows("c", float(sigma_within), mean, lsl, usl))
+        point.update(_index_rows("c", sigma_within, mean, lsl, usl))
     point.update(_index_rows("p", sd, mean, lsl, usl))
 
     df = n - 1
@@ -265,7 +235,6 @@ def capability(
             f"Only {n} values: the indices are very uncertain (see the intervals); "
             f"{_SMALL_SAMPLE} or more are usual."
         )
-    warnings.append(CAUTION)
 
     histogram, curve = _histogram(x, mean, sd, lsl, usl)
     return CapabilityResult(
@@ -276,7 +245,7 @@ def capability(
         usl=usl,
         target=target,
         mean=mean,
-        sigma_within=float("nan") if sigma_within is None else float(sigma_within),
+        sigma_within=float("nan") if sigma_within is None else sigma_within,
         sigma_overall=sd,
         n=n,
         histogram=histogram,

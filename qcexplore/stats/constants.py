@@ -47,10 +47,6 @@ def d2(n: int) -> float:
     n : int
         Subgroup size, at least 2.
 
-    Returns
-    -------
-    float
-
     Notes
     -----
     Checked against the printed tables of Montgomery (Introduction to Statistical Quality
@@ -82,10 +78,6 @@ def d3(n: int) -> float:
     ----------
     n : int
         Subgroup size, at least 2.
-
-    Returns
-    -------
-    float
 
     Notes
     -----
@@ -126,10 +118,6 @@ def c4(n: float) -> float:
     ----------
     n : float
         Subgroup size, greater than 1.
-
-    Returns
-    -------
-    float
 
     Notes
     -----

@@ -12,48 +12,21 @@ p-value exceeds 0.25 (common practice).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 from scipy import stats
 
+from qcexplore.data.coding import is_real_number
 from qcexplore.data.validate import finite_column, require_columns
 from qcexplore.errors import QCDataError
-from qcexplore.stats.results import _Result
+from qcexplore.stats.results import GaugeResult
 from qcexplore.stats.subgroups import group_moments
 
-__all__ = ["GaugeResult", "gauge_study"]
+__all__ = ["gauge_study"]
 
 #: The interaction is pooled into repeatability when its p-value exceeds this (common practice).
 POOL_ABOVE = 0.25
-
-
-@dataclass(frozen=True, eq=False, repr=False)
-class GaugeResult(_Result):
-    """A crossed measurement-system study.
-
-    ``anova``: ``source, df, ss, ms, f, p, error_term``.
-    ``components``: ``source, variance, sd, share`` for ``part``, ``operator``,
-    ``part x operator`` (absent when pooled) and ``residual`` (repeatability).
-    ``summary``: ``source, variance, sd, pct_contribution, pct_study_variation,
-    pct_tolerance`` for repeatability, reproducibility, operator, part x operator,
-    gauge (repeatability + reproducibility), part and total.
-    """
-
-    anova: pd.DataFrame
-    components: pd.DataFrame
-    summary: pd.DataFrame
-    ndc: float
-    pooled: bool
-    parts: int
-    operators: int
-    repeats: int
-    tolerance: float | None = None
-    study_width: float = 6.0
-    notes: tuple[str, ...] = field(default_factory=tuple)
-    _tables = ("summary", "anova", "components")
-    _heading = "Measurement-system study"
 
 
 def _codes(frame: pd.DataFrame, name: str) -> tuple[np.ndarray, pd.Index]:
@@ -121,8 +94,7 @@ def gauge_study(
             f"value column {value!r} has the same value in every row: there is no variation "
             "to split; check the gauge resolution or the column."
         )
-    number = isinstance(tolerance, (int, float, np.integer, np.floating))
-    if tolerance is not None and (isinstance(tolerance, bool) or not number or not tolerance > 0):
+    if tolerance is not None and not (is_real_number(tolerance) and tolerance > 0):
         raise QCDataError(f"tolerance={tolerance!r}: give the width of the specification (> 0).")
     p_codes, p_levels = _codes(frame, part)
     o_codes, o_levels = _codes(frame, operator)

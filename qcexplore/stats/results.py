@@ -1,21 +1,39 @@
-"""Frozen result objects: the shapes that ``stats`` hands to findings, draw, app and report.
+"""Every result object of qcexplore: the shapes that ``stats`` hands to findings, draw and views.
 
-Every result holds tidy pandas DataFrames with lower_snake_case columns, prints a
-compact summary, renders as a small HTML table in a notebook and flattens to one
-tidy table with ``to_frame()``. The frames are never modified after construction;
-treat them as read-only.
+Every table result holds tidy pandas DataFrames with lower_snake_case columns, prints a
+compact summary, renders as a small HTML table in a notebook and flattens to one tidy
+table with ``to_frame()``.
+
+Results are deeply immutable. The dataclasses are frozen, their other members are
+numbers, strings, tuples or frozen results, and a table result keeps its own copy of
+every table it is given and hands out a new copy on each access: a caller who edits
+``chart.limits`` edits that copy only, never the cached result nor an answer computed
+from it later (a capability, a finding). Under pandas' copy-on-write these copies are
+lazy: no data are copied until somebody writes, so reading a large ``points`` table
+costs nothing, and the arrays behind them (``to_numpy()``) are read-only views.
 """
 
 from __future__ import annotations
 
 import html
-from dataclasses import dataclass, field, fields
+import math
+from collections.abc import Iterator, Mapping
+from dataclasses import asdict, dataclass, field, fields
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 _HTML_ROWS = 12
+
+
+def _detached(value: Any) -> Any:
+    """A copy of a table (lazy under copy-on-write) or of a dict of tables; else the value."""
+    if isinstance(value, pd.DataFrame):
+        return value.copy(deep=False)
+    if isinstance(value, dict):
+        return {key: _detached(item) for key, item in value.items()}
+    return value
 
 
 def _frame_html(name: str, frame: pd.DataFrame) -> str:
@@ -27,12 +45,21 @@ def _frame_html(name: str, frame: pd.DataFrame) -> str:
 
 
 class _Result:
-    """Shared behaviour of result dataclasses: ``to_frame``, ``_repr_html_``, ``__repr__``."""
+    """Shared behaviour of table results: own copies of their tables, ``to_frame``, summaries."""
 
     #: Names of the DataFrame fields stacked by ``to_frame`` (first is the main one).
     _tables: tuple[str, ...] = ()
     #: One-line heading used by the notebook and text summaries.
     _heading: str = ""
+
+    def __post_init__(self) -> None:
+        # The caller that built the result keeps its frames; the result keeps its own.
+        for f in fields(self):  # type: ignore[arg-type]
+            object.__setattr__(self, f.name, _detached(object.__getattribute__(self, f.name)))
+
+    def __getattribute__(self, name: str) -> Any:
+        value = object.__getattribute__(self, name)
+        return value if name.startswith("_") else _detached(value)
 
     def _scalars(self) -> dict[str, Any]:
         out = {}
@@ -93,7 +120,9 @@ class ChartResult(_Result):
 
     ``points``: ``subgroup, stratum, stat, center, lcl, ucl, n, signal, rules`` plus
     ``se`` (the point's standard error: the zone width), ``excluded`` (left out of the
-    limit estimate), ``start`` (the subgroup's first time, when there is a time column);
+    limit estimate), ``beyond`` (the point lies outside its own limits; for CUSUM either sum
+    beyond its decision interval: the one definition of "beyond the limits"), ``start``
+    (the subgroup's first time, when there is a time column);
     attribute charts add ``count`` (``n`` is then the number inspected); CUSUM adds
     ``stat_lower`` (-C-) and ``change_start`` (where a signalling run began).
     ``limits``: ``stratum, center, lcl, ucl, sigma, method`` (one row per stratum
@@ -123,7 +152,11 @@ class ChartResult(_Result):
 
 @dataclass(frozen=True, eq=False, repr=False)
 class VariationResult(_Result):
-    """The variance taken apart into its sources, with the error term each test used."""
+    """The variance taken apart into its sources, with the error term each test used.
+
+    ``comparisons`` rows carry ``signal`` (analysis of means: the level's mean lies outside
+    its decision limits; False on the other tests' rows), so no reader decides it again.
+    """
 
     structure: pd.DataFrame
     anova: pd.DataFrame
@@ -137,17 +170,78 @@ class VariationResult(_Result):
     _tables = ("structure", "anova", "components", "comparisons", "spread", "offsets")
     _heading = "Sources of variation"
 
+    def relation(self, factor: str) -> str:
+        """``"within_subgroup"`` or ``"between_subgroups"`` for a factor, ``""`` if unknown."""
+        rows = self._structure_rows(factor, confounded=False)
+        return str(rows["relation"].iloc[0]) if len(rows) else ""
+
+    def confounded_with(self, factor: str) -> tuple[str, ...]:
+        """The columns that ``factor`` cannot be told apart from, in the structure's order."""
+        return tuple(str(w) for w in self._structure_rows(factor, confounded=True)["with_"])
+
+    def _structure_rows(self, factor: str, *, confounded: bool) -> pd.DataFrame:
+        table = self.structure
+        is_confounded = table["relation"] == "confounded"
+        return table[(table["factor"] == factor) & (is_confounded == confounded)]
+
+
+@dataclass(frozen=True)
+class AR1Fit(Mapping):
+    """A lag-1 autoregressive fit with a mean, and the Wald test of phi = 0.
+
+    ``phi``, ``se`` (its standard error), ``sigma2`` (innovation variance) and ``loglik``
+    are the published fit; ``mean`` is the process mean and ``p`` the two-sided Wald
+    test of phi = 0, 2 P(Z > |phi| / se) (NaN when the likelihood has no curvature at
+    its maximum, so se is not finite). It reads as the mapping of the published four,
+    as ``TimeResult.ar1`` always has: ``fit["phi"]``, ``dict(fit)``.
+
+    Examples
+    --------
+    >>> fit = AR1Fit(phi=0.5, se=0.1, sigma2=1.0, loglik=-10.0, mean=0.0, p=5.7e-7)
+    >>> fit["phi"], sorted(fit)
+    (0.5, ['loglik', 'phi', 'se', 'sigma2'])
+    """
+
+    phi: float
+    se: float
+    sigma2: float
+    loglik: float
+    mean: float
+    p: float
+
+    def __getitem__(self, key: str) -> float:
+        if key not in _AR1_KEYS:
+            raise KeyError(key)
+        return getattr(self, key)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(_AR1_KEYS)
+
+    def __len__(self) -> int:
+        return len(_AR1_KEYS)
+
+
+#: The members of the AR(1) fit that API.md publishes as ``TimeResult.ar1``.
+_AR1_KEYS = ("phi", "se", "sigma2", "loglik")
+
 
 @dataclass(frozen=True, eq=False, repr=False)
 class TimeResult(_Result):
-    """Time structure of the plotted series: autocorrelation and step changes."""
+    """Time structure of the plotted series: autocorrelation, an AR(1) fit, step changes.
+
+    ``acf``: ``lag, acf, pacf, lower, upper``; ``ljung_box``: ``lag, q, p``; ``ar1``: the
+    AR(1) fit and its test; ``shifts``: ``subgroup, position, time, before, after, p``;
+    ``series``: ``subgroup, start, mean, n, segment_mean`` (the fitted step function);
+    ``residual_chart`` and ``moving_center_chart``: the charts to read when the series is
+    autocorrelated (``None`` when it is not).
+    """
 
     acf: pd.DataFrame
     ljung_box: pd.DataFrame
-    ar1: dict[str, float]
+    ar1: AR1Fit
     shifts: pd.DataFrame
-    series: pd.DataFrame = field(default_factory=pd.DataFrame)
-    effective_n: float = float("nan")
+    series: pd.DataFrame
+    effective_n: float
     residual_chart: ChartResult | None = None
     moving_center_chart: ChartResult | None = None
     notes: tuple[str, ...] = ()
@@ -174,3 +268,198 @@ class CapabilityResult(_Result):
     warnings: tuple[str, ...] = ()
     _tables = ("indices", "ppm", "normality")
     _heading = "Capability"
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class GaugeResult(_Result):
+    """A crossed measurement-system study.
+
+    ``anova``: ``source, df, ss, ms, f, p, error_term``.
+    ``components``: ``source, variance, sd, share`` for ``part``, ``operator``,
+    ``part x operator`` (absent when pooled) and ``residual`` (repeatability).
+    ``summary``: ``source, variance, sd, pct_contribution, pct_study_variation,
+    pct_tolerance`` for repeatability, reproducibility, operator, part x operator,
+    gauge (repeatability + reproducibility), part and total.
+    """
+
+    anova: pd.DataFrame
+    components: pd.DataFrame
+    summary: pd.DataFrame
+    ndc: float
+    pooled: bool
+    parts: int
+    operators: int
+    repeats: int
+    tolerance: float | None = None
+    study_width: float = 6.0
+    notes: tuple[str, ...] = field(default_factory=tuple)
+    _tables = ("summary", "anova", "components")
+    _heading = "Measurement-system study"
+
+
+@dataclass(frozen=True)
+class ArlResult:
+    """An average run length and how it was obtained.
+
+    Attributes
+    ----------
+    value : float
+        Average run length in plotted points.
+    method : str
+        ``"exact"``, ``"markov_chain"``, ``"brook_evans"`` or ``"monte_carlo"``.
+    se : float
+        Standard error of ``value``: 0.0 except for ``"monte_carlo"``.
+    """
+
+    value: float
+    method: str
+    se: float = 0.0
+
+
+@dataclass(frozen=True)
+class Onset:
+    """The fitted onset of a change in one level's contrast with the other levels.
+
+    ``p`` tests the change model against a constant difference (F test, Bonferroni over
+    the onsets searched); NaN when the contrast is too short to test or fits exactly.
+    """
+
+    factor: str
+    level: str  # the level's label as text
+    model: str  # "step" or "ramp"
+    position: int  # index into the contrast series of the first point after the onset
+    start: object  # the subgroup start (time) at the onset, or the subgroup label
+    before: float  # mean contrast before the onset
+    change: float  # step size (step) or slope per unit of `scale` (ramp)
+    scale: str  # "day" when the subgroups have times, else "subgroup"
+    rss: float
+    p: float
+
+
+@dataclass(frozen=True)
+class BeyondLimits:
+    """How many plotted points lie beyond a chart's limits, against a stable process.
+
+    ``rate`` is 2 P(Z > L), the share of a stable normal process beyond limits at L
+    sigma; ``p`` the one-sided binomial test P(X >= count) at that rate (NaN without
+    points).
+    """
+
+    count: int
+    points: int
+    rate: float
+    p: float
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class Evidence(_Result):
+    """Everything that the findings cite: the results and the tests computed on them.
+
+    ``chart`` is the default control chart, ``variation`` the sources of variation
+    (``None`` without factors), ``time`` the time structure (``None`` when the series is
+    too short or constant), ``capability`` the capability (``None`` without a
+    specification). ``beyond`` counts the default chart's points beyond its limits,
+    ``beyond_adjusted`` those of the same chart with the measured_by offsets removed
+    (``None`` without measured_by factors).
+
+    ``tests`` is the one family of gate tests (``test, factor, position, p,
+    p_adjusted``, Holm's method over all rows; ``position`` names a step in
+    ``time.shifts``); ``levels`` the level tests of each factor (``factor, level,
+    estimate, se, p, p_adjusted``, Holm among the factor's levels); ``level_spread``
+    each level's within-subgroup sd and that of the other levels (``factor, level, sd,
+    others_sd``); ``onsets`` the onset of each level of the within-subgroup process
+    factors. ``value``, ``units``, ``subgroup`` (``None`` for individual values),
+    ``factors`` and ``measured_by`` are the roles the wording needs.
+    """
+
+    chart: ChartResult
+    variation: VariationResult | None
+    time: TimeResult | None
+    capability: CapabilityResult | None
+    beyond: BeyondLimits
+    beyond_adjusted: BeyondLimits | None
+    tests: pd.DataFrame
+    levels: pd.DataFrame
+    level_spread: pd.DataFrame
+    onsets: tuple[Onset, ...]
+    value: str
+    units: str | None
+    subgroup: str | None
+    factors: tuple[str, ...]
+    measured_by: tuple[str, ...]
+    _tables = ("tests", "levels", "level_spread")
+
+    @property
+    def _heading(self) -> str:  # type: ignore[override]
+        return f"Evidence on {self.value}"
+
+    def onset(self, factor: str, level: str) -> Onset | None:
+        """The onset of one level's difference from the others, if it was fitted."""
+        return next((o for o in self.onsets if o.factor == factor and o.level == level), None)
+
+
+def p_text(p: float) -> str:
+    """A p-value for people: two significant digits, and a floor where doubles end.
+
+    Examples
+    --------
+    >>> p_text(0.01234), p_text(0.0)
+    ('0.012', '< 1e-300')
+    """
+    return "< 1e-300" if p < 1e-300 else f"{p:.2g}"
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One thing the data say, with its evidence.
+
+    ``kind``, ``title``, ``detail``, ``factor``, ``level``, ``effect``, ``p`` and
+    ``share`` are the public contract (API.md). ``effect`` is in the value's units
+    (for autocorrelation: phi; for out-of-control points: the share of points beyond
+    the limits; for stratified subgroups: the relative inflation of sigma), ``se`` its
+    standard error, ``effect_sd`` the effect in within-subgroup sigma, ``p`` the raw
+    p-value of the test behind the finding, ``p_adjusted`` the Holm-adjusted p-value
+    the report uses, ``share`` the factor's share of the total variance, ``strength``
+    the ranking key, ``start`` the time (or subgroup) a change appears to start, and
+    ``caveat`` what the design cannot tell.
+
+    Examples
+    --------
+    >>> f = Finding("confounded", "Crew and scale cannot be told apart", "...",
+    ...             factor="crew")
+    >>> f.kind, f.factor, f.p_adjusted != f.p_adjusted  # a note: no test, NaN p
+    ('confounded', 'crew', True)
+    """
+
+    kind: str
+    title: str
+    detail: str
+    factor: str | None = None
+    level: str | None = None
+    effect: float = math.nan
+    p: float = math.nan
+    share: float = math.nan
+    effect_sd: float = math.nan
+    se: float = math.nan
+    p_adjusted: float = math.nan
+    strength: float = 0.0
+    start: Any = None
+    caveat: str = ""
+
+    def to_dict(self) -> dict[str, Any]:
+        """The fields as a plain dict (one row of ``findings.findings_frame``)."""
+        return asdict(self)
+
+    def _repr_html_(self) -> str:
+        evidence = (
+            ""
+            if math.isnan(self.p_adjusted)
+            else f" <small>(adjusted p = {p_text(self.p_adjusted)})</small>"
+        )
+        caveat = f"<p><em>{html.escape(self.caveat)}</em></p>" if self.caveat else ""
+        return (
+            "<div class='qcexplore-finding'>"
+            f"<p><small>{html.escape(self.kind.replace('_', ' '))}</small><br>"
+            f"<strong>{html.escape(self.title)}</strong>{evidence}</p>"
+            f"<p>{html.escape(self.detail)}</p>{caveat}</div>"
+        )

@@ -13,6 +13,56 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from qcexplore.data.coding import category_codes
+from qcexplore.data.validate import require_columns, row_list
+from qcexplore.errors import QCDataError
+
+
+def group_codes(frame: pd.DataFrame, column: str, role: str) -> tuple[np.ndarray, pd.Index]:
+    """Group codes ``0 .. k - 1`` and the ``k`` labels of a column: the input of every group
+    statistic.
+
+    Coded by :func:`qcexplore.data.coding.category_codes` (a categorical keeps its level
+    order, so subgroups stay in time order; other columns in order of first appearance);
+    levels that no row uses are left out, so every group has rows. A missing label is
+    refused with a QCDataError naming ``role``, the column and the first rows.
+
+    Examples
+    --------
+    >>> f = pd.DataFrame({"crew": pd.Categorical(["b", "b"], categories=["a", "b"])})
+    >>> codes, levels = group_codes(f, "crew", "factor")
+    >>> codes.tolist(), list(levels)
+    ([0, 0], ['b'])
+    """
+    require_columns(frame, [column], role)
+    codes, levels = category_codes(frame[column])
+    missing = np.flatnonzero(codes < 0)
+    if missing.size:
+        raise QCDataError(
+            f"{role}={column!r}: missing labels in {row_list(missing)}; fill or drop those "
+            "rows first."
+        )
+    present = np.bincount(codes, minlength=len(levels)) > 0
+    if present.all():
+        return codes, levels
+    return (np.cumsum(present) - 1)[codes], levels[present]
+
+
+def constant_within(codes: np.ndarray, groups: np.ndarray, n_groups: int) -> np.ndarray:
+    """Per group: the code that all its rows share, or -1 where the rows differ.
+
+    Examples
+    --------
+    >>> constant_within(np.array([3, 3, 1, 2]), np.array([0, 0, 1, 1]), 2).tolist()
+    [3, -1]
+    """
+    first = np.full(n_groups, -1, dtype=np.intp)
+    first[groups[::-1]] = codes[::-1]
+    varies = np.zeros(n_groups, dtype=bool)
+    varies[groups[codes != first[groups]]] = True
+    first[varies] = -1
+    return first
+
 
 @dataclass(frozen=True, eq=False)
 class GroupMoments:
@@ -102,9 +152,9 @@ def subgroup_table(
 ) -> pd.DataFrame:
     """One row per subgroup: ``subgroup, n, mean, sd, range, start`` and constant factors.
 
-    ``frame[subgroup]`` must be a Categorical whose category order is the time
-    order; empty categories are dropped. A factor appears in the table only if it
-    takes a single value within every subgroup.
+    The subgroups are coded by :func:`group_codes` (a Categorical's category order is the
+    time order; empty categories are dropped). A factor appears in the table only if it
+    takes a single value (not a missing one) within every subgroup.
 
     Checked against pandas ``groupby`` (count, mean, std, max - min) in
     tests/test_subgroups.py and tests/test_study.py.
@@ -117,13 +167,7 @@ def subgroup_table(
     0        a  2   1.5
     1        b  1   4.0
     """
-    labels = frame[subgroup]
-    codes = labels.cat.codes.to_numpy()
-    categories = labels.cat.categories
-    present = np.bincount(codes, minlength=len(categories)) > 0
-    if not present.all():  # cheaper than remove_unused_categories, which sorts
-        codes = (np.cumsum(present) - 1)[codes]
-        categories = categories[present]
+    codes, categories = group_codes(frame, subgroup, "subgroup")
     k = len(categories)
     m = group_moments(frame[value].to_numpy(dtype=np.float64), codes, k)
     table = pd.DataFrame(
@@ -144,11 +188,8 @@ def subgroup_table(
     for factor in factors:
         if factor == subgroup:
             continue
-        level_codes = frame[factor].cat.codes.to_numpy().astype(np.int64)
-        first = np.full(k, -1, dtype=np.int64)
-        first[codes[::-1]] = level_codes[::-1]
-        if np.all(level_codes == first[codes]):
-            table[factor] = pd.Categorical.from_codes(
-                first, categories=frame[factor].cat.categories
-            )
+        level_codes, levels = category_codes(frame[factor])
+        shared = constant_within(level_codes, codes, k)
+        if np.all(shared >= 0):
+            table[factor] = pd.Categorical.from_codes(shared, categories=levels)
     return table

@@ -12,11 +12,13 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, signal, stats
 
-from qcexplore.data.validate import finite_array
+from qcexplore.data.coding import real_number
+from qcexplore.data.validate import finite_column, require_columns, require_frame
 from qcexplore.errors import QCDataError
 from qcexplore.stats.charts import control_chart
-from qcexplore.stats.results import ChartResult, TimeResult
+from qcexplore.stats.results import AR1Fit, ChartResult, TimeResult
 from qcexplore.stats.rules import evaluate_rules
+from qcexplore.stats.subgroups import subgroup_table
 
 _MIN_POINTS = 8
 #: Segments shorter than this are not tested for a further change point.
@@ -29,29 +31,25 @@ _EWMA_LAMBDAS = np.round(np.arange(0.05, 1.0001, 0.01), 2)
 _EWMA_L = 3.0
 
 
-def _validate(series: pd.DataFrame) -> np.ndarray:
-    if not isinstance(series, pd.DataFrame):
+def _series(data: pd.DataFrame, value: str, subgroup: str, time: str | None) -> pd.DataFrame:
+    """The plotted series: ``subgroup, start, mean, n``, one row per subgroup in time order."""
+    require_frame(data)
+    finite_column(data, value, "value")
+    if time is not None:
+        require_columns(data, [time], "time")
+    series = subgroup_table(data, value=value, subgroup=subgroup, time=time)
+    series = series[["subgroup", "start", "mean", "n"]]
+    if len(series) < _MIN_POINTS:
         raise QCDataError(
-            f"time_structure: series is a {type(series).__name__}; pass a DataFrame with "
-            "columns subgroup, start, mean, n (for instance Study.series())."
+            f"time_structure: {len(series)} points in the series; at least {_MIN_POINTS} "
+            "subgroups (or individual values) in time order are needed."
         )
-    missing = [c for c in ("subgroup", "start", "mean", "n") if c not in series.columns]
-    if missing:
+    if np.ptp(series["mean"].to_numpy()) == 0.0:
         raise QCDataError(
-            f"time_structure: series lacks column(s) {missing}; pass the subgroup table "
-            "(subgroup, start, mean, n) in time order."
+            f"time_structure: the subgroup means of {value!r} are constant; there is no "
+            "variation to analyse."
         )
-    x = finite_array(series["mean"], "Column 'mean' of the time_structure series")
-    if x.size < _MIN_POINTS:
-        raise QCDataError(
-            f"time_structure: {x.size} points in the series; at least {_MIN_POINTS} subgroups "
-            "(or individual values) in time order are needed."
-        )
-    if np.ptp(x) == 0.0:
-        raise QCDataError(
-            "time_structure: column 'mean' is constant; there is no variation to analyse."
-        )
-    return x
+    return series
 
 
 def autocorrelation(x: np.ndarray, max_lag: int) -> tuple[np.ndarray, np.ndarray]:
@@ -115,15 +113,14 @@ def _ar1_profile(x: np.ndarray, phi: np.ndarray) -> tuple[np.ndarray, np.ndarray
     return mu, sigma2, loglik
 
 
-def ar1_fit(x: np.ndarray) -> dict[str, float]:
+def ar1_fit(x: np.ndarray) -> AR1Fit:
     """Lag-1 autoregressive model with a mean, by exact Gaussian maximum likelihood.
 
     The mean and the innovation variance are profiled out in closed form, the profile
     log-likelihood is maximised over phi in (-1, 1) (grid, then bounded Brent). The
     standard error of phi is the inverse square root of the curvature of the profile
     log-likelihood, which equals the observed-information (Hessian) standard error.
-
-    Returns ``phi, se, sigma2, loglik`` (plus ``mean``).
+    ``p`` is the Wald test of phi = 0, 2 P(Z > |phi| / se).
 
     Checked against R's ``arima(lh, order = c(1, 0, 0))`` documentation example
     (phi 0.5739, s.e. 0.1161, sigma^2 0.1975, log-likelihood -29.38) and statsmodels
@@ -132,8 +129,8 @@ def ar1_fit(x: np.ndarray) -> dict[str, float]:
     Examples
     --------
     >>> fit = ar1_fit(np.array([2.0, 2.5, 2.2, 2.9, 3.1, 2.7, 2.4, 2.8, 3.3, 3.0]))
-    >>> sorted(fit)
-    ['loglik', 'mean', 'phi', 'se', 'sigma2']
+    >>> -1.0 < fit.phi < 1.0, 0.0 <= fit.p <= 1.0
+    (True, True)
     """
     # Centred so the likelihood keeps its precision for data far from zero.
     shift = float(x.mean())
@@ -153,7 +150,8 @@ def ar1_fit(x: np.ndarray) -> dict[str, float]:
     around = _ar1_profile(x, np.array([phi - h, phi, phi + h]))[2]
     curvature = -(around[0] - 2.0 * around[1] + around[2]) / h**2
     se = 1.0 / math.sqrt(curvature) if curvature > 0 else float("nan")
-    return {"phi": phi, "se": se, "sigma2": sigma2, "loglik": loglik, "mean": mu + shift}
+    p = float(2.0 * stats.norm.sf(abs(phi) / se)) if se > 0 else float("nan")
+    return AR1Fit(phi=phi, se=se, sigma2=sigma2, loglik=loglik, mean=mu + shift, p=p)
 
 
 def ar1_residuals(x: np.ndarray, phi: float, mean: float) -> np.ndarray:
@@ -292,14 +290,6 @@ def change_points(x: np.ndarray, *, alpha: float = 0.05) -> tuple[list[tuple[int
     return found, sd
 
 
-def _subgroup_labels(series: pd.DataFrame) -> pd.Categorical:
-    labels = series["subgroup"]
-    if isinstance(labels.dtype, pd.CategoricalDtype):
-        return pd.Categorical(labels).remove_unused_categories()
-    values = labels.to_numpy()
-    return pd.Categorical(values, categories=pd.unique(values), ordered=True)
-
-
 def _moving_center_chart(series: pd.DataFrame, x: np.ndarray, has_time: bool) -> ChartResult:
     """EWMA moving centre line for an autocorrelated series (kind ``"ewma_center"``).
 
@@ -322,7 +312,7 @@ def _moving_center_chart(series: pd.DataFrame, x: np.ndarray, has_time: bool) ->
     flag, fired = evaluate_rules(x, forecast, np.full(x.size, sigma_e), ("N1",))
     points = pd.DataFrame(
         {
-            "subgroup": _subgroup_labels(series),
+            "subgroup": series["subgroup"].array,
             "stratum": pd.Categorical([None] * x.size),
             "stat": x,
             "center": forecast,
@@ -368,7 +358,7 @@ def _moving_center_chart(series: pd.DataFrame, x: np.ndarray, has_time: bool) ->
 
 
 def _residual_chart(series: pd.DataFrame, residuals: np.ndarray, has_time: bool) -> ChartResult:
-    frame = pd.DataFrame({"subgroup": _subgroup_labels(series), "residual": residuals})
+    frame = pd.DataFrame({"subgroup": series["subgroup"].array, "residual": residuals})
     if has_time:
         frame["start"] = series["start"].to_numpy()
     return control_chart(
@@ -381,23 +371,27 @@ def _residual_chart(series: pd.DataFrame, residuals: np.ndarray, has_time: bool)
 
 
 def time_structure(
-    series: pd.DataFrame,
+    data: pd.DataFrame,
     *,
+    value: str,
+    subgroup: str,
+    time: str | None = None,
     max_lag: int | None = None,
     alpha: float = 0.05,
-    seed: int = 0,
 ) -> TimeResult:
-    """Autocorrelation, a lag-1 autoregressive fit and step changes of a series in time order.
+    """Autocorrelation, a lag-1 autoregressive fit and step changes of the subgroup means.
 
     Parameters
     ----------
-    series : DataFrame with columns ``subgroup, start, mean, n`` in time order (subgroup
-        means, or single values when ``n == 1``); ``start`` may be NaT throughout.
+    data : one row per measurement, in time order
+    value : the measured values; the series is their mean per subgroup (the single values
+        when every subgroup holds one)
+    subgroup : the rational subgroup of each row, ordered in time (a Categorical's category
+        order, or else the order of first appearance)
+    time : time column; each point's ``start`` is the first time of its rows
     max_lag : largest lag of the ACF/PACF and Ljung-Box tables; default
         ``min(10 log10 N, N/2 - 1)`` (common practice).
     alpha : level of the bands, of the autocorrelation decision and of the step tests.
-    seed : accepted for a stable interface; every method used here is deterministic and
-        draws no random numbers.
 
     Returns
     -------
@@ -405,13 +399,14 @@ def time_structure(
         ``acf`` (``lag, acf, pacf, lower, upper``; lags from 1; the band is the white-noise
         band +- z_{1-alpha/2} / sqrt(N), +-1.96/sqrt(N) at alpha = 0.05, common practice,
         the same for ACF and PACF), ``ljung_box`` (``lag, q, p`` at every lag),
-        ``ar1`` (``phi, se, sigma2, loglik``: exact Gaussian likelihood, mean estimated),
+        ``ar1`` (``phi, se, sigma2, loglik``: exact Gaussian likelihood, mean estimated;
+        ``p`` its Wald test of phi = 0),
         ``shifts`` (``subgroup, position, time, before, after, p``: ``subgroup``/
         ``position`` (0-based) are the first point after the change, ``before``/``after``
         the means of the adjacent segments, ``p`` the multiplicity-adjusted p value),
-        ``series`` (the input with ``segment_mean``, the fitted step function),
-        ``effective_n`` = N (1 - phi) / (1 + phi), the number of independent points
-        carrying the same information about the mean as N points of an AR(1) series
+        ``series`` (``subgroup, start, mean, n`` and ``segment_mean``, the fitted step
+        function), ``effective_n`` = N (1 - phi) / (1 + phi), the number of independent
+        points carrying the same information about the mean as N points of an AR(1) series
         (larger than N when phi < 0). When the AR(1) phi differs from 0 (Wald test at
         ``alpha``), ``residual_chart`` (individuals chart of the AR(1) innovations) and
         ``moving_center_chart`` (EWMA moving centre line, kind ``"ewma_center"``).
@@ -423,16 +418,15 @@ def time_structure(
     Examples
     --------
     >>> rng = np.random.default_rng(0)
-    >>> s = pd.DataFrame({"subgroup": range(60), "start": pd.NaT,
-    ...                   "mean": np.r_[rng.normal(0, 1, 30), rng.normal(3, 1, 30)], "n": 5})
-    >>> time_structure(s).shifts["position"].tolist()
+    >>> s = pd.DataFrame({"hour": np.repeat(np.arange(60), 2),
+    ...                   "w": np.r_[rng.normal(0, 1, 60), rng.normal(3, 1, 60)]})
+    >>> time_structure(s, value="w", subgroup="hour").shifts["position"].tolist()
     [30]
     """
-    del seed  # deterministic methods only; see the docstring
-    x = _validate(series)
+    series = _series(data, value, subgroup, time)
+    x = series["mean"].to_numpy()
     n = x.size
-    if not isinstance(alpha, (int, float, np.integer, np.floating)) or not 0.0 < alpha < 1.0:
-        raise QCDataError(f"time_structure: alpha={alpha!r} must lie between 0 and 1.")
+    alpha = real_number("alpha", alpha, lower=0, upper=1, inclusive=False)
     top = max(1, n // 2 - 1)
     if max_lag is None:
         max_lag = max(1, min(int(10 * math.log10(n)), top))
@@ -455,16 +449,16 @@ def time_structure(
     lb = pd.DataFrame({"lag": lags, "q": q, "p": q_p})
 
     fit = ar1_fit(x)
-    phi = fit["phi"]
+    phi = fit.phi
     effective_n = n * (1.0 - phi) / (1.0 + phi)
-    z_phi = abs(phi) / fit["se"] if fit["se"] > 0 else math.inf
-    autocorrelated = bool(z_phi > stats.norm.ppf(1.0 - alpha / 2.0))
+    # A likelihood without curvature at its maximum (NaN p) has phi at the edge of (-1, 1).
+    autocorrelated = not fit.p >= alpha
 
     found, long_run_sd = change_points(x, alpha=alpha)
     cuts = np.array([0, *[pos for pos, _ in found], n])
     seg_means = np.add.reduceat(x, cuts[:-1]) / np.diff(cuts)
-    labels = _subgroup_labels(series)
-    starts = series["start"].reset_index(drop=True)
+    labels = series["subgroup"].array
+    starts = series["start"]
     shifts = pd.DataFrame(
         {
             "subgroup": pd.Categorical(
@@ -477,14 +471,12 @@ def time_structure(
             "p": np.array([p for _, p in found], dtype=np.float64),
         }
     )
-    out_series = series.reset_index(drop=True).assign(
-        segment_mean=np.repeat(seg_means, np.diff(cuts))
-    )
+    out_series = series.assign(segment_mean=np.repeat(seg_means, np.diff(cuts)))
 
     has_time = bool(starts.notna().any())
     notes = [
         f"ACF/PACF band: +-{stats.norm.ppf(1 - alpha / 2):.2f}/sqrt(N) (white-noise band).",
-        f"AR(1): phi = {phi:.3f} (se {fit['se']:.3f}); effective number of independent "
+        f"AR(1): phi = {phi:.3f} (se {fit.se:.3f}); effective number of independent "
         f"points N(1-phi)/(1+phi) = {effective_n:.1f} of {n}.",
         f"Step test: CUSUM with long-run sd {long_run_sd:.4g}, Bonferroni within each round "
         f"of binary segmentation, alpha = {alpha}.",
@@ -497,12 +489,12 @@ def time_structure(
             + ": limits that assume independent points mislead; read the residual chart "
             "and the moving-centre chart as well."
         )
-        residual_chart = _residual_chart(series, ar1_residuals(x, phi, fit["mean"]), has_time)
-        moving_center_chart = _moving_center_chart(series.reset_index(drop=True), x, has_time)
+        residual_chart = _residual_chart(series, ar1_residuals(x, phi, fit.mean), has_time)
+        moving_center_chart = _moving_center_chart(series, x, has_time)
     return TimeResult(
         acf=acf,
         ljung_box=lb,
-        ar1={k: fit[k] for k in ("phi", "se", "sigma2", "loglik")},
+        ar1=fit,
         shifts=shifts,
         series=out_series,
         effective_n=float(effective_n),

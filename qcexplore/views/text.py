@@ -1,4 +1,4 @@
-"""Plain HTML pieces shared by the explorer and the report: tables, notes, findings.
+"""Plain HTML pieces of the views, shown by the explorer and the report: tables, notes, findings.
 
 Every piece of text that comes from the data or the user is escaped here.
 """
@@ -11,11 +11,16 @@ from typing import Any
 
 import pandas as pd
 
-CAUTION = (
-    "Findings support an investigation; they do not decide product disposition. "
-    "Net-content compliance is judged by the local weights-and-measures rules and the "
-    "site's quality system."
-)
+
+def plural(count: int, word: str, words: str | None = None) -> str:
+    """``count`` and the word in the right number.
+
+    Examples
+    --------
+    >>> plural(1, "finding"), plural(3, "finding"), plural(2, "index", "indices")
+    ('1 finding', '3 findings', '2 indices')
+    """
+    return f"{count} {word if count == 1 else (words or word + 's')}"
 
 
 def _joined(cell: Any) -> Any:
@@ -68,12 +73,12 @@ def notes_html(notes: Iterable[Any]) -> str:
     return f"<ul>{items}</ul>" if items else ""
 
 
-def findings_html(found: Iterable[Any]) -> str:
+def findings_html(found: Iterable[Any], caution: str) -> str:
     """The findings as a numbered list of titles and details, then the caution (escaped).
 
     Examples
     --------
-    >>> "support an investigation" in findings_html([])
+    >>> "take care" in findings_html([], "take care")
     True
     """
     items = "".join(
@@ -81,7 +86,7 @@ def findings_html(found: Iterable[Any]) -> str:
         for f in found
     )
     body = f"<ol class='qcx-findings'>{items}</ol>" if items else "<p>No findings.</p>"
-    return body + f"<p class='qcx-caution'><i>{html.escape(CAUTION)}</i></p>"
+    return body + f"<p class='qcx-caution'><i>{html.escape(caution)}</i></p>"
 
 
 def log_html(exclusions: Iterable[Any], notes: Iterable[Any]) -> str:

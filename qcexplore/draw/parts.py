@@ -1,23 +1,25 @@
-"""Our visual language: colours, sizes and the few helpers every figure shares.
+"""The bokeh pieces every figure shares: figures, sources, views, step lines, titles.
 
-Quiet and legible on a projector: light background, small filled circles joined
-by a thin grey line, a solid centre line, dashed limits in a muted colour and
-signals as a larger hollow marker in one accent colour. Strata take their colour
-from the Okabe-Ito colour-blind-safe set (Okabe and Ito, "Color Universal
-Design", 2008), in a fixed order, so the same level keeps its colour on every
-panel that is given the same ordered levels.
+Quiet and legible on a projector: light background, small filled circles joined by
+a thin grey line, a solid centre line, dashed limits in a muted colour with their
+values written at their right end, and signals as a larger hollow marker in the
+accent colour (colours: :mod:`qcexplore.draw.palette`). Every figure function stores
+its build plan (what changes only with a new figure) in its layout's ``tags``, where
+:func:`plan_of` finds it.
 
 Nothing here computes a statistic: the helpers only turn result columns into
-positions, colours and labels.
+positions, lines and labels.
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Mapping, Sequence
+import textwrap
+from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from bokeh.core.properties import field
 from bokeh.models import (
     AdaptiveTicker,
     CDSView,
@@ -26,34 +28,12 @@ from bokeh.models import (
     CustomJSHover,
     GroupFilter,
     LayoutDOM,
-    LinearColorMapper,
 )
 from bokeh.plotting import figure
 
+from qcexplore.draw import palette
+from qcexplore.draw.encode import value_texts
 from qcexplore.errors import QCDataError
-from qcexplore.stats.rules import RULE_TEXT
-
-#: Strata colours: the Okabe-Ito set without its vermillion (kept for signals), with the
-#: yellow last because it is the weakest on a light background.
-STRATA_COLORS: tuple[str, ...] = (
-    "#0072B2",  # blue
-    "#E69F00",  # orange
-    "#009E73",  # bluish green
-    "#CC79A7",  # reddish purple
-    "#56B4E9",  # sky blue
-    "#000000",  # black
-    "#F0E442",  # yellow
-)
-ACCENT = "#D55E00"  # Okabe-Ito vermillion: signals and detected steps only
-# Values when there are no strata, and bars and curves that are not a level of a factor:
-# a palette colour there would read as that level (the first crew, the first nozzle).
-POINT = "#3b3b3b"
-LINE = "#b0b0b0"  # thin joining line
-CENTER = "#3b3b3b"
-LIMIT = "#8a8a8a"
-BAND = "#d9d9d9"
-BACKGROUND = "#ffffff"
-GRID = "#ececec"
 
 POINT_SIZE = 5
 SIGNAL_SIZE = 12
@@ -75,182 +55,6 @@ HEIGHT = 300
 SECONDARY_HEIGHT = 180
 
 
-def palette_for(levels: Iterable[Any]) -> dict[Any, str]:
-    """Colour of each stratum level, in the order given.
-
-    The i-th distinct level gets the i-th colour of :data:`STRATA_COLORS`, so the same
-    ordered list of levels always gives the same colours. With more levels than colours
-    the colours repeat (the panel titles and hover text still name each level).
-
-    Parameters
-    ----------
-    levels : iterable
-        The levels in their display order (for a pandas Categorical, its categories).
-
-    Returns
-    -------
-    dict
-        ``{level: "#rrggbb"}``.
-
-    Examples
-    --------
-    >>> palette_for(["crew A", "crew B"])
-    {'crew A': '#0072B2', 'crew B': '#E69F00'}
-    """
-    out: dict[Any, str] = {}
-    for level in levels:
-        if level not in out:
-            out[level] = STRATA_COLORS[len(out) % len(STRATA_COLORS)]
-    return out
-
-
-def levels_of(column: pd.Series) -> list[Any]:
-    """Display order of a stratum column: its categories, else sorted distinct values.
-
-    Missing values are not a level. Using all categories (also unused ones) keeps a
-    level's colour the same when a panel shows only part of the data.
-
-    Examples
-    --------
-    >>> levels_of(pd.Series(["b", "a", "b", None]))
-    ['a', 'b']
-    """
-    if isinstance(column.dtype, pd.CategoricalDtype):
-        return list(column.cat.categories)
-    present = pd.unique(column.dropna())
-    try:
-        return sorted(present)
-    except TypeError:  # mixed types: keep the order of first appearance
-        return list(present)
-
-
-def colors_for(column: Sequence[Any], levels: Sequence[Any]) -> np.ndarray:
-    """One colour per row: its level's colour, or :data:`POINT` where it is not a level.
-
-    Examples
-    --------
-    >>> colors_for(["b", None], ["a", "b"]).tolist()
-    ['#E69F00', '#3b3b3b']
-    """
-    palette = palette_for(levels)
-    codes = pd.Index(list(palette), dtype=object).get_indexer(np.asarray(column, dtype=object))
-    colours = np.array([*palette.values(), POINT], dtype=object)
-    return colours[np.where(codes >= 0, codes, len(palette))]
-
-
-def labels(column: pd.Series) -> np.ndarray:
-    """Plain text labels for hover tooltips and panel filters (missing -> empty text).
-
-    Examples
-    --------
-    >>> labels(pd.Series(["a", None, "a"])).tolist()
-    ['a', '', 'a']
-    """
-    codes, uniques = pd.factorize(column)
-    texts = np.array([*(str(u) for u in uniques), ""], dtype=object)
-    return texts[codes]  # code -1 (missing) picks the trailing empty text
-
-
-def is_datetime(column: pd.Series) -> bool:
-    """Whether a column (or a Categorical's categories) holds dates and times.
-
-    Examples
-    --------
-    >>> is_datetime(pd.Series(pd.to_datetime(["2026-01-05"]))), is_datetime(pd.Series([1]))
-    (True, False)
-    """
-    dtype = column.dtype
-    if isinstance(dtype, pd.CategoricalDtype):
-        dtype = dtype.categories.dtype
-    return pd.api.types.is_datetime64_any_dtype(dtype)
-
-
-def hover_values(column: pd.Series) -> np.ndarray:
-    """Values for hover text only: numbers stay numbers and dates become milliseconds
-    (:func:`time_ms`; both are sent to the page as compact binary arrays), anything else
-    becomes :func:`labels`.
-
-    Examples
-    --------
-    >>> hover_values(pd.Series(pd.Categorical([3, 1]))).tolist()
-    [3, 1]
-    >>> hover_values(pd.Series(pd.to_datetime(["1970-01-01 00:00:01"]))).tolist()
-    [1000.0]
-    >>> hover_values(pd.Series(["a", None])).tolist()
-    ['a', '']
-    """
-    if is_datetime(column):
-        if isinstance(column.dtype, pd.CategoricalDtype):
-            # Convert each category once, then pick by code (missing -> NaN).
-            ms = np.append(time_ms(pd.Series(column.cat.categories)), np.nan)
-            return ms[column.cat.codes.to_numpy()]
-        return time_ms(column)
-    values = column.cat.categories if isinstance(column.dtype, pd.CategoricalDtype) else column
-    if pd.api.types.is_numeric_dtype(values.dtype) and not pd.api.types.is_bool_dtype(values.dtype):
-        if isinstance(column.dtype, pd.CategoricalDtype):
-            codes = column.cat.codes.to_numpy()
-            if (codes >= 0).all():
-                return values.to_numpy()[codes]
-        elif column.notna().all():
-            return column.to_numpy()
-    return labels(column)
-
-
-def codes_for(column: pd.Series, levels: Sequence[str]) -> np.ndarray:
-    """Each row's position in ``levels`` (the texts of :func:`levels_of`), -1 where none.
-
-    Sent to the page instead of the level texts: a number column travels as one binary
-    array, a text column element by element.
-
-    Examples
-    --------
-    >>> codes_for(pd.Series(["b", None, "a"]), ["a", "b"]).tolist()
-    [1, -1, 0]
-    """
-    if isinstance(column.dtype, pd.CategoricalDtype) and [
-        str(c) for c in column.cat.categories
-    ] == list(levels):
-        return column.cat.codes.to_numpy().astype(np.int32)
-    found = pd.Index(list(levels), dtype=object).get_indexer(labels(column))
-    return found.astype(np.int32)
-
-
-def color_codes(codes: np.ndarray) -> np.ndarray:
-    """Index into :data:`STRATA_COLORS` of each level code (the colours repeat as in
-    :func:`palette_for`); -1 (no level) stays -1 and is drawn in :data:`POINT` by
-    :func:`strata_color_mapper`.
-
-    Examples
-    --------
-    >>> color_codes(np.array([0, 8, -1])).tolist()
-    [0, 1, -1]
-    """
-    return np.where(codes >= 0, codes % len(STRATA_COLORS), -1).astype(np.int32)
-
-
-def strata_color_mapper(name: str) -> LinearColorMapper:
-    """Colour of a ``color_code`` column: code i is ``STRATA_COLORS[i]``, -1 is :data:`POINT`.
-
-    The palette is fixed, so re-colouring for another split factor changes only the
-    codes in the data.
-
-    Examples
-    --------
-    >>> m = strata_color_mapper("demo_colors"); m.palette[0] == STRATA_COLORS[0]
-    True
-    """
-    # Edges half a code beyond each end: every whole code falls in the middle of its bin.
-    return LinearColorMapper(
-        name=name,
-        palette=list(STRATA_COLORS),
-        low=-0.5,
-        high=len(STRATA_COLORS) - 0.5,
-        low_color=POINT,
-        high_color=POINT,
-        nan_color=POINT,
-    )
-
-
 def lookup_hover(table: ColumnDataSource, column: str) -> CustomJSHover:
     """Hover text of a code column: the text at that row of ``table[column]`` (-1: none).
 
@@ -264,53 +68,6 @@ def lookup_hover(table: ColumnDataSource, column: str) -> CustomJSHover:
         code="const text = value >= 0 ? table.data[column][value] : null;\n"
         "return text == null ? '' : String(text);",
     )
-
-
-def code_table(values: Sequence[Any]) -> tuple[np.ndarray, list[Any]]:
-    """Integer codes of hashable values (e.g. tuples of rule ids) and the distinct values.
-
-    Examples
-    --------
-    >>> code_table([("N1",), (), ("N1",)])
-    (array([0, 1, 0], dtype=int32), [('N1',), ()])
-    """
-    codes, uniques = pd.factorize(pd.Series(list(values), dtype=object))
-    return codes.astype(np.int32), list(uniques)
-
-
-def rule_texts(uniques: Sequence[Any]) -> np.ndarray:
-    """Text of each distinct set of rules (the uniques of :func:`code_table`): the ids
-    with their plain-words description, plus a trailing empty text that code -1 picks.
-
-    Examples
-    --------
-    >>> rule_texts([("N1",), ()]).tolist()
-    ['N1: one point beyond the control limits', '', '']
-    """
-    texts = [
-        "; ".join(f"{r}: {RULE_TEXT.get(r, r)}" for r in u) if isinstance(u, (tuple, list)) else ""
-        for u in uniques
-    ]
-    return np.array([*texts, ""], dtype=object)
-
-
-def time_ms(column: pd.Series) -> np.ndarray:
-    """Times as float milliseconds since the epoch (bokeh's datetime axis unit).
-
-    Time-zone aware times keep their wall-clock reading (the hour the crew saw);
-    missing times become NaN.
-
-    Examples
-    --------
-    >>> time_ms(pd.Series(pd.to_datetime(["1970-01-01 00:00:01"]))).tolist()
-    [1000.0]
-    """
-    times = pd.to_datetime(column)
-    if getattr(times.dt, "tz", None) is not None:
-        times = times.dt.tz_localize(None)
-    ns = times.astype("datetime64[ns]").to_numpy().astype("int64").astype(float)
-    ns[times.isna().to_numpy()] = np.nan
-    return ns / 1e6
 
 
 def x_kind(x: str, frame: pd.DataFrame) -> str:
@@ -354,19 +111,22 @@ def boundaries(x: np.ndarray, pad: float) -> tuple[np.ndarray, np.ndarray]:
 
 
 def wrapped_title(text: str, width: int = WIDTH) -> str:
-    """Break a long title at its commas so that it fits the figure on a projector.
+    """Break a long title at its commas, else between words, so that it fits the figure.
 
     Titles say what is plotted and how the limits were computed, which can be
     longer than the figure is wide; a cut-off title loses the part that matters.
-    About 8 pixels a character at the 12 pt title size.
+    About 8 pixels a character at the 12 pt title size, beside the toolbar.
 
     Examples
     --------
     >>> print(wrapped_title("Subgroup means of net_g, limits from R-bar/d2, 3 sigma", 300))
     Subgroup means of net_g,
     limits from R-bar/d2, 3 sigma
+    >>> print(wrapped_title("Analysis of means: crew level means with decision limits", 300))
+    Analysis of means: crew level
+    means with decision limits
     """
-    limit = max(30, width // 8)
+    limit = max(30, (width - 40) // 8)
     lines: list[str] = []
     line = ""
     for part in text.split(", "):
@@ -377,7 +137,11 @@ def wrapped_title(text: str, width: int = WIDTH) -> str:
         else:
             line = candidate
     lines.append(line)
-    return "\n".join(lines)
+    # Words stay whole (a long column name, "R-bar/d2"): better a little long than cut.
+    words = {"break_long_words": False, "break_on_hyphens": False}
+    return "\n".join(
+        piece for line in lines for piece in textwrap.wrap(line, limit, **words) or [line]
+    )
 
 
 def new_figure(
@@ -404,14 +168,14 @@ def new_figure(
         output_backend="webgl" if webgl else "canvas",
         tools="pan,box_zoom,wheel_zoom,reset,save",
         toolbar_location="right",
-        background_fill_color=BACKGROUND,
-        border_fill_color=BACKGROUND,
+        background_fill_color=palette.BACKGROUND,
+        border_fill_color=palette.BACKGROUND,
         **kwargs,
     )
     fig.title.text_font_size = "12pt"
     fig.title.text_font_style = "normal"
-    fig.xgrid.grid_line_color = GRID
-    fig.ygrid.grid_line_color = GRID
+    fig.xgrid.grid_line_color = palette.GRID
+    fig.ygrid.grid_line_color = palette.GRID
     fig.outline_line_color = None
     fig.axis.axis_label_text_font_style = "normal"
     fig.axis.minor_tick_line_color = None
@@ -434,7 +198,10 @@ def centre_and_limits(
     >>> [r.glyph.line_dash for r in fig.renderers]
     ['solid', 'dashed']
     """
-    for view_, colour, dash in ((centre, CENTER, "solid"), (limits, LIMIT, "dashed")):
+    for view_, colour, dash in (
+        (centre, palette.CENTER, "solid"),
+        (limits, palette.LIMIT, "dashed"),
+    ):
         fig.segment(
             "x0",
             "y0",
@@ -480,13 +247,29 @@ def panel_names(base: str, count: int) -> list[str]:
     return [base] if count == 1 else [f"{base}_{i}" for i in range(count)]
 
 
-def spec_of(layout: LayoutDOM) -> dict[str, Any] | None:
-    """The build description a figure function stored in its layout's ``tags``.
+def fixed_plan(name: str) -> Callable[[Any], dict[str, Any]]:
+    """The plan function of a layout that nothing in the data changes (a refresh always fits).
+
+    Examples
+    --------
+    >>> fixed_plan("acf")(None)
+    {'figure': 'acf', 'options': {}}
+    """
+
+    def plan(result: Any) -> dict[str, Any]:
+        return {"figure": name, "options": {}}
+
+    plan.__doc__ = f"Build plan of the {name} layout (nothing in it depends on the data)."
+    return plan
+
+
+def plan_of(layout: LayoutDOM) -> dict[str, Any] | None:
+    """The build plan a figure function stored in its layout's ``tags``.
 
     Examples
     --------
     >>> from bokeh.layouts import column
-    >>> spec_of(column(name="x", tags=[{"figure": "chart"}]))
+    >>> plan_of(column(name="x", tags=[{"figure": "chart"}]))
     {'figure': 'chart'}
     """
     for tag in layout.tags:
@@ -541,6 +324,17 @@ def _changed(a: np.ndarray) -> np.ndarray:
     return ~((a[1:] == a[:-1]) | (np.isnan(a[1:]) & np.isnan(a[:-1])))
 
 
+def increasing(x: np.ndarray) -> bool:
+    """Whether positions strictly increase: in time order, and no two at one position.
+
+    Examples
+    --------
+    >>> increasing(np.array([1.0, 2.0, 5.0])), increasing(np.array([1.0, 1.0]))
+    (True, False)
+    """
+    return bool(np.all(x[1:] > x[:-1]))
+
+
 def steps(
     x: np.ndarray, lines: Mapping[str, np.ndarray], pad: float, panel: str = "all"
 ) -> dict[str, np.ndarray]:
@@ -558,7 +352,8 @@ def steps(
     >>> s["x0"].tolist(), s["x1"].tolist(), s["y0"].tolist(), s["y1"].tolist()
     ([0.5, 2.5, 2.5], [2.5, 3.5, 2.5], [0.0, 1.0, 0.0], [0.0, 1.0, 1.0])
     """
-    xu, first = np.unique(x, return_index=True)
+    # Positions in time order are usually increasing already: no need to sort them.
+    xu, first = (x, np.arange(x.size)) if increasing(x) else np.unique(x, return_index=True)
     left, right = boundaries(xu, pad)
     parts = []
     for key, column in lines.items():
@@ -576,6 +371,128 @@ def steps(
         part["role"] = np.full(part["x0"].size, part["role"], dtype=object)
         part["panel"] = np.full(part["x0"].size, panel, dtype=object)
     return concat(parts, ("x0", "y0", "x1", "y1", "role", "panel"))
+
+
+def line_ends(x: np.ndarray, lines: Mapping[str, np.ndarray], pad: float) -> dict:
+    """Where each line's value is written: at its right end, the value as text.
+
+    One row per line of ``lines`` (as in :func:`steps`): ``x`` the right edge of the
+    last point, ``y`` the line's value there, ``text`` that value to the precision
+    that the spread of the lines calls for (:func:`~qcexplore.draw.encode.value_texts`),
+    and ``anchor``, the text baseline: the lowest line's value is written below it, the
+    others above theirs, so that close lines do not stack their values.
+
+    Examples
+    --------
+    >>> ends = line_ends(np.array([1.0, 2.0]), {"center": np.array([10.0, 10.0]),
+    ...                  "ucl": np.array([13.0, 13.5])}, 0.5)
+    >>> ends["x"].tolist(), ends["y"].tolist(), ends["text"].tolist(), ends["anchor"].tolist()
+    ([2.5, 2.5], [10.0, 13.5], ['10.00', '13.50'], ['top', 'bottom'])
+    """
+    columns = ("x", "y", "text", "anchor")
+    if x.size == 0:
+        return {c: np.array([], dtype=float if c in "xy" else object) for c in columns}
+    last = int(np.argmax(x))  # the first point at the greatest x, as steps() takes it
+    y = np.array([np.asarray(v, dtype=float)[last] for v in lines.values()])
+    # The last right edge of boundaries(), without sorting every position.
+    top, before = x[last], x[x < x[last]]
+    right = top + (top - (top + before.max()) / 2.0 if before.size else pad)
+    finite = np.isfinite(y)
+    span = float(np.max(y[finite]) - np.min(y[finite])) if finite.any() else np.nan
+    anchor = np.full(y.size, "bottom", dtype=object)
+    if y.size > 1 and finite.any():
+        anchor[np.nanargmin(y)] = "top"
+    return {"x": np.full(y.size, right), "y": y, "text": value_texts(y, span), "anchor": anchor}
+
+
+def write(fig: figure, source: ColumnDataSource, view_: CDSView | None = None, **at: Any) -> None:
+    """Text from ``source`` in the style of every label on a figure (10 pt, dark grey).
+
+    ``at`` names the columns (``x``, ``y``, ``text``) and the placement.
+
+    Examples
+    --------
+    >>> fig = new_figure("demo", "A title")
+    >>> write(fig, source("demo_labels", {"x": [1.0], "y": [2.0], "t": ["2"]}), x="x", y="y",
+    ...       text="t")
+    >>> fig.renderers[0].glyph.text_font_size
+    '10pt'
+    """
+    fig.text(
+        source=source,
+        view=view_ or CDSView(),
+        text_font_size="10pt",
+        text_color=palette.CENTER,
+        **at,
+    )
+
+
+def end_values(fig: figure, source: ColumnDataSource, view_: CDSView) -> None:
+    """Write the values of :func:`line_ends` just above each line's right end, on a light
+    background so that the points behind them do not blur them.
+
+    Examples
+    --------
+    >>> fig = new_figure("demo", "A title")
+    >>> end_values(fig, source("demo_values", {"x": [1.0], "y": [2.0], "text": ["2"],
+    ...                                        "anchor": ["bottom"]}), CDSView())
+    >>> fig.renderers[0].glyph.text_align
+    'right'
+    """
+    write(
+        fig,
+        source,
+        view_,
+        x="x",
+        y="y",
+        text="text",
+        text_align="right",
+        text_baseline=field("anchor"),
+        x_offset=-3,
+        background_fill_color=palette.BACKGROUND,
+        background_fill_alpha=0.7,
+    )
+
+
+def legend_columns(labels: Sequence[str], width: int = WIDTH) -> int:
+    """How many legend entries fit side by side across ``width`` pixels.
+
+    About 8 pixels a character at the legend's 13 px text, plus the marker and the
+    gaps; at least one entry a row, so a long label wraps the legend into more rows
+    instead of running off the figure.
+
+    Examples
+    --------
+    >>> legend_columns(["A", "B", "C"]), legend_columns(["a long name of a level" * 3], 600)
+    (8, 1)
+    """
+    longest = max((len(str(label)) for label in labels), default=1)
+    entry = 40 + 8 * longest
+    return int(max(1, min(palette.COLOURED, (width - 60) // entry)))
+
+
+def legend_above(fig: figure, source: ColumnDataSource, columns: int) -> None:
+    """A legend above the figure with one entry per row of ``source`` (``label, color``).
+
+    The entries come from a small source whose positions ``x, value`` are NaN, so
+    nothing is drawn and the page groups a handful of rows, not every point.
+
+    Examples
+    --------
+    >>> fig = new_figure("demo", "A title")
+    >>> legend_above(fig, source("demo_legend", {"label": ["A"], "color": ["#000000"],
+    ...              "x": [np.nan], "value": [np.nan]}), 8)
+    >>> fig.above[-1].ncols
+    8
+    """
+    fig.scatter(
+        "x", "value", source=source, color="color", size=POINT_SIZE + 3, legend_field="label"
+    )
+    legend = fig.legend[0]
+    legend.orientation = "horizontal"
+    legend.ncols = columns
+    legend.border_line_color = None
+    fig.add_layout(legend, "above")
 
 
 def concat(parts: Sequence[Mapping[str, np.ndarray]], columns: Sequence[str]) -> dict:

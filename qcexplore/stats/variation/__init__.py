@@ -1,0 +1,44 @@
+"""Sources of variation: which factor moves the value, tested with the right error term.
+
+The design decides the test. A factor that changes inside a subgroup (a nozzle, a
+position) is crossed with time: it is tested against the within-subgroup residual with
+the subgroup as a block. A factor that is constant inside each subgroup (the crew on
+shift, the raw-material lot) can only be compared through subgroup means, so its error
+term is the subgroup-to-subgroup variation within its levels; testing it against single
+values would count every value as independent evidence (pseudo-replication). Two factors
+whose levels fix each other cannot be separated at all, and the result says so.
+
+Everything is computed from per-group sufficient statistics (counts, weighted sums,
+within-group sums of squares) so that 200,000 rows take a fraction of a second. One module
+per job:
+
+========================  ==========================================================
+``factors``               the factors as integer codes (the input of every part)
+``structure``             how factors relate to subgroups and to each other; the design
+``anova``                 Type II sums of squares and the error term of each test
+``components``            variance components (expected mean squares, REML)
+``comparisons``           Tukey, level effects, analysis of means, Kruskal-Wallis, spread
+``distributions``         the ANOM and studentized-range distributions they use
+``offsets``               measurement offsets and the values with them taken off
+``multivari``             the multi-vari table
+``analysis``              :func:`variation`, the entry point
+========================  ==========================================================
+"""
+
+from __future__ import annotations
+
+from qcexplore.stats.variation.analysis import variation
+from qcexplore.stats.variation.comparisons import ASSOCIATION_NOTE_V
+from qcexplore.stats.variation.multivari import multivari_table
+from qcexplore.stats.variation.offsets import adjusted_values, measurement_offsets
+from qcexplore.stats.variation.structure import CONFOUNDING_THRESHOLD, design_structure
+
+__all__ = [
+    "ASSOCIATION_NOTE_V",
+    "CONFOUNDING_THRESHOLD",
+    "adjusted_values",
+    "design_structure",
+    "measurement_offsets",
+    "multivari_table",
+    "variation",
+]

@@ -1,0 +1,161 @@
+"""The entry point: :func:`variation` runs every part on one design and gathers the result."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import pandas as pd
+
+from qcexplore.errors import QCDataError
+from qcexplore.stats.results import VariationResult
+from qcexplore.stats.variation.anova import anova_table
+from qcexplore.stats.variation.comparisons import (
+    level_comparisons,
+    level_data,
+    marginal_note,
+    spread_table,
+)
+from qcexplore.stats.variation.components import components_table
+from qcexplore.stats.variation.multivari import multivari_rows
+from qcexplore.stats.variation.offsets import (
+    OFFSET_COLUMNS,
+    confounding_notes,
+    offsets_design,
+    offsets_table,
+)
+from qcexplore.stats.variation.structure import Design, design
+
+
+def _design_notes(
+    d: Design, anova: pd.DataFrame, measured_by: Sequence[str], compare: bool
+) -> list[str]:
+    """What the reader must know about the design: confounded offsets, associated factors,
+    single values, no residual degrees of freedom."""
+    confounded = confounding_notes(d, measured_by)
+    notes = [f"offsets of {m!r}: {text}." for m, text in confounded.items()]
+    if compare:
+        notes += marginal_note(d)
+    if d.single:
+        notes.append("single values: subgroup-to-subgroup and residual variation coincide.")
+    if (anova.loc[anova["source"] == "residual", "df"] <= 0).all():
+        notes.append(
+            "no degrees of freedom are left for the residual (the factors have about one "
+            "value per level): F tests and variance components are undefined (NaN); "
+            "collect repeats within the levels."
+        )
+    return notes
+
+
+def variation(
+    frame: pd.DataFrame,
+    *,
+    value: str,
+    subgroup: str,
+    factors: Sequence[str],
+    measured_by: Sequence[str] = (),
+    alpha: float = 0.05,
+    components: str = "auto",
+    level: float = 0.95,
+    compare: bool = True,
+) -> VariationResult:
+    """Split the variance of ``value`` into its sources, each tested with the right error.
+
+    Parameters
+    ----------
+    frame : long table in time order (see the internal data contract in DESIGN.md).
+    value, subgroup : column names; ``subgroup`` is the rational subgroup (use
+        observation numbers for single values).
+    factors : stratification columns; ``measured_by`` the subset that describes sampling
+        or measurement (their offsets go to ``offsets``).
+    alpha : level of the analysis-of-means decision limits and Tukey intervals.
+    components : ``"auto"`` (expected mean squares for balanced data, REML for
+        unbalanced data, computed from sufficient statistics so that its cost does not
+        grow with the rows; moment estimates with effective group sizes, with a note, when
+        the factors have more than a few hundred levels in all), ``"ems"`` or ``"reml"``.
+    level : confidence level of the component and offset intervals.
+    compare : ``False`` leaves ``comparisons`` and ``spread`` empty (quicker, for
+        simulations and first looks).
+
+    Returns
+    -------
+    VariationResult
+        ``structure`` (see :func:`design_structure`); ``anova`` with Type II sums of
+        squares: between-subgroup factors from subgroup means weighted by size and tested
+        against "subgroups within <those factors>", the subgroups and within-subgroup
+        factors tested "within subgroups" (within cells when there are replicates, with the
+        subgroup x factor interaction as its own row); ``components`` (random-effects
+        variances of an additive model: every factor and the subgroup random, the
+        subgroup x factor interaction pooled into the residual; negative estimates set to
+        zero with a note; ``lower``/``upper`` are Satterthwaite intervals, chi-square for
+        the residual, NaN for REML); per-factor
+        ``comparisons`` (``tukey`` pairs (Tukey-Kramer, ``statistic`` the studentized
+        range q); ``effect`` rows: level mean minus the size-weighted overall mean with its
+        ``se`` and t test; ``anom`` rows: level mean, ``lower``/``upper`` the decision
+        limits of the analysis of means, grand mean +- h * se, ``signal`` True where the
+        level mean lies outside them (False on the other rows), and ``p`` the matching
+        adjusted p-value: for equal group sizes (up to 100 levels) h is the exact critical
+        value h(alpha; k, df) of max |mean_i - grand| / se for independent normal means
+        (see ``distributions.anom_cdf``); for unequal sizes the Sidak value
+        t(1 - (1 - (1 - alpha)^(1/k)) / 2, df), a documented approximation that is
+        slightly conservative, with Sidak-adjusted p;
+        ``kruskal_wallis``) on subgroup means for between-subgroup
+        factors and on subgroup-centred values otherwise (error df reduced by the
+        number of subgroups less one); each factor's comparisons ignore the other
+        factors, and ``notes`` says so when two factors go together (Cramer's V at
+        least ``ASSOCIATION_NOTE_V``); ``spread`` (Levene and
+        Brown-Forsythe on deviations from the subgroup mean, or on single values);
+        ``offsets`` (:func:`measurement_offsets`; a measured_by factor confounded with
+        another factor keeps its offsets, whose ``note`` says that they carry the other
+        factor's effect too, and ``notes`` repeats it); ``multivari``
+        (:func:`multivari_table`).
+
+    Checked against R's documented examples (PlantGrowth one-way F, InsectSprays
+    Kruskal-Wallis), Bates' lme4 book values for Dyestuff and Pastes, statsmodels
+    ``anova_lm`` (Type II) and MixedLM (REML), scipy ``tukey_hsd`` and ``levene``, Nelson's
+    ANOM table and simulation; see tests/test_variation.py.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> f = pd.DataFrame({"hour": pd.Categorical(np.repeat(np.arange(6), 2), ordered=True),
+    ...                   "nozzle": pd.Categorical(["a", "b"] * 6),
+    ...                   "w": [10.0, 11.2, 9.8, 11.0, 10.1, 11.3, 9.9, 11.1, 10.2, 11.0,
+    ...                         10.0, 11.4]})
+    >>> r = variation(f, value="w", subgroup="hour", factors=["nozzle"])
+    >>> r.anova[["source", "error_term"]].values.tolist()
+    [['subgroup', 'within subgroups'], ['nozzle', 'within subgroups'], ['residual', '']]
+    """
+    if components not in ("auto", "ems", "reml"):
+        raise QCDataError(f"components={components!r}: use 'auto', 'ems' or 'reml'.")
+    factors = (factors,) if isinstance(factors, str) else tuple(factors)
+    measured_by = (measured_by,) if isinstance(measured_by, str) else tuple(measured_by)
+    unknown = [m for m in measured_by if m not in factors]
+    if unknown:
+        raise QCDataError(
+            f"measured_by {unknown} are not among factors {list(factors)}; list them in both."
+        )
+    d = design(frame, value, subgroup, factors)
+    anova = anova_table(d)
+    comps, method, comp_notes = components_table(d, anova, components, level)
+    comparisons = (
+        {f.name: level_comparisons(*level_data(d, f), f.levels, alpha) for f in d.factors}
+        if compare
+        else {}
+    )
+    spread = spread_table(d, d.factors if compare else [])
+    offsets = pd.DataFrame(columns=OFFSET_COLUMNS)
+    if measured_by:
+        od = offsets_design(frame, value, subgroup, measured_by, factors, d)
+        offsets = offsets_table(od, measured_by, level)
+    notes = [*d.notes, *comp_notes, *_design_notes(d, anova, measured_by, compare)]
+    return VariationResult(
+        structure=d.structure,
+        anova=anova,
+        components=comps,
+        comparisons=comparisons,
+        spread=spread,
+        offsets=offsets,
+        multivari=multivari_rows(d.y, d.subgroup, d.factors),
+        method=f"Type II sums of squares; components by {method}",
+        notes=tuple(notes),
+    )
