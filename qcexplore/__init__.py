@@ -27,6 +27,28 @@ _LAZY = {
 }
 
 
+def _show_results_in_notebooks() -> None:
+    """In a notebook, a result as a cell's last line shows its figure and a compact table."""
+    try:
+        from IPython import get_ipython
+    except ImportError:
+        return
+    shell = get_ipython()
+    if shell is None or getattr(shell, "kernel", None) is None:
+        return
+
+    def bundle(result: Any, include: Any = None, exclude: Any = None) -> dict[str, str]:
+        # bokeh is imported when the first result is shown, not with the package.
+        return import_module("qcexplore.app.display").bundle(result)
+
+    formatter = shell.display_formatter.mimebundle_formatter
+    for name in ("ChartResult", "VariationResult", "TimeResult", "CapabilityResult"):
+        formatter.for_type_by_name("qcexplore.stats.results", name, bundle)
+
+
+_show_results_in_notebooks()
+
+
 def explore(frame: Any, **study_arguments: Any) -> Any:
     """``qx.Study(frame, **study_arguments).explore()``: the interactive explorer."""
     return Study(frame, **study_arguments).explore()

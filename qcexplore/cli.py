@@ -7,13 +7,13 @@ problem), 1 an unexpected error (a bug: the traceback is printed).
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 import traceback
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any, NoReturn
 
+from qcexplore.app.serve import TOKEN_ENV
 from qcexplore.demo import ROLES as DEMO_ROLES
 from qcexplore.demo import TITLE as DEMO_TITLE
 from qcexplore.errors import QCDataError
@@ -92,6 +92,88 @@ def _add_study_options(parser: argparse.ArgumentParser) -> None:
     roles.add_argument("--target", type=float, help="target value")
     roles.add_argument("--units", help="unit of the value, e.g. g")
     roles.add_argument("--sheet", help="Excel sheet name (default: the first)")
+    reading = parser.add_argument_group(
+        "reading the file",
+        "Normally found from the values and reported; give them when the file cannot settle it.",
+    )
+    order = reading.add_mutually_exclusive_group()
+    order.add_argument(
+        "--dayfirst", dest="dayfirst", action="store_true", default=None,
+        help="dates are written day first (30.03.2024, 30/03/2024)",
+    )  # fmt: skip
+    order.add_argument(
+        "--monthfirst", dest="dayfirst", action="store_false",
+        help="dates are written month first (03/30/2024)",
+    )  # fmt: skip
+    reading.add_argument("--date-format", help="the dates' format, e.g. %%d.%%m.%%Y %%H:%%M")
+    reading.add_argument("--decimal", choices=[",", "."], help="the decimal mark")
+    reading.add_argument("--encoding", help="the text encoding, e.g. cp1252")
+
+
+class _RefuseToken(argparse.Action):
+    """``--token`` on the command line is refused without repeating it (``ps`` shows argv)."""
+
+    def __call__(self, parser: argparse.ArgumentParser, *args: Any, **kwargs: Any) -> None:
+        parser.error(
+            "--token is not taken on the command line, where others on this machine can read "
+            f"it: put the token in the environment variable {TOKEN_ENV} or in a file given "
+            "with --token-file"
+        )
+
+
+def _add_server_options(app: argparse.ArgumentParser) -> None:
+    server = app.add_argument_group(
+        "server options",
+        "Only this machine can open the app unless --host says otherwise. On the network a "
+        f"token is needed: from {TOKEN_ENV} or --token-file, or one is made and printed.",
+    )
+    server.add_argument(
+        "--host",
+        default="127.0.0.1",
+        help="address to listen on (default 127.0.0.1, this machine only; 0.0.0.0 for the "
+        "network); the page answers only at this address and localhost",
+    )
+    server.add_argument("--port", type=int, default=None, help="port (default: a free one)")
+    server.add_argument(
+        "--token-file",
+        metavar="FILE",
+        help=f"a file whose first line is the access token (or set {TOKEN_ENV})",
+    )
+    server.add_argument("--token", nargs="?", action=_RefuseToken, help=argparse.SUPPRESS)
+    server.add_argument("--certfile", metavar="PEM", help="TLS certificate: serve https")
+    server.add_argument("--keyfile", metavar="PEM", help="private key of the certificate")
+    server.add_argument(
+        "--max-pages",
+        type=int,
+        default=None,
+        metavar="N",
+        help="pages open at once (default: half the free memory over what a page's kernel "
+        "takes, about 300 MB plus three times the data; printed at start)",
+    )
+    server.add_argument(
+        "--idle-timeout",
+        type=float,
+        default=900.0,
+        metavar="SECONDS",
+        help="shut down the kernel of a closed page after this long (default 900)",
+    )
+    server.add_argument(
+        "--connect-timeout",
+        type=float,
+        default=120.0,
+        metavar="SECONDS",
+        help="shut down a kernel whose page never connected after this long (default 120)",
+    )
+    server.add_argument(
+        "--log-folder",
+        default="qcexplore-logs",
+        metavar="DIR",
+        help="folder of investigation logs, where each page autosaves (default: "
+        "qcexplore-logs in the current folder)",
+    )
+    server.add_argument(
+        "--log", metavar="FILE", help="open the explorer with an investigation log saved earlier"
+    )
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -114,6 +196,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     app = commands.add_parser(
         "app",
+        allow_abbrev=False,  # "--token X" must not be read as "--token-file X"
         help="serve the interactive explorer as a web page",
         description="Serve the explorer as a web page (Voila) and print its address. "
         "Without DATA it opens the built-in demo. Ctrl-C stops the server.",
@@ -122,30 +205,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     app.add_argument("data", nargs="?", help="CSV, TSV, Parquet or Excel file (default: demo)")
     _add_study_options(app)
-    server = app.add_argument_group("server options")
-    server.add_argument(
-        "--host",
-        default="127.0.0.1",
-        help="address to listen on (default 127.0.0.1, this machine only); "
-        "any other address needs an access token",
-    )
-    server.add_argument("--port", type=int, default=None, help="port (default: a free one)")
-    server.add_argument(
-        "--token",
-        default=None,
-        help="access token, needed with --host 0.0.0.0; 'auto' generates one "
-        "(printed in the address)",
-    )
-    server.add_argument(
-        "--idle-timeout",
-        type=float,
-        default=900.0,
-        metavar="SECONDS",
-        help="shut down a page's kernel after this long idle (default 900)",
-    )
-    server.add_argument(
-        "--log", metavar="FILE", help="open the explorer with an investigation log saved earlier"
-    )
+    _add_server_options(app)
     app.add_argument_group("demo (without DATA)").add_argument(
         "--seed", type=int, default=0, help="seed of the demo data (default 0)"
     )
@@ -236,63 +296,97 @@ def _progress(name: str) -> Callable[[float], None]:
     return report
 
 
-def load_study(data: str, roles: dict[str, Any], *, sheet: str | None = None) -> Study:
-    """Read ``data`` (progress on stderr for large files) and build the Study.
+def reading_options(args: argparse.Namespace) -> dict[str, Any]:
+    """The ``qx.read`` arguments given on the command line."""
+    return {
+        "sheet": args.sheet,
+        "dayfirst": args.dayfirst,
+        "date_format": args.date_format,
+        "decimal": args.decimal,
+        "encoding": args.encoding,
+    }
+
+
+def load_study(data: str, roles: dict[str, Any], **reading: Any) -> tuple[Study, str]:
+    """Read ``data`` (progress on stderr for large files) and build the Study; with it, what
+    was found in the file (delimiter, decimal mark, encoding, date order) in one line, for
+    the command to say once everything else has passed (a refusal stays one line).
 
     Examples
     --------
     >>> import tempfile, pathlib
     >>> p = pathlib.Path(tempfile.mkdtemp()) / "w.csv"
     >>> _ = p.write_text("w\\n1\\n2\\n3\\n")
-    >>> load_study(str(p), {"value": "w"}).value
+    >>> load_study(str(p), {"value": "w"})[0].value
     'w'
     """
-    from qcexplore.data.io import read
+    from qcexplore.data.io import describe_reading, read
 
-    frame = read(data, sheet=sheet, progress=_progress(Path(data).name))
-    return Study(frame, **roles)
+    frame = read(data, progress=_progress(Path(data).name), **reading)
+    return Study(frame, **roles), describe_reading(frame)
+
+
+def _say_reading(found: str) -> None:
+    if found:
+        print(f"qcexplore: {found}", file=sys.stderr)
 
 
 def _run_app(args: argparse.Namespace) -> int:
+    from qcexplore.app.logs import LogFolder
     from qcexplore.app.serve import (
         AppSettings,
         demo_study,
-        new_token,
-        require_access_control,
+        free_port,
+        read_token,
         serve,
+        tls_context,
     )
 
-    token = new_token() if args.token == "auto" else args.token
-    require_access_control(args.host, token)  # before the data are read
+    # Everything that can be refused is checked before the data are read.
+    token = read_token(args.token_file)
+    tls = tls_context(args.certfile, args.keyfile)
+    for option, seconds in (("--idle-timeout", args.idle_timeout),
+                            ("--connect-timeout", args.connect_timeout)):  # fmt: skip
+        if not seconds > 0:
+            raise QCDataError(f"{option} {seconds:g}: give a number of seconds above 0.")
+    if args.max_pages is not None and args.max_pages < 1:
+        raise QCDataError(f"--max-pages {args.max_pages}: give at least 1.")
+    free_port(args.host, args.port or 0)
+    found = ""
     if args.data is None:
         study = demo_study(args.seed, **study_roles(args, DEMO_ROLES))
         title = DEMO_TITLE
     else:
-        study = load_study(args.data, study_roles(args), sheet=args.sheet)
+        study, found = load_study(args.data, study_roles(args), **reading_options(args))
         title = Path(args.data).name
     log = None
     if args.log is not None:
-        from qcexplore import views
-        from qcexplore.views.log import load_log
+        from qcexplore.app.explorer import Explorer
 
-        data_id = study.fingerprint
-        load_log(args.log, data_id=data_id, option_types=views.option_types())  # refused early
+        # Opened as each page will open it, so a log that a page would refuse stops here.
+        Explorer(study).load(args.log)
         log = str(Path(args.log).resolve())
-    settings = AppSettings(title=title, workdir=os.getcwd(), log=log)
+    folder = LogFolder(args.log_folder)
+    settings = AppSettings(title=title, log=log, log_folder=str(folder.root))
+    _say_reading(found)
     serve(
         study,
         settings=settings,
         host=args.host,
         port=args.port,
         token=token,
+        tls=tls,
         idle_timeout=args.idle_timeout,
+        connect_timeout=args.connect_timeout,
+        max_pages=args.max_pages,
     )
     return 0
 
 
 def _run_report(args: argparse.Namespace) -> int:
-    study = load_study(args.data, study_roles(args), sheet=args.sheet)
+    study, found = load_study(args.data, study_roles(args), **reading_options(args))
     path = study.report(args.output, log=args.log, title=args.title)
+    _say_reading(found)
     print(f"wrote {path}")
     return 0
 

@@ -67,6 +67,7 @@ from qcexplore.caution import caution
 from qcexplore.data.coding import real_number
 from qcexplore.stats.results import Evidence, Finding, Onset
 from qcexplore.stats.results import p_text as _p
+from qcexplore.story import told
 
 __all__ = ["KINDS", "Finding", "findings", "findings_frame"]
 
@@ -80,6 +81,7 @@ KINDS = (
     "confounded",
     "out_of_control",
     "capability",
+    "variance_split",
 )
 
 
@@ -211,12 +213,58 @@ def _design_caveat(ctx: _Context, factor: str, measured: bool) -> str:
             f"{_cap(factor)} changes inside the subgroups, so it is compared within subgroups "
             "(the subgroup as a block): what the subgroup shares cancels."
         )
+        term = _error_term(ctx, factor)
+        if term.startswith("subgroup x "):
+            parts.append(
+                f"It is tested against how its differences vary from subgroup to subgroup "
+                f"({term}), so repeated values in one subgroup do not count as independent "
+                "evidence."
+            )
     for other in ctx.v.confounded_with(factor):
         parts.append(
             f"{_cap(factor)} is confounded with {other}: the data cannot tell {factor} from "
             f"{other} (see the confounded finding)."
         )
     return " ".join(parts)
+
+
+def _error_term(ctx: _Context, factor: str) -> str:
+    rows = ctx.v.anova[ctx.v.anova["source"] == factor]
+    return str(rows["error_term"].iloc[0]) if len(rows) else ""
+
+
+def _time_words(ctx: _Context, factor: str, level: str) -> tuple[str, str, bool]:
+    """A title tail, a sentence, and whether the level cannot be told apart from a change
+    of the process in time (``Evidence.time_confounding``); empty when it spans the record."""
+    rows = ctx.evidence.time_rows(factor, level)
+    if not len(rows):
+        return "", "", False
+    row = rows.sort_values("r2", ascending=False).iloc[0]
+    start = row["start"] if pd.notna(row["start"]) else row["subgroup"]
+    when = _when(start, "subgroup")
+    label = _label(factor, level)
+    side = "after" if row["share_after"] >= 0.5 else "before"
+    fit = (
+        f"estimated together with a step there, its offset is {row['offset_joint']:+.3g}"
+        f"{ctx.unit} (se {_num(row['offset_joint_se'], 2)}; {row['offset_alone']:+.3g}"
+        f"{ctx.unit} on its own) and the step {row['step_joint']:+.3g}{ctx.unit} (se "
+        f"{_num(row['step_joint_se'], 2)}, p = {_p(float(row['p_step_joint']))})"
+    )
+    if row["confounded"]:
+        return (
+            f", or the process changed around {when}: the data cannot tell them apart",
+            f"{_cap(label)} appears only {side} {when}, and the levels of {factor} go with "
+            f"that period (R^2 = {row['r2']:.2f}): a difference of {label} and a change of "
+            f"the process at that time explain the same data ({fit}). Both explanations "
+            "stand until a period where they are crossed is recorded.",
+            True,
+        )
+    return (
+        "",
+        f"{_cap(label)} appears only {side} {when}; {fit}, so the comparison rests on the "
+        f"other {_plural(factor)} seen on both sides (R^2 = {row['r2']:.2f}).",
+        False,
+    )
 
 
 def _onset_words(ctx: _Context, found: Onset | None) -> tuple[str, Any]:
@@ -268,10 +316,13 @@ def _level_finding(
     effect_sd = ctx.in_sigma(effect)
     p_adjusted = max(p_gate, p_level)
     caveat = _design_caveat(ctx, factor, measured)
+    if _time_words(ctx, factor, level)[2]:
+        caveat += f" {_cap(_label(factor, level))} cannot be told apart from a change in time."
     evidence = (
         f"{_cap(label)} differs by {effect:+.3g}{ctx.unit} (se {_num(se, 2)}) from the mean of the "
         f"other {plural}, {effect_sd:+.2f} within-subgroup sigma"
     )
+    time_tail, time_sentence, in_time = _time_words(ctx, factor, level)
     if measured:
         title = f"{_cap(label)}'s readings are {ctx.amount(effect)} {word} than the other {plural}'"
         twins = ctx.v.confounded_with(factor)
@@ -282,7 +333,12 @@ def _level_finding(
         evidence += (
             f"; its sum-to-zero offset against the average of all {k} {plural} is "
             f"{estimate:+.3g}{ctx.unit}, and the difference from the others is that offset "
-            f"times {k}/{k - 1}. A measurement offset moves the readings, not the product."
+            f"times {k}/{k - 1}."
+            + (
+                " If it is the process that changed, the product changed too."
+                if in_time
+                else " A measurement offset moves the readings, not the product."
+            )
         )
         start, onset = None, ""
     else:
@@ -293,7 +349,8 @@ def _level_finding(
             onset, start = _onset_words(ctx, ctx.evidence.onset(factor, level))
         if start is not None:
             title += f", from around {_when(start)}"
-    parts = [evidence + onset]
+    title += time_tail
+    parts = [evidence + onset] + ([time_sentence] if time_sentence else [])
     if np.isfinite(share):
         parts.append(f"{_cap(factor)} accounts for {share:.0%} of the total variance.")
     parts.append(
@@ -357,9 +414,12 @@ def _factor_findings(ctx: _Context, factor: str, p_gate: float, min_share: float
     measured = factor in ctx.evidence.measured_by
     levels = ctx.evidence.levels
     table = levels[levels["factor"] == factor].reset_index(drop=True)
+    # A factor nested in the subgroups (each level inside one subgroup) has levels that
+    # are one-off units, not streams that run on: naming them says nothing for tomorrow.
+    inner = ctx.evidence.subgroup is not None and ctx.v.nested_in(factor) == ctx.evidence.subgroup
     out = [
         _level_finding(ctx, factor, table, named, p_gate, measured)
-        for named in _named_levels(table, ctx)
+        for named in ([] if inner else _named_levels(table, ctx))
     ]
     if ctx.v.relation(factor) == "within_subgroup":
         out += _stratified(ctx, factor, p_gate, min_share)
@@ -420,29 +480,28 @@ def _adjusted_words(evidence: Evidence) -> str:
     return f" (after removing the {', '.join(evidence.measured_by)} offsets)"
 
 
-def _shift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
-    effect = float(row.after - row.before)
-    if abs(effect) < ctx.min_effect:
-        return []
-    start, what = (row.time, "time") if pd.notna(row.time) else (row.subgroup, "subgroup")
-    word = "up" if effect > 0 else "down"
-    caveat = (
-        "The step test reads the subgroup averages only: a gradual drift shows as one or "
-        "more steps, and the time found is where the averages before and after differ most."
-    )
+def _bic(ts: Any) -> dict[str, float]:
+    """The BIC of each level model of the time structure, by name."""
+    return dict(zip(ts.level_models["model"], ts.level_models["bic"], strict=True))
+
+
+def _process_shift(
+    ctx: _Context,
+    row: Any,
+    p_adjusted: float,
+    *,
+    effect: float,
+    start: Any,
+    caveat: str,
+    title: str,
+    detail: str,
+) -> list[Finding]:
+    """The process_shift finding of a confirmed change (its gate: the step test's row)."""
     return [
         Finding(
             kind="process_shift",
-            title=f"The process average stepped {word} by {ctx.amount(effect)} around "
-            f"{_when(start, what)}",
-            detail=(
-                f"The subgroup averages{_adjusted_words(ctx.evidence)} moved from "
-                f"{_num(row.before, 6)}{ctx.unit} to {_num(row.after, 6)}{ctx.unit} "
-                f"({effect:+.3g}{ctx.unit}, {ctx.in_sigma(effect):+.2f} within-subgroup sigma) "
-                f"from subgroup {row.subgroup}. CUSUM test with binary segmentation: p = "
-                f"{_p(row.p)}, adjusted p = {_p(p_adjusted)} (Holm over {ctx.n_tests} tests). "
-                f"{caveat}"
-            ),
+            title=title,
+            detail=detail,
             effect=effect,
             p=float(row.p),
             effect_sd=ctx.in_sigma(effect),
@@ -454,28 +513,148 @@ def _shift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
     ]
 
 
+def _drift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
+    ts = ctx.ts
+    drift = next(ts.drift.itertuples())
+    effect = float(drift.after - drift.before)
+    if abs(effect) < ctx.min_effect:
+        return []
+    timed = pd.notna(drift.time)
+    start, what = (drift.time, "time") if timed else (drift.subgroup, "subgroup")
+    days = (ts.series["start"].iloc[-1] - drift.time) / pd.Timedelta(days=1) if timed else 0.0
+    rate = (
+        f"{effect / days:+.3g}{ctx.unit} per day"
+        if days > 0
+        else f"{drift.slope:+.3g}{ctx.unit} per subgroup"
+    )
+    bic, steps = _bic(ts), len(ts.shifts)
+    word = "up" if effect > 0 else "down"
+    caveat = (
+        "The drift is a straight line from an onset fitted to the subgroup averages: the "
+        "onset is where the line bends, which a slow start or autocorrelation can move."
+    )
+    return _process_shift(
+        ctx,
+        row,
+        p_adjusted,
+        effect=effect,
+        start=start,
+        caveat=caveat,
+        title=f"The process average drifted {word} by {ctx.amount(effect)} from around "
+        f"{_when(start, what)}",
+        detail=(
+            f"The subgroup averages{_adjusted_words(ctx.evidence)} move from "
+            f"{_num(drift.before, 6)}{ctx.unit} to {_num(drift.after, 6)}{ctx.unit} "
+            f"({effect:+.3g}{ctx.unit}, {ctx.in_sigma(effect):+.2f} within-subgroup sigma) "
+            f"as a ramp of {rate} from subgroup {drift.subgroup} on. The ramp fits the "
+            f"change better than {steps} step{'s' if steps > 1 else ''} (BIC "
+            f"{bic['drift']:.1f} against {bic['steps']:.1f}, AR(1) likelihood of the "
+            "residuals). The CUSUM test with binary segmentation confirms a change: p = "
+            f"{_p(row.p)}, adjusted p = {_p(p_adjusted)} (Holm over {ctx.n_tests} tests). "
+            f"{caveat}"
+        ),
+    )
+
+
+def _shift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
+    ts = ctx.ts
+    if "drift" in ts.explanation:
+        # One drift, however many steps the segmentation cut it into: worded once, on the
+        # step whose test confirms the change most strongly.
+        strongest = row.position == ts.shifts.loc[ts.shifts["p"].idxmin(), "position"]
+        return _drift_finding(ctx, row, p_adjusted) if strongest else []
+    effect = float(row.after - row.before)
+    if abs(effect) < ctx.min_effect:
+        return []
+    start, what = (row.time, "time") if pd.notna(row.time) else (row.subgroup, "subgroup")
+    word = "up" if effect > 0 else "down"
+    bic = _bic(ts)
+    gradual = ""
+    # A BIC difference under 2 is "not worth more than a bare mention" (Kass and Raftery
+    # 1995, from memory): the data then prefer the steps to a drift hardly at all.
+    if bic["drift"] - bic["steps"] < 2.0:
+        onset = int(ts.level_models.set_index("model").loc["drift", "position"])
+        gradual = (
+            " A drift (a ramp from subgroup "
+            f"{ts.series['subgroup'].iloc[onset]} on) fits almost as well (BIC "
+            f"{bic['drift']:.1f} against {bic['steps']:.1f}), so the change may be gradual."
+        )
+    caveat = (
+        "The step test reads the subgroup averages only, and the time found is where the "
+        "averages before and after differ most."
+    )
+    return _process_shift(
+        ctx,
+        row,
+        p_adjusted,
+        effect=effect,
+        start=start,
+        caveat=caveat,
+        title=f"The process average stepped {word} by {ctx.amount(effect)} around "
+        f"{_when(start, what)}",
+        detail=(
+            f"The subgroup averages{_adjusted_words(ctx.evidence)} moved from "
+            f"{_num(row.before, 6)}{ctx.unit} to {_num(row.after, 6)}{ctx.unit} "
+            f"({effect:+.3g}{ctx.unit}, {ctx.in_sigma(effect):+.2f} within-subgroup sigma) "
+            f"from subgroup {row.subgroup}. CUSUM test with binary segmentation: p = "
+            f"{_p(row.p)}, adjusted p = {_p(p_adjusted)} (Holm over {ctx.n_tests} tests)."
+            f"{gradual} {caveat}"
+        ),
+    )
+
+
+_ABOUT = {"steps": " about the fitted steps", "drift": " about the fitted drift", "mean": ""}
+
+
 def _autocorrelation_finding(ctx: _Context, p: float, p_adjusted: float) -> list[Finding]:
     ts = ctx.ts
+    if "autocorrelation" not in ts.explanation:
+        # Correlated about the mean only, while a step or a drift would leave independent
+        # residuals: that is no evidence of autocorrelation (see TimeResult.explanation).
+        return []
     phi, se = ts.ar1.phi, ts.ar1.se
     n = len(ts.series)
-    lb = ts.ljung_box
-    lb_row = lb[lb["lag"] == min(_LJUNG_BOX_LAG, int(lb["lag"].max()))].iloc[0]
-    caveat = (
-        "Limits from within-subgroup variation assume independent averages; when the "
-        "level wanders they flag more points than the nominal rate, and steps or a drift "
-        "in the level raise phi as well."
-    )
+    chosen = str(ts.level_models.loc[ts.level_models["chosen"], "model"].iloc[0])
+    about = _ABOUT[chosen]
+    spread = f"se {se:.3f}, " if np.isfinite(se) else ""
+    if chosen == "mean":
+        lb = ts.ljung_box
+        lb_row = lb[lb["lag"] == min(_LJUNG_BOX_LAG, int(lb["lag"].max()))].iloc[0]
+        evidence = (
+            f"; Ljung-Box Q = {lb_row['q']:.1f} over {int(lb_row['lag'])} lags, "
+            f"p = {_p(lb_row['p'])}. The correlation stays when the best single step or the "
+            f"best drift is removed (largest p = {_p(ts.autocorrelation_p)}), so it is not "
+            "one change in level."
+        )
+    else:
+        raw = ts.level_models.set_index("model").loc["mean", "phi"]
+        evidence = (
+            f". Judged about the fitted {chosen}, so the change in level does not count as "
+            f"correlation (about the overall mean, phi = {raw:.3f})."
+        )
+    if phi >= 0:
+        behave, title = "follow their neighbours", "are correlated"
+        caveat = (
+            "Limits from within-subgroup variation assume independent averages; when the "
+            "level wanders they flag more points than the nominal rate."
+        )
+    else:
+        behave, title = "alternate, a high one tending to follow a low one,", "alternate"
+        caveat = (
+            "Alternating averages are typical of a process adjusted after each reading "
+            "(common practice); limits that assume independent averages then mislead."
+        )
     return [
         Finding(
             kind="autocorrelation",
-            title=f"Consecutive subgroup averages are correlated (phi = {phi:.2f})",
+            title=f"Consecutive subgroup averages {title}{about} (phi = {phi:.2f})",
             detail=(
-                f"The subgroup averages{_adjusted_words(ctx.evidence)} follow their neighbours: "
-                f"lag-1 autocorrelation phi = {phi:.3f} (se {se:.3f}, AR(1) fit), p = {_p(p)}, "
-                f"adjusted p = {_p(p_adjusted)} (Holm over {ctx.n_tests} tests); Ljung-Box "
-                f"Q = {lb_row['q']:.1f} over {int(lb_row['lag'])} lags, p = {_p(lb_row['p'])}. "
-                f"The {n} averages carry about as much information as "
-                f"{ts.effective_n:.0f} independent ones (N(1 - phi)/(1 + phi)). {caveat}"
+                f"The subgroup averages{_adjusted_words(ctx.evidence)} {behave}"
+                f"{about}: lag-1 autocorrelation phi = {phi:.3f} ({spread}AR(1) fit), "
+                f"likelihood-ratio p = {_p(p)}, adjusted p = {_p(p_adjusted)} (Holm over "
+                f"{ctx.n_tests} tests){evidence} The {n} averages carry about as much "
+                f"information as {ts.effective_n:.0f} independent ones (N(1 - phi)/(1 + phi)). "
+                f"{caveat}"
             ),
             effect=phi,
             p=p,
@@ -597,6 +776,63 @@ def _confounded_notes(ctx: _Context) -> list[Finding]:
     return out
 
 
+def _nesting_notes(ctx: _Context) -> list[Finding]:
+    """Labels that look nested: the data cannot tell them from a crossed factor whose
+    effect changes from subgroup to subgroup."""
+    table = ctx.v.nesting
+    if not len(table):
+        return []
+    out = []
+    for row in table[table["kind"] == "probably_nested"].itertuples():
+        out.append(
+            Finding(
+                kind="confounded",
+                title=f"{_cap(row.factor)} labels look nested in the {row.parent} subgroups",
+                detail=(
+                    f"{_cap(row.note)} Until that is settled, read the {row.factor} results "
+                    f"as the variation between {_plural(row.factor)} inside each subgroup, "
+                    "not as a difference between named levels."
+                ),
+                factor=row.factor,
+                caveat=(
+                    f"The data cannot tell nested {row.factor} labels from a {row.factor} "
+                    "effect that changes from subgroup to subgroup."
+                ),
+            )
+        )
+    return out
+
+
+def _time_notes(ctx: _Context) -> list[Finding]:
+    """Levels that cannot be told apart from a change of the process in time."""
+    table = ctx.evidence.time_confounding
+    if not len(table):
+        return []
+    out = []
+    rows = table[table["confounded"]].sort_values("r2", ascending=False)
+    for (factor, level), group in rows.groupby(["factor", "level"], sort=False):
+        _, sentence, _ = _time_words(ctx, str(factor), str(level))
+        label = _label(str(factor), str(level))
+        out.append(
+            Finding(
+                kind="confounded",
+                title=f"{_cap(label)} and a change of the process in time cannot be told apart",
+                detail=(
+                    f"{sentence} A step in the process average at that time and an offset of "
+                    f"{label} are two readings of the same data; the step search keeps "
+                    f"the {factor} offsets in the series for that reason."
+                    if factor in ctx.evidence.measured_by
+                    else sentence
+                ),
+                factor=str(factor),
+                level=str(level),
+                start=group["start"].iloc[0] if pd.notna(group["start"].iloc[0]) else None,
+                caveat=f"The data cannot tell {label} from a change in time.",
+            )
+        )
+    return out
+
+
 def _capability_note(ctx: _Context) -> list[Finding]:
     cap = ctx.evidence.capability
     if cap is None:
@@ -699,9 +935,9 @@ def findings(
     >>> from qcexplore.demo import filling_line
     >>> s = qx.Study(filling_line()[0], value="net_g", subgroup="round", time="taken_at",
     ...              factors=["crew", "nozzle"], measured_by=["crew"], units="g")
-    >>> top = findings(s.evidence())[0]
-    >>> top.kind, top.level
-    ('measurement_offset', 'B')
+    >>> overview, top = findings(s.evidence())[:2]  # where the variation comes from, first
+    >>> overview.kind, top.kind, top.level
+    ('variance_split', 'measurement_offset', 'B')
     """
     alpha = real_number("alpha", alpha, lower=0, upper=1, inclusive=False, what="a level")
     if min_effect is not None:
@@ -724,5 +960,7 @@ def findings(
             found += _maker(ctx, test, min_share)(ctx, float(test.p_adjusted))
     found = _cross_references(ctx, found)
     found.sort(key=lambda f: -f.strength)
-    notes = (_confounded_notes(ctx) if ctx.v is not None else []) + _capability_note(ctx)
-    return found + notes
+    notes = (
+        _confounded_notes(ctx) + _nesting_notes(ctx) + _time_notes(ctx) if ctx.v is not None else []
+    ) + _capability_note(ctx)
+    return told(found + notes, evidence)

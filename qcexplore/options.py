@@ -19,6 +19,7 @@ from typing import Any, ClassVar
 
 from qcexplore.data.validate import column_names
 from qcexplore.errors import QCDataError
+from qcexplore.spec import Spec
 from qcexplore.stats.charts import check_chart_arguments
 from qcexplore.stats.rules import resolve_rules
 
@@ -48,7 +49,8 @@ class Control:
     """How one option is offered to people: its label, its choices (value -> words), its range.
 
     ``kind``: ``"choice"``, ``"number"`` (bounded), ``"optional_number"`` (empty for none),
-    ``"switch"``, or ``"hidden"`` (set by the program, e.g. from a selection on the chart).
+    ``"text"`` (empty for none), ``"switch"``, or ``"hidden"`` (set by the program, e.g.
+    from a selection on the chart).
     """
 
     label: str
@@ -109,7 +111,7 @@ def controls_of(options: type[Options] | Options) -> dict[str, Control]:
     Examples
     --------
     >>> list(controls_of(ChartOptions))[:3]
-    ['kind', 'by', 'limits']
+    ['kind', 'by', 'highlight']
     """
     return {
         f.name: f.metadata["control"]
@@ -151,6 +153,9 @@ class ChartOptions(Options):
 
     kind: str = option("auto", Control("Chart", choices=KIND_LABELS))
     by: str | None = option(None, Control("Split by", none_label="no split", css="split-by"))
+    highlight: str | None = option(
+        None, Control("Coloured level", none_label="the first", css="highlight")
+    )
     limits: str = option("pooled", Control("Limits", choices=LIMIT_LABELS))
     sigma_level: float = option(
         3.0, Control("Limits at ± sigma", "number", bounds=(1, 6), step=0.5)
@@ -186,17 +191,23 @@ class ChartOptions(Options):
                 raise QCDataError(f"{name}={getattr(self, name)!r}: give True or False.")
         if self.by is not None and not isinstance(self.by, str):
             raise QCDataError(f"by={self.by!r}: name one factor of the study, or None.")
+        if self.highlight is not None and not isinstance(self.highlight, str):
+            raise QCDataError(f"highlight={self.highlight!r}: name one level of the split.")
         if self.size is not None and not isinstance(self.size, str):
             raise QCDataError(f"size={self.size!r}: name the column with the number inspected.")
         resolve_rules(self.rules)
         check_chart_arguments(**self.chart_arguments())
 
+    #: Options of the picture only: they change no number of the chart.
+    DISPLAY_ONLY: ClassVar[tuple[str, ...]] = ("highlight",)
+
     def chart_arguments(self) -> dict[str, Any]:
-        """The keyword arguments of ``stats.charts.control_chart`` (all but the offsets)."""
+        """The keyword arguments of ``stats.charts.control_chart`` (all but the offsets and
+        the options of the picture)."""
         return {
             f.name: getattr(self, f.name)
             for f in dataclasses.fields(self)
-            if f.name != "adjust_for"
+            if f.name not in ("adjust_for", *self.DISPLAY_ONLY)
         }
 
 
@@ -225,3 +236,45 @@ class TimeOptions(Options):
         lag = self.max_lag
         if lag is not None and (isinstance(lag, bool) or not isinstance(lag, int) or lag < 1):
             raise QCDataError(f"max_lag={lag!r}: give a whole number of lags >= 1, or None.")
+
+
+@dataclass(frozen=True)
+class SpecOptions(Options):
+    """The specification typed in the explorer: either limit may be absent, and the units.
+
+    Examples
+    --------
+    >>> SpecOptions(lsl=500.0, units="g").spec().lsl
+    500.0
+    >>> SpecOptions().spec() is None
+    True
+    """
+
+    analysis: ClassVar[str] = "The specification"
+
+    lsl: float | None = option(None, Control("Lower limit", "optional_number", none_label="none"))
+    usl: float | None = option(None, Control("Upper limit", "optional_number", none_label="none"))
+    target: float | None = option(None, Control("Target", "optional_number", none_label="none"))
+    units: str | None = option(None, Control("Units", "text", none_label="none"))
+
+    def __post_init__(self) -> None:
+        if self.units is not None and not isinstance(self.units, str):
+            raise QCDataError(f"units={self.units!r}: give the unit as text, e.g. g or mm.")
+        if self.units is not None and not self.units.strip():
+            object.__setattr__(self, "units", None)
+        self.spec()  # the limits are checked by Spec, the one place that knows them
+
+    def spec(self) -> Spec | None:
+        """The specification, or None when no limit is given."""
+        if self.lsl is None and self.usl is None:
+            if self.target is not None:
+                raise QCDataError("A target alone is no specification: give a limit as well.")
+            return None
+        return Spec(lsl=self.lsl, usl=self.usl, target=self.target)
+
+    @classmethod
+    def of(cls, spec: Spec | None, units: str | None) -> SpecOptions:
+        """The options that stand for a study's specification and units."""
+        if spec is None:
+            return cls(units=units)
+        return cls(lsl=spec.lsl, usl=spec.usl, target=spec.target, units=units)

@@ -1,7 +1,9 @@
 """The HTML report: one self-contained file with the whole investigation, view by view.
 
-BokehJS is inlined from the installed bokeh package (no CDN, no external files),
-so the report opens on a machine without a network. Every string that comes from
+The findings come first, then a table of contents and one section per view. BokehJS is
+inlined once from the installed bokeh package (no CDN, no external files, and without the
+math-typesetting bundle, which no figure of ours uses), so the report opens on a machine
+without a network. Every string that comes from
 the data or the user is escaped. A section whose computation fails shows the
 error message in its place; the rest of the report is still written.
 """
@@ -17,11 +19,11 @@ from typing import Any
 import pandas as pd
 from bokeh.embed import components
 from bokeh.models import LayoutDOM
-from bokeh.resources import INLINE
+from bokeh.resources import Resources
 
 from qcexplore import views
 from qcexplore.caution import caution
-from qcexplore.views.base import View
+from qcexplore.views.base import Card, View
 from qcexplore.views.log import ExplorerState, load_log
 from qcexplore.views.text import log_html, table_html
 
@@ -32,7 +34,16 @@ table { border-collapse: collapse; margin: 0.5em 0 1em; font-size: 0.9em; }
 th, td { padding: 2px 8px; text-align: right; border-bottom: 1px solid #eee; }
 .qcx-caution { background: #f6f6f6; padding: 0.6em 1em; border-left: 4px solid #999; }
 .qcx-error { color: #b00020; }
+.qcx-card { border: 1px solid #ddd; border-radius: 6px; padding: 0.6em 1em; margin: 1em 0; }
+.qcx-card-headline { font-size: 1.25em; font-weight: bold; }
+.qcx-card-sentence { font-size: 1.1em; }
+nav.qcx-contents li { margin: 0.2em 0; }
 """
+#: BokehJS without its math-typesetting bundle: our figures use no TeX labels, and the
+#: bundle would load its typesetter from a CDN if one ever appeared.
+_BOKEHJS = Resources(
+    mode="inline", components=["bokeh", "bokeh-gl", "bokeh-widgets", "bokeh-tables"]
+)
 
 
 class _Page:
@@ -41,6 +52,7 @@ class _Page:
     def __init__(self) -> None:
         self.parts: list[str] = []
         self.figures: list[LayoutDOM] = []
+        self.contents: list[tuple[str, str]] = []
 
     def figure(self, layout: LayoutDOM) -> str:
         self.figures.append(layout)
@@ -58,9 +70,19 @@ class _Page:
                 f"{html.escape(kind + str(error))}</p>"
             )
         self.parts.append(f"<section id='{key}'><h2>{html.escape(heading)}</h2>{content}</section>")
+        self.contents.append((key, heading))
 
-    def render(self, title: str) -> str:
-        body = "".join(self.parts)
+    def render(self, title: str, caution_text: str) -> str:
+        items = "".join(
+            f"<li><a href='#{key}'>{html.escape(heading)}</a></li>"
+            for key, heading in self.contents
+        )
+        contents = f"<nav class='qcx-contents'><h2>Contents</h2><ol>{items}</ol></nav>"
+        # The findings first, then the contents; the caution closes the page as its small print
+        # (the findings board carries it too).
+        footer = f"<footer class='qcx-caution'>{html.escape(caution_text)}</footer>"
+        first, rest = self.parts[:1], self.parts[1:]
+        body = "".join([*first, contents, *rest, footer])
         script = ""
         if self.figures:
             script, divs = components(self.figures)
@@ -68,7 +90,7 @@ class _Page:
                 body = body.replace(f"<!--figure {i}-->", div)
         return (
             "<!DOCTYPE html>\n<html lang='en'><head><meta charset='utf-8'>"
-            f"<title>{html.escape(title)}</title>{INLINE.render()}"
+            f"<title>{html.escape(title)}</title>{_BOKEHJS.render()}"
             f"<style>{_STYLE}</style></head><body>"
             f"<h1>{html.escape(title)}</h1>{body}{script}</body></html>\n"
         )
@@ -96,6 +118,11 @@ def _spec_words(spec: dict[str, Any]) -> str:
     return ", ".join(f"{k} {v:g}" for k, v in spec.items() if v is not None)
 
 
+def _card(page: _Page, card: Card) -> str:
+    figure = page.figure(card.figure.build()) if card.figure is not None else ""
+    return f"<article class='qcx-card'>{card.html}{figure}{card.details}</article>"
+
+
 def _view_section(page: _Page, study: Any, view: View, state: ExplorerState) -> str:
     """One view as the report prints it: every choice of the result, then its variants."""
     why_not = view.available(study)
@@ -104,7 +131,8 @@ def _view_section(page: _Page, study: Any, view: View, state: ExplorerState) -> 
     options = view.options_for(study, state)
     result = view.compute(study, options)
     main = view.show(study, result)
-    parts = [page.figure(f.build()) for f in main.figures] + [main.html]
+    parts = [_card(page, c) for c in main.cards]
+    parts += [page.figure(f.build()) for f in main.figures] + [main.html]
     for choice in view.choices(study, result):
         shown = view.show_choice(study, result, choice)
         parts.append(f"<h3>{html.escape(view.choice_label)} {html.escape(choice)}</h3>")
@@ -129,9 +157,9 @@ def write_report(
 ) -> Path:
     """Write one self-contained HTML report of a Study and return its path.
 
-    Sections: the caution and the roles, then one section per registered view
-    (``qcexplore.views.VIEWS``, with the log's options and exclusions, if any), then the
-    investigation log.
+    Sections: one per registered view (``qcexplore.views.VIEWS``: the findings first, with
+    the log's options and exclusions, if any, then a table of contents), then the roles and
+    the investigation log, and the caution.
 
     Parameters
     ----------
@@ -157,11 +185,10 @@ def write_report(
     state = log or ExplorerState(value=study.value, subgroup=study.subgroup, time=study.time)
     title = title or (f"Investigation of {study.value} ({datetime.now(timezone.utc):%Y-%m-%d})")
     page = _Page()
-    page.parts.append(f"<p class='qcx-caution'>{html.escape(caution(study.units, study.spec))}</p>")
-    page.section("roles", "The study", lambda: _roles(study))
     for view in views.VIEWS:
         page.section(view.name, view.title, lambda v=view: _view_section(page, study, v, state))
+    page.section("roles", "The study", lambda: _roles(study))
     page.section("log", "Investigation log", lambda: log_html(state.exclusions, state.notes))
     path = Path(path)
-    path.write_text(page.render(title), encoding="utf-8")
+    path.write_text(page.render(title, caution(study.units, study.spec)), encoding="utf-8")
     return path

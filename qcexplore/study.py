@@ -15,18 +15,19 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from qcexplore.data.dates import check_time_line, parse_times
 from qcexplore.data.derive import DERIVED_FACTORS, derive_time_factors, shift_starts
 from qcexplore.data.io import read
+from qcexplore.data.numbers import numeric_values
 from qcexplore.data.validate import (
     DroppedRows,
     as_factor,
     check_role_names,
     column_names,
     finite_mask,
-    numeric_values,
-    parse_times,
     require_columns,
     require_frame,
+    require_text_names,
     row_list,
 )
 from qcexplore.errors import QCDataError
@@ -36,6 +37,7 @@ from qcexplore.stats.results import (
     CapabilityResult,
     ChartResult,
     Evidence,
+    Findings,
     TimeResult,
     VariationResult,
 )
@@ -96,7 +98,7 @@ class Study:
             shift_starts(shifts)
         # Positions 0..n-1 as the index: every message names rows of the table as given,
         # also after rows are dropped or sorted.
-        source = require_frame(read(frame)).reset_index(drop=True)
+        source = require_text_names(require_frame(read(frame)).reset_index(drop=True))
         require_columns(source, [value], "value")
         if subgroup is not None:
             require_columns(source, [subgroup], "subgroup")
@@ -109,6 +111,9 @@ class Study:
         data[value] = values[keep].to_numpy()
         if time is not None:
             data[time] = parse_times(data[time], time)
+            # Rows are still in the order given, so a time column that starts again in blocks
+            # (day of month beside a month) is refused before it is sorted into nonsense.
+            check_time_line(data, time, subgroup)
             for name, series in derive_time_factors(data[time], shifts).items():
                 if name not in data.columns:
                     data[name] = series
@@ -143,7 +148,7 @@ class Study:
         self._factors = factors
         self._measured_by = measured_by
         self._shifts = dict(shifts) if shifts is not None else None
-        self._spec = Spec(**spec) if isinstance(spec, Mapping) else spec
+        self._spec = Spec.coerce(spec)
         self._units = units
         self._dropped = dropped
         self._derived = tuple(derived_here)
@@ -171,14 +176,16 @@ class Study:
                 "fill it in or leave those rows out."
             )
         try:
-            order = pd.unique(labels.to_numpy())
-            data[subgroup] = pd.Categorical(labels.to_numpy(), categories=order, ordered=True)
+            # Codes in order of first appearance, which after the sort is the time order.
+            codes, order = pd.factorize(labels.to_numpy())
         except TypeError:  # unhashable cells (lists, dicts) cannot name a subgroup
             raise QCDataError(
                 f"Column {subgroup!r} (the subgroup) holds cells that are not single labels "
                 "(lists or tables); give each row one label such as a date, an hour or a lot."
             ) from None
-        codes = data[subgroup].cat.codes.to_numpy()
+        data[subgroup] = pd.Categorical.from_codes(codes, categories=pd.Index(order), ordered=True)
+        if codes.size and np.all(codes[1:] >= codes[:-1]):  # rows of a subgroup together already
+            return data.reset_index(drop=True)
         return data.iloc[np.argsort(codes, kind="stable")].reset_index(drop=True)
 
     # ---- roles -----------------------------------------------------------------
@@ -470,7 +477,7 @@ class Study:
         chosen = self._adjust_factors(options.adjust_for)
         # True and the list of every measured_by factor ask for the same chart: one cache entry.
         return self._cached(
-            ("chart", options.replace(adjust_for=chosen or False)),
+            ("chart", options.replace(adjust_for=chosen or False, highlight=None)),
             lambda: control_chart(
                 self._adjusted(chosen),
                 value=self._value,
@@ -525,27 +532,46 @@ class Study:
         """Autocorrelation and step changes of the subgroup means.
 
         The means are taken after removing the measured_by offsets, so a crew
-        that reads high is not mistaken for a step in the process.
+        that reads high is not mistaken for a step in the process. An offset that
+        could be a change of the process in time is not removed that way: the
+        offsets of a level present in only part of the record are estimated together
+        with a step where it starts or stops, and a factor with a level that cannot be
+        told apart from such a change keeps its offsets in the series
+        (``stats.variation.step_safe_offsets``; the notes say which).
         """
-        from qcexplore.stats.timeseries import time_structure
+        from dataclasses import replace
 
-        adjust = bool(self._measured_by)
-        return self._cached(
-            ("time", max_lag),
-            lambda: time_structure(
-                self._adjusted(adjust or None),
+        from qcexplore.stats.timeseries import time_structure
+        from qcexplore.stats.variation import adjusted_values, step_safe_offsets
+
+        def compute() -> TimeResult:
+            data, notes = self._data, ()
+            if self._measured_by:
+                offsets, notes = step_safe_offsets(
+                    self._data,
+                    value=self._value,
+                    subgroup=self.subgroup_column,
+                    measured_by=self._measured_by,
+                    factors=self.process_factors,
+                )
+                data = self._data.copy()
+                data[self._value] = adjusted_values(self._data, value=self._value, offsets=offsets)
+            result = time_structure(
+                data,
                 value=self._value,
                 subgroup=self.subgroup_column,
                 time=self._time,
                 max_lag=max_lag,
-            ),
-        )
+            )
+            return replace(result, notes=(*result.notes, *notes)) if notes else result
+
+        return self._cached(("time", max_lag), compute)
 
     def capability(self, spec: Spec | Mapping[str, float] | None = None) -> CapabilityResult:
         """Capability against the specification (the study's, or the one given)."""
-        from qcexplore.stats.capability import capability
+        from qcexplore.stats.capability import capability, chart_sigma_df
 
-        chosen = Spec(**spec) if isinstance(spec, Mapping) else (spec or self._spec)
+        chosen = Spec.coerce(spec) or self._spec
         if chosen is None:
             raise QCDataError(
                 "Capability needs a specification: give spec=qx.Spec(lsl=...) to the Study "
@@ -554,22 +580,28 @@ class Study:
 
         def compute() -> CapabilityResult:
             chart = self.chart()
+            # The within-subgroup sigma carries fewer degrees of freedom than N - 1: the
+            # intervals of Cp and Cpk use the estimator's own (from d2, d3 or c4).
+            df, words = chart_sigma_df(chart) or (None, "")
             return capability(
                 self._data,
                 value=self._value,
                 spec=chosen,
                 sigma_within=float(chart.limits["sigma"].iloc[0]),
                 in_control=not bool(chart.points["beyond"].any()),
+                sigma_df=df,
+                sigma_words=words,
             )
 
         return self._cached(("capability", chosen), compute)
 
-    def findings(self, **options: Any) -> list:
-        """Ranked plain-language findings, strongest first (``qcexplore.findings``)."""
+    def findings(self, **options: Any) -> Findings:
+        """Ranked plain-language findings, strongest first (``qcexplore.findings``); a list
+        that shows as cards in a notebook."""
         from qcexplore.findings import findings
 
         key = ("findings", tuple(sorted(options.items())))
-        return list(self._cached(key, lambda: tuple(findings(self.evidence(), **options))))
+        return Findings(self._cached(key, lambda: tuple(findings(self.evidence(), **options))))
 
     def evidence(self) -> Evidence:
         """Everything the findings cite (an ``Evidence``): the results and the tests on them.

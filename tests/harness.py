@@ -2,21 +2,30 @@
 
 ``launch`` starts ``qcexplore app`` in a process group of its own and ``stop`` ends it by its
 process id, with its kernels; ``private_environment`` keeps everything Jupyter writes under a
-temporary folder.
+temporary folder. ``fetch`` and ``websocket`` talk HTTP to loopback addresses only (any other
+host is refused before a byte is sent); ``kernel_pids`` and ``memory`` look at a server's
+kernels through Linux's /proc.
 """
 
 from __future__ import annotations
 
+import base64
 import collections
+import http.client
+import ipaddress
 import os
 import queue
 import signal
+import ssl
 import subprocess
 import sys
 import threading
 import time
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
+from urllib.parse import urlsplit
 
 
 def private_environment(
@@ -57,27 +66,36 @@ def launch(
     args: Sequence[str] = (),
     *,
     env: Mapping[str, str] | None = None,
-    timeout: float = 60.0,
+    cwd: str | os.PathLike | None = None,
+    timeout: float = 90.0,
+    said: list[str] | None = None,
 ) -> tuple[subprocess.Popen, str]:
     """Start ``qcexplore app ARGS`` in a process group of its own; return it and its address.
 
     For scripts and tests that need the app in the background. Stop it with
-    :func:`stop`, which ends the server and its kernels together.
+    :func:`stop`, which ends the server and its kernels together. ``cwd``: the folder it
+    runs in (default: the environment's HOME, so its default log folder lands there);
+    ``said``: a list that receives the lines it printed before the address (and the
+    address line), and the last lines of its stderr as they come.
 
     Examples
     --------
     """
+    environment = dict(os.environ if env is None else env)
     command = [sys.executable, "-m", "qcexplore", "app", *args]
+    folder = Path(cwd if cwd is not None else environment.get("HOME") or os.getcwd())
+    folder.mkdir(parents=True, exist_ok=True)
     process = subprocess.Popen(
         command,
-        env=dict(os.environ if env is None else env),
+        env=environment,
+        cwd=folder,
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,
         start_new_session=True,
     )
     lines: queue.Queue[str | None] = queue.Queue()
-    errors: collections.deque[str] = collections.deque(maxlen=5)
+    errors: collections.deque[str] = collections.deque(maxlen=5) if said is None else said
 
     def pump() -> None:
         # Keep reading for the server's lifetime so a full pipe never blocks it.
@@ -95,6 +113,8 @@ def launch(
             break
         if line is None:
             break
+        if said is not None:
+            said.append(line.rstrip("\n"))
         if line.startswith("qcexplore app: http"):
             return process, line.split()[2]
     stop(process)
@@ -123,3 +143,129 @@ def stop(process: subprocess.Popen, *, timeout: float = 20.0) -> int:
             os.killpg(process.pid, signal.SIGKILL)
             process.wait(timeout)
     return process.returncode
+
+
+def make_certificate(folder: Path) -> tuple[str, str]:
+    """A self-signed certificate for 127.0.0.1 and localhost and its key (openssl)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    cert, key = folder / "cert.pem", folder / "key.pem"
+    subprocess.run(
+        ["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-days", "2",
+         "-subj", "/CN=localhost", "-addext", "subjectAltName=DNS:localhost,IP:127.0.0.1",
+         "-keyout", str(key), "-out", str(cert)],
+        check=True, capture_output=True, timeout=60,
+    )  # fmt: skip
+    return str(cert), str(key)
+
+
+# ---- talking to a server on loopback ---------------------------------------------------------
+@dataclass
+class Response:
+    """An HTTP answer: status, headers (lower-case names) and body."""
+
+    status: int
+    headers: dict[str, str]
+    body: bytes
+
+    @property
+    def text(self) -> str:
+        return self.body.decode("utf-8", "replace")
+
+
+def _loopback(url: str) -> tuple[str, int, str, bool]:
+    parts = urlsplit(url)
+    host = parts.hostname or ""
+    if host != "localhost":
+        try:
+            if not ipaddress.ip_address(host).is_loopback:
+                raise ValueError
+        except ValueError:
+            raise AssertionError(f"tests talk to loopback only, not to {url!r}") from None
+    secure = parts.scheme == "https"
+    target = parts.path or "/"
+    if parts.query:
+        target += "?" + parts.query
+    return host, parts.port or (443 if secure else 80), target, secure
+
+
+def _connection(url: str, tls: ssl.SSLContext | None, timeout: float) -> tuple[Any, str]:
+    host, port, target, secure = _loopback(url)
+    if secure:
+        return http.client.HTTPSConnection(host, port, timeout=timeout, context=tls), target
+    return http.client.HTTPConnection(host, port, timeout=timeout), target
+
+
+def fetch(
+    url: str,
+    *,
+    method: str = "GET",
+    headers: Mapping[str, str] | None = None,
+    body: bytes | None = None,
+    tls: ssl.SSLContext | None = None,
+    timeout: float = 120.0,
+) -> Response:
+    """One HTTP request to a loopback address (no redirect followed); ``headers`` may set
+    Host and Origin to anything, as an attacker's page or a rebinding name would."""
+    connection, target = _connection(url, tls, timeout)
+    try:
+        connection.request(method, target, body=body, headers=dict(headers or {}))
+        answer = connection.getresponse()
+        return Response(answer.status, {k.lower(): v for k, v in answer.getheaders()},
+                        answer.read())  # fmt: skip
+    finally:
+        connection.close()
+
+
+def websocket(
+    url: str,
+    *,
+    headers: Mapping[str, str] | None = None,
+    tls: ssl.SSLContext | None = None,
+    timeout: float = 60.0,
+) -> tuple[int, http.client.HTTPConnection]:
+    """Open a websocket (the handshake only) to a loopback address (``ws://`` or ``wss://``);
+    return the status (101 when accepted) and the connection, which holds the websocket open
+    until closed."""
+    connection, target = _connection(url.replace("ws", "http", 1), tls, timeout)
+    key = base64.b64encode(os.urandom(16)).decode()
+    shake = {"Connection": "Upgrade", "Upgrade": "websocket", "Sec-WebSocket-Version": "13",
+             "Sec-WebSocket-Key": key, **dict(headers or {})}  # fmt: skip
+    connection.request("GET", target, headers=shake)
+    return connection.getresponse().status, connection
+
+
+def kernel_pids(server: int) -> list[int]:
+    """The kernel processes the server ``server`` (a process id) runs now (Linux /proc)."""
+    found = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+            command = (stat.parent / "cmdline").read_bytes()
+        except OSError:  # the process ended meanwhile
+            continue
+        if int(fields[1]) == server and b"ipykernel" in command:
+            found.append(int(stat.parent.name))
+    return found
+
+
+def memory(pid: int) -> dict[str, int]:
+    """Resident (``rss``) and proportional (``pss``: shared pages split among their users)
+    memory of a process in bytes."""
+    found = {}
+    for line in Path(f"/proc/{pid}/smaps_rollup").read_text().splitlines():
+        name, _, value = line.partition(":")
+        if name in ("Rss", "Pss"):
+            found[name.lower()] = int(value.split()[0]) * 1024
+    return found
+
+
+def wait_until(condition: Callable[[], Any], seconds: float, what: str) -> Any:
+    """Poll ``condition`` until it is true (returned) or ``seconds`` pass (AssertionError)."""
+    deadline = time.monotonic() + seconds
+    while True:
+        value = condition()
+        if value:
+            return value
+        if time.monotonic() > deadline:
+            raise AssertionError(f"{what} within {seconds:g} s")
+        time.sleep(0.25)

@@ -24,10 +24,12 @@ PACKAGE = Path(qcexplore.__file__).parent
 #: draw, app and report) may not import each other.
 LAYERS: list[tuple[str, ...]] = [
     ("qcexplore.errors",),
-    ("qcexplore.spec", "qcexplore.caution", "qcexplore.demo"),
+    ("qcexplore.caution", "qcexplore.demo"),
     ("qcexplore.data",),
+    ("qcexplore.spec",),
     ("qcexplore.stats",),
     ("qcexplore.options",),
+    ("qcexplore.story",),
     ("qcexplore.findings", "qcexplore.draw"),
     ("qcexplore.study",),
     ("qcexplore.views",),

@@ -117,9 +117,30 @@ def snap(page: Any, shots: Path, name: str) -> None:
     page.screenshot(path=str(shots / f"{name}.png"), full_page=True)
 
 
+#: How many BokehJS documents hold a model named ``arg``.
+COUNT = (
+    "(name) => (window.Bokeh ? Bokeh.documents : []).filter(d => d.get_model_by_name(name)).length"
+)
+
+
+def open_chart_tab(page: Any) -> None:
+    """Bring the Chart view to the front and wait until its figure is in the page (the
+    findings board holds a chart of its own in a card: the view's is the second, and the
+    newest)."""
+    page.get_by_role("tab", name="Chart", exact=True).click()
+    page.locator(".qcx-split-by select").wait_for(state="visible", timeout=CHART_WAIT_MS)
+    page.wait_for_function(f"() => ({COUNT})('chart_points') >= 2", timeout=CHART_WAIT_MS)
+    wait_for_chart(page)
+
+
+def wait_for_board(page: Any) -> None:
+    """The findings board is on screen with its first card."""
+    page.locator(".qcx-card").first.wait_for(state="visible", timeout=CHART_WAIT_MS)
+
+
 def wait_for_chart(page: Any) -> None:
-    """The chart canvas is on screen and the points source is in BokehJS."""
-    page.locator("canvas").first.wait_for(state="visible", timeout=CHART_WAIT_MS)
+    """The Chart view's canvas is on screen and the points source is in BokehJS."""
+    page.locator(".qcx-panel-chart canvas").first.wait_for(state="visible", timeout=CHART_WAIT_MS)
     page.wait_for_function(js("const m = find('chart_points'); return m && m.get_length() > 0;"),
                            timeout=CHART_WAIT_MS)  # fmt: skip
 
@@ -191,26 +212,128 @@ def app(browser: Any, shots: Path, tmp_path_factory: pytest.TempPathFactory) -> 
         tab = new_tab(browser)
         tab.page.goto(address, timeout=CHART_WAIT_MS)
         opened = time.perf_counter()
-        wait_for_chart(tab.page)
-        drawn = time.perf_counter()
+        wait_for_board(tab.page)
+        board = time.perf_counter()
         tab.timing = {
             "server start to address": listening,
-            "server start to chart on screen": drawn - started,
-            "page open to chart on screen": drawn - opened,
+            "server start to findings board on screen": board - started,
+            "page open to findings board on screen": board - opened,
         }
-        snap(tab.page, shots, "1-chart")
+        snap(tab.page, shots, "1-findings-board")
         yield tab
     finally:
         harness.stop(process)
 
 
-def test_served_chart_is_on_screen(app: Tab, capsys: pytest.CaptureFixture) -> None:
+def test_the_findings_board_is_the_first_view(app: Tab, capsys: pytest.CaptureFixture) -> None:
     page = app.page
     with capsys.disabled():
         for what, seconds in app.timing.items():
-            print(f"\n{what}: {seconds:.1f} s (target for the chart: under 15 s)", end="")
+            print(f"\n{what}: {seconds:.1f} s (target: under 15 s)", end="")
         print()
-    assert page.locator("canvas").first.is_visible()
+    selected = page.locator(".qcx-panels .lm-TabBar-tab.lm-mod-current").inner_text()
+    assert selected.strip() == "What the data say"
+    found = serve.demo_study().findings()
+    cards = page.locator(".qcx-card")
+    assert cards.count() == len(found)
+    for i, finding in enumerate(found):
+        assert finding.title in cards.nth(i).locator(".qcx-card-headline").inner_text()
+    # Every card's figure holds data: one drawn canvas per card, and each card's document has
+    # a data source with rows.
+    for i in range(cards.count()):
+        cards.nth(i).locator("canvas").first.wait_for(state="visible", timeout=CHART_WAIT_MS)
+    filled = page.evaluate(
+        "() => Bokeh.documents.filter(d => [...d.all_models].some("
+        "m => m.get_length && m.get_length() > 0)).length"
+    )
+    assert filled >= cards.count()
+    assert app.errors == []
+
+
+def test_show_this_sets_the_explorer_to_the_evidence(app: Tab, shots: Path) -> None:
+    page = app.page
+    found = serve.demo_study().findings()
+    index = next(i for i, f in enumerate(found) if f.kind == "measurement_offset")
+    before = page.evaluate(COUNT, "chart_points")
+    page.locator(".qcx-card").nth(index).locator("button.qcx-show-this").click()
+    page.wait_for_function(f"(n) => ({COUNT})('chart_points') > n", arg=before,
+                           timeout=CHART_WAIT_MS)  # fmt: skip
+    selected = page.locator(".qcx-panels .lm-TabBar-tab.lm-mod-current").inner_text()
+    assert selected.strip() == "Chart"
+    page.wait_for_function(
+        js(f"const c = (() => {{ {POINT_COLOURS} }})(); return Object.keys(c).length === 3;"),
+        timeout=UPDATE_WAIT_MS,
+    )
+    snap(page, shots, "2-show-this-crew")
+    assert sorted(point_colours(page)) == ["A", "B", "C"]  # split by crew, as the card said
+    assert page.locator(".qcx-split-by select").input_value() == "crew"
+    assert app.errors == []
+
+
+def test_nothing_overflows_at_projector_sizes(app: Tab, shots: Path) -> None:
+    page = app.page
+    for width, height in ((1024, 768), (1920, 1080)):
+        page.set_viewport_size({"width": width, "height": height})
+        page.get_by_role("tab", name="What the data say").click()
+        wait_for_board(page)
+        page.wait_for_timeout(500)
+        snap(page, shots, f"3-board-{width}x{height}")
+        wide = page.evaluate(
+            "() => [...document.querySelectorAll('.qcx-explorer *')]"
+            ".filter(e => e.offsetParent !== null && e.getBoundingClientRect().right"
+            " > document.documentElement.clientWidth + 1)"
+            ".map(e => e.className || e.tagName).slice(0, 5)"
+        )
+        assert wide == [], (width, wide)
+    page.set_viewport_size({"width": 1400, "height": 1000})
+
+
+def test_presentation_mode_enlarges_the_text(app: Tab, shots: Path) -> None:
+    page = app.page
+    page.get_by_role("tab", name="What the data say").click()
+    headline = page.locator(".qcx-card-headline").first
+    size = float(headline.evaluate("e => parseFloat(getComputedStyle(e).fontSize)"))
+    page.locator("button.qcx-presentation").click()
+    page.wait_for_function(
+        "(s) => parseFloat(getComputedStyle(document.querySelector('.qcx-card-headline'))"
+        ".fontSize) > s * 1.3",
+        arg=size,
+        timeout=UPDATE_WAIT_MS,
+    )
+    snap(page, shots, "4-presentation-mode")
+    assert not page.locator(".qcx-log").is_visible()  # the log is out of the way
+    page.locator("button.qcx-presentation").click()
+    page.locator(".qcx-log").wait_for(state="visible", timeout=UPDATE_WAIT_MS)
+
+
+def test_a_specification_typed_in_changes_the_capability_card(app: Tab, shots: Path) -> None:
+    page = app.page
+    page.get_by_role("tab", name="Against the specification").click()
+    field = page.locator(".qcx-lsl input")
+    field.wait_for(state="visible", timeout=UPDATE_WAIT_MS)
+    field.fill("503")
+    field.press("Enter")
+    page.get_by_role("tab", name="What the data say").click()
+    page.locator(".qcx-card-headline", has_text="LSL 503 g").wait_for(timeout=CHART_WAIT_MS)
+    snap(page, shots, "5-spec-typed")
+    field = page.locator(".qcx-lsl input")
+    page.get_by_role("tab", name="Against the specification").click()
+    field.fill("500")  # back to the demo's minimum fill for the tests that follow
+    field.press("Enter")
+    page.get_by_role("tab", name="What the data say").click()
+    page.locator(".qcx-card-headline", has_text="LSL 500 g").wait_for(timeout=CHART_WAIT_MS)
+    assert app.errors == []
+
+
+def test_served_chart_is_on_screen(app: Tab) -> None:
+    page = app.page
+    open_chart_tab(page)
+    page.select_option(".qcx-split-by select", label="no split")
+    page.wait_for_function(
+        js(f"const c = (() => {{ {POINT_COLOURS} }})(); return Object.keys(c)[0] === '';"),
+        timeout=UPDATE_WAIT_MS,
+    )
+    assert page.locator(".qcx-panel-chart canvas").first.is_visible()
     count = page.evaluate(js("return find('chart_points').get_length();"))
     expected = len(serve.demo_study().subgroups)
     assert count == expected  # one point per hourly round of the demo
@@ -226,9 +349,14 @@ def test_split_by_recolours_the_points(app: Tab, shots: Path) -> None:
     assert sorted(colours) == ["A", "B", "C"]
     assert all(len(c) == 1 for c in colours.values())  # one colour per crew
     assert len({c[0] for c in colours.values()}) == 3  # and a different one for each
-    colours = split_by(page, "nozzle", 6)
-    snap(page, shots, "3-split-by-nozzle")
-    assert sorted(colours) == ["1", "2", "3", "4", "5", "6"]
+    split_by(page, "shift", 3)  # three crews, three shifts: wait for the shifts' names
+    page.wait_for_function(
+        js(f"const c = (() => {{ {POINT_COLOURS} }})(); return 'early' in c;"),
+        timeout=UPDATE_WAIT_MS,
+    )
+    colours = point_colours(page)
+    snap(page, shots, "3-split-by-shift")
+    assert sorted(colours) == ["early", "late", "night"]
     assert all(len(c) == 1 for c in colours.values())
     assert list(split_by(page, "no split", 1)) == [""]
     assert app.errors == []
@@ -267,6 +395,24 @@ def test_excluding_a_point_changes_the_limits(app: Tab, shots: Path) -> None:
     assert app.errors == []
 
 
+def test_a_factor_inside_subgroups_keeps_the_subgroup_chart(app: Tab, shots: Path) -> None:
+    # Nozzles change inside each hourly round: the chart of the rounds stays, and each nozzle
+    # appears as its own series below it.
+    page = app.page
+    page.select_option(".qcx-split-by select", label="nozzle")
+    levels = page.locator(".qcx-figure-chart_levels canvas").first
+    levels.wait_for(state="visible", timeout=UPDATE_WAIT_MS)
+    snap(page, shots, "5-nozzle-as-its-own-series")
+    assert page.locator(".qcx-figure-chart canvas").first.is_visible()
+    assert "each nozzle" in page.locator(".qcx-status").inner_text()
+    page.select_option(".qcx-split-by select", label="no split")
+    page.locator(".qcx-status", has_text="X-bar and R), 672 points,").wait_for(
+        timeout=UPDATE_WAIT_MS
+    )
+    assert page.locator(".qcx-figure-chart_levels canvas").count() == 0
+    assert app.errors == []
+
+
 def test_findings_list_the_injected_effects(app: Tab, shots: Path) -> None:
     page = app.page
     _, truth = filling_line()
@@ -287,7 +433,7 @@ def test_findings_list_the_injected_effects(app: Tab, shots: Path) -> None:
         title({"autocorrelation"}),
     ]
     page.get_by_role("tab", name="What the data say").click()
-    titles = page.locator(".qcx-findings li b")
+    titles = page.locator(".qcx-card-headline")
     titles.first.wait_for(timeout=60_000)
     snap(page, shots, "5-findings")
     shown = titles.all_inner_texts()
@@ -373,7 +519,8 @@ def test_explorer_renders_and_updates_in_jupyterlab(
         )
         started = time.perf_counter()
         page.evaluate("() => window.jupyterapp.commands.execute('notebook:run-all-cells')")
-        wait_for_chart(page)
+        wait_for_board(page)
+        open_chart_tab(page)
         with capsys.disabled():
             print(f"\nJupyterLab: run all cells to chart on screen: "
                   f"{time.perf_counter() - started:.1f} s")  # fmt: skip

@@ -1,16 +1,14 @@
-"""The command line: exit codes, one-line errors, the token rule of the served app, the demo
-and report commands, and the app folder handed to the served notebook. No browser here
-(tests/test_browser.py drives the page)."""
+"""The command line: exit codes, one-line errors, the served app's start checks (token, TLS,
+the --log), the demo and report commands, and the app folder handed to the served notebook.
+No browser here (tests/test_browser.py and tests/test_app_log.py drive the page), and no server
+(tests/test_serve.py starts them)."""
 
 from __future__ import annotations
 
+import json
 import os
-import signal
 import subprocess
 import sys
-import time
-import urllib.error
-import urllib.request
 from collections.abc import Callable
 from pathlib import Path
 
@@ -65,7 +63,8 @@ def test_help_lists_commands_and_examples(capsys: pytest.CaptureFixture) -> None
     assert all(word in out for word in ("app", "report", "demo", "examples:"))
     code, out, _ = run(["app", "--help"], capsys)
     assert code == 0
-    assert "--token" in out and "--measured-by" in out and "--shifts" in out
+    assert "--token-file" in out and "--measured-by" in out and "--shifts" in out
+    assert "QCEXPLORE_APP_TOKEN" in out and "--certfile" in out and "--max-pages" in out
 
 
 def test_study_options_become_study_roles() -> None:
@@ -95,7 +94,12 @@ def test_demo_roles_build_the_demo_study() -> None:
 @pytest.mark.parametrize(
     "args, names",
     [
-        (["app", "--host", "0.0.0.0"], "--token"),
+        (["app", "--idle-timeout", "0"], "--idle-timeout"),
+        (["app", "--connect-timeout", "-5"], "--connect-timeout"),
+        (["app", "--max-pages", "0"], "--max-pages"),
+        (["app", "--keyfile", "key.pem"], "--keyfile"),
+        (["app", "--certfile", "missing-cert.pem"], "missing-cert.pem"),
+        (["app", "--token-file", "missing-token.txt"], "missing-token.txt"),
         (["report", "x.csv"], "--output"),
         (["report", "x.csv", "-o", "r.html"], "--value"),
         (["report", "x.csv", "-o", "r.html", "--value", "w", "--shifts", "early"], "early"),
@@ -117,22 +121,52 @@ def test_bad_arguments_exit_2_with_one_line(
     assert names in one_line_error(err)
 
 
-def test_network_host_without_token_is_refused_before_anything_starts(
-    capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch
+def test_the_token_is_never_taken_from_the_command_line(
+    capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch, tmp_path: Path
 ) -> None:
-    real_serve = serve.serve
     monkeypatch.setattr(serve, "serve", lambda *a, **k: pytest.fail("server started"))
-    code, _, err = run(["app", "--host", "0.0.0.0"], capsys)
-    assert code == 2
-    assert "0.0.0.0" in one_line_error(err) and "--token" in err
-    with pytest.raises(cli.QCDataError, match="token"):
-        real_serve(Study(filling_line(days=1)[0], value="net_g"), host="0.0.0.0")
+    secret = "s3cret-on-the-command-line"
+    for args in (["app", "--token", secret], [f"--token={secret}"], ["app", "--token"]):
+        code, _, err = run(args if args[0] == "app" else ["app", *args], capsys)
+        assert code == 2 and "QCEXPLORE_APP_TOKEN" in one_line_error(err)
+        assert secret not in err  # not repeated where a log or a screen would keep it
+
+
+def test_the_token_comes_from_a_file_or_the_environment(tmp_path: Path) -> None:
+    token = "t" * 24
+    (tmp_path / "token").write_text(f"  {token}  \nsecond line ignored\n")
+    environ = {serve.TOKEN_ENV: "e" * 20, "OTHER": "x"}
+    assert serve.read_token(tmp_path / "token", environ) == token
+    assert serve.TOKEN_ENV not in environ  # read once and removed: kernels do not inherit it
+    environ = {serve.TOKEN_ENV: "e" * 20}
+    assert serve.read_token(None, environ) == "e" * 20 and environ == {}
+    assert serve.read_token(None, {}) is None
+    (tmp_path / "short").write_text("abc\n")
+    with pytest.raises(cli.QCDataError, match="3 characters long"):
+        serve.read_token(tmp_path / "short", {})
+    with pytest.raises(cli.QCDataError, match="0 characters long"):
+        serve.read_token(None, {serve.TOKEN_ENV: "   "})
+
+
+def test_a_certificate_that_does_not_fit_its_key_is_refused(tmp_path: Path) -> None:
+    first, second = (
+        harness.make_certificate(tmp_path / "a"),
+        harness.make_certificate(tmp_path / "b"),
+    )
+    assert serve.tls_context(*first) is not None
+    with pytest.raises(cli.QCDataError, match="certificate"):
+        serve.tls_context(first[0], second[1])
+    (tmp_path / "junk.pem").write_text("not a certificate")
+    with pytest.raises(cli.QCDataError, match="junk.pem"):
+        serve.tls_context(str(tmp_path / "junk.pem"), None)
 
 
 def test_busy_port_exits_2_before_serving(
-    capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch
+    capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch, tmp_path: Path
 ) -> None:
     import socket
+
+    monkeypatch.chdir(tmp_path)
 
     with socket.socket() as taken:
         taken.bind(("127.0.0.1", 0))
@@ -173,6 +207,50 @@ def test_bad_data_exit_2_with_one_line_naming_the_problem(
     assert not (tmp_path / "r.html").exists()
 
 
+def test_a_log_the_page_would_refuse_stops_the_app_at_start(
+    demo_csv: Path, tmp_path: Path, capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Finding 7: --log is opened at start as each page opens it; a bad one is one line, exit 2."""
+    from qcexplore.app.explorer import Explorer
+
+    monkeypatch.chdir(tmp_path)
+    started: list[serve.AppSettings] = []
+    monkeypatch.setattr(serve, "serve", lambda study, settings, **k: started.append(settings))
+    args = cli.build_parser().parse_args(["app", str(demo_csv), *DEMO_ARGS])
+    study, _found = cli.load_study(str(demo_csv), cli.study_roles(args))
+    good = Explorer(study).save(tmp_path / "good.json")
+    saved = json.loads(good.read_text())
+
+    def variant(name: str, change: Callable[[dict], None]) -> Path:
+        content = json.loads(json.dumps(saved))
+        change(content)
+        (tmp_path / name).write_text(json.dumps(content))
+        return tmp_path / name
+
+    cases = {
+        # the right fingerprint, a state these data cannot take: passed the old start check
+        variant("column.json", lambda c: c["state"].update(value="weight_g")): "weight_g",
+        variant(
+            "sigma.json", lambda c: c["state"].update(options={"chart": {"sigma_level": "three"}})
+        ): "sigma",  # fmt: skip
+        variant("other.json", lambda c: c.update(fingerprint="0" * 16)): "other data",
+    }
+    pipe = tmp_path / "pipe.json"
+    os.mkfifo(pipe)
+    cases[pipe] = "not a regular file"
+    for log, named in cases.items():
+        code, _, err = run(["app", str(demo_csv), *DEMO_ARGS, "--log", str(log)], capsys)
+        # (What was found in the data file may be said before: the problem is one line.)
+        assert code == 2 and "Traceback" not in err, (log, err)
+        assert named in err.strip().splitlines()[-1], (log, err)
+    assert started == []
+    code, _, err = run(["app", str(demo_csv), *DEMO_ARGS, "--log", str(good)], capsys)
+    assert code == 0, err
+    (settings,) = started
+    assert settings.log == str(good.resolve())
+    assert Path(settings.log_folder) == (tmp_path / "qcexplore-logs").resolve()
+
+
 def test_unexpected_error_exits_1_with_traceback(
     demo_csv: Path, capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch
 ) -> None:
@@ -199,7 +277,7 @@ def test_progress_is_shown_on_stderr_while_a_large_file_loads(
         return real(path, sheet=sheet)
 
     monkeypatch.setattr(io, "read", large)
-    study = cli.load_study(str(demo_csv), {"value": "net_g"})
+    study, _found = cli.load_study(str(demo_csv), {"value": "net_g"})
     assert study.value == "net_g"
     err = capsys.readouterr().err
     assert [line for line in err.splitlines() if line] == [
@@ -255,7 +333,7 @@ def test_report_passes_the_log_and_title(
 # ---- the served app ----------------------------------------------------------------------------
 def test_app_folder_round_trip(tmp_path: Path) -> None:
     study = Study(filling_line(days=2)[0], **serve.DEMO_ROLES)
-    settings = serve.AppSettings(title="fills.csv", workdir=str(tmp_path), log=None)
+    settings = serve.AppSettings(title="fills.csv", log=None, log_folder=str(tmp_path / "logs"))
     config = serve.write_app_folder(study, tmp_path, settings)
     back, settings_back = serve.load_app_study(config)
     assert settings_back == settings
@@ -264,82 +342,20 @@ def test_app_folder_round_trip(tmp_path: Path) -> None:
     assert (tmp_path / serve.NOTEBOOK).read_text().count("app_view()") == 1
 
 
-def test_voila_arguments_cull_idle_kernels_and_preheat() -> None:
-    args = serve.voila_arguments(
-        Path("/x/app.ipynb"), host="127.0.0.1", port=8123, token="t", idle_timeout=300,
-        preheat=True,
-    )  # fmt: skip
-    assert "--MappingKernelManager.cull_idle_timeout=300" in args
-    assert any(a.startswith("--MappingKernelManager.cull_interval=") for a in args)
-    assert {"--preheat_kernel=True", "--pool_size=1", "--token=t", "--port=8123"} <= set(args)
-    assert "--Voila.ip=127.0.0.1" in args
+def test_voila_config_culls_kernels_and_reads_no_config_files() -> None:
+    from qcexplore.app.server import voila_config
 
-
-def _status(url: str) -> tuple[int, str]:
-    class NoRedirect(urllib.request.HTTPRedirectHandler):
-        def redirect_request(self, *args: object, **kwargs: object) -> None:
-            return None
-
-    try:
-        with urllib.request.build_opener(NoRedirect).open(url, timeout=60) as response:
-            return response.status, response.read().decode("utf-8", "replace")
-    except urllib.error.HTTPError as error:
-        return error.code, error.headers.get("Location") or ""
-
-
-def kernels_of(pid: int) -> int:
-    """How many kernel processes the server ``pid`` runs (Linux /proc)."""
-    count = 0
-    for stat in Path("/proc").glob("[0-9]*/stat"):
-        try:
-            fields = stat.read_text().rsplit(")", 1)[1].split()
-            command = (stat.parent / "cmdline").read_bytes()
-        except OSError:  # the process ended meanwhile
-            continue
-        count += int(fields[1]) == pid and b"ipykernel" in command
-    return count
-
-
-def wait_until(condition: Callable[[], bool], seconds: float, what: str) -> None:
-    deadline = time.monotonic() + seconds
-    while not condition():
-        if time.monotonic() > deadline:
-            pytest.fail(f"{what} within {seconds:g} s")
-        time.sleep(0.2)
-
-
-def test_token_guards_the_app_idle_kernels_go_and_ctrl_c_stops_it(tmp_path: Path) -> None:
-    token = "test-token-7f3a"
-    process, address = harness.launch(
-        ["--token", token, "--idle-timeout", "2"], env=environment(tmp_path)
-    )
-    try:
-        assert address.endswith(f"/?token={token}")
-        base = address.split("?")[0]
-        for path in ("", "api/kernels/0"):  # the page and the kernel API, without the token
-            status, where = _status(base + path)
-            assert status == 403 or (status == 302 and "/login" in where), (path, status, where)
-        wait_until(lambda: kernels_of(process.pid) == 1, 60, "the warm kernel did not start")
-        status, page = _status(address)
-        assert status == 200 and "voila" in page.lower()
-        # The page took the warm kernel and a new one is warmed; the page's kernel, with no
-        # browser connected to it, is shut down once idle for 2 s.
-        wait_until(lambda: kernels_of(process.pid) == 2, 60, "no new warm kernel")
-        wait_until(lambda: kernels_of(process.pid) == 1, 30, "the idle kernel was not culled")
-        # Ctrl-C (SIGINT to the server) shuts the kernels down and exits 0.
-        process.send_signal(signal.SIGINT)
-        assert process.wait(60) == 0
-
-        def group_gone() -> bool:
-            try:
-                os.killpg(process.pid, 0)
-            except ProcessLookupError:
-                return True
-            return False
-
-        wait_until(group_gone, 20, "kernels of the stopped app are still running")
-    finally:
-        harness.stop(process)
+    config = voila_config(host="127.0.0.1", port=8123, root=Path("/x"), token="t" * 20,
+                          idle_timeout=300, connect_timeout=120)  # fmt: skip
+    assert config.MappingKernelManager.cull_idle_timeout == 300
+    assert config.MappingKernelManager.cull_interval == 10  # well inside the two minutes
+    assert config.PageKernelManager.connect_timeout == 120.0
+    assert config.Voila.token == "t" * 20 and config.Voila.ip == "127.0.0.1"
+    assert config.Voila.config_file_paths == [] and config.VoilaConfiguration.file_allowlist == []
+    assert config.VoilaConfiguration.preheat_kernel is False  # no /voila/query endpoint
+    # The defaults of the command line: a page's kernel that never connected goes in 2 minutes.
+    args = cli.build_parser().parse_args(["app"])
+    assert (args.connect_timeout, args.idle_timeout) == (120.0, 900.0)
 
 
 def test_python_dash_m_runs_the_command_line(tmp_path: Path) -> None:

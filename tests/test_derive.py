@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -74,3 +75,34 @@ def test_bad_shift_maps(shifts, message) -> None:
     times = pd.Series(pd.to_datetime(["2026-09-08 02:00"]))
     with pytest.raises(QCDataError, match=message):
         assign_shifts(times, shifts)
+
+
+@pytest.mark.parametrize("zone", [None, "Europe/Berlin", "America/New_York"])
+@pytest.mark.parametrize("shifts", [None, SHIFTS])
+def test_derived_factors_equal_a_row_by_row_reference(zone, shifts) -> None:
+    # Reference: pandas' own per-row accessors (dt.hour, dt.strftime("%Y-%m-%d"),
+    # dt.day_name()) on every timestamp, the production day moved back a day before the
+    # first shift starts. Two months of random minutes cross a daylight-saving change.
+    rng = np.random.default_rng(7)
+    minutes = np.sort(rng.integers(0, 60 * 24 * 61, 3000))
+    times = pd.Series(pd.Timestamp("2026-03-01", tz="UTC") + pd.to_timedelta(minutes, "min"))
+    times = times.dt.tz_convert(zone) if zone else times.dt.tz_localize(None)
+    out = derive_time_factors(times, shifts)
+    assert out["hour"].tolist() == times.dt.hour.tolist()
+    local = times.dt.tz_localize(None)
+    day = local.dt.normalize()
+    if shifts is not None:
+        day = day - pd.to_timedelta((local.dt.hour < 6).astype(int), unit="D")
+        assert out["shift"].tolist() == assign_shifts(times, shifts)[0].tolist()
+    assert out["day"].astype(str).tolist() == day.dt.strftime("%Y-%m-%d").tolist()
+    assert out["weekday"].astype(str).tolist() == day.dt.day_name().tolist()
+    days = sorted(set(day.dt.strftime("%Y-%m-%d")))
+    assert list(out["day"].cat.categories) == days
+    assert list(out["hour"].cat.categories) == sorted(set(times.dt.hour))
+
+
+def test_missing_times_stay_missing() -> None:
+    times = pd.Series(pd.to_datetime(["2026-09-08 02:00", None, "2026-09-09 07:00"]))
+    out = derive_time_factors(times, SHIFTS)
+    assert [bool(v.isna().iloc[1]) for v in out.values()] == [True] * 4
+    assert out["day"].astype(str).tolist()[::2] == ["2026-09-07", "2026-09-09"]

@@ -626,6 +626,7 @@ def test_no_strata_draws_one_neutral_colour_and_no_legend():
         "value",
         "subgroup",
         "n",
+        "point",
         "excluded",
         "time",
     }
@@ -695,16 +696,16 @@ def _refresh_message_sizes(k: int) -> tuple[int, int]:
 
 
 def test_refresh_sends_point_columns_as_binary_buffers():
-    k = 5000
+    k = parts.REDUCE_FROM // 2  # k and 2k points are all drawn (no reduction, no statement)
     text, binary = _refresh_message_sizes(k)
     more_text, more_binary = _refresh_message_sizes(2 * k)
-    # 2 x 5000 points and 2 x 1667 signals, each some 5-7 number columns of 4-8 bytes
+    # 2 x k points and 2 x k/3 signals, each some 5-7 number columns of 4-8 bytes
     assert binary > 8 * 2 * k and more_binary > 2 * 8 * 2 * k
     # the text is the column headers and the small lookup sources (some 10,000 characters,
     # a little more late in a long run, as bokeh's model ids lengthen)
-    assert text < 3 * k
+    assert text < 15_000
     # and it does not grow with the points: one text column would add at least 4 characters
-    # for each of the 2 x 5000 added rows, 40,000 in all
+    # for each of the 2 x k added rows
     assert more_text - text < 100
 
 
@@ -943,18 +944,115 @@ def test_anom_rings_the_levels_the_result_marks():
 # --- large series -----------------------------------------------------------------------
 
 
-def test_250k_points_build_with_webgl_and_without_the_line():
+def test_250k_points_build_with_webgl_from_a_display_reduction():
     result = chart_result(k=250_000, strata=("A", "B", "C"), secondary=True, signals=(5, 100_000))
+    before = result.points.copy()
     layout = draw.chart_figure(result)
     models = named(layout)
     assert models["chart"].output_backend == "webgl"
     assert models["secondary_chart"].output_backend == "webgl"
-    assert len(models["chart_points"].data["x"]) == 250_000
-    assert len(models["chart_line"].data["x0"]) == 0
+    shown = len(models["chart_points"].data["x"])
+    # at most the lowest and highest per pixel column and colour, the ends, the signals
+    assert shown <= 3 * (2 * parts.WIDTH + 2) + 2
+    assert len(models["chart_line"].data["x0"]) == shown - 1  # joined again, in time order
     assert len(models["chart_signals"].data["x"]) == 2
+    pd.testing.assert_frame_equal(result.points, before)  # only what is sent is reduced
     small = named(draw.chart_figure(chart_result()))
     assert small["chart"].output_backend == "canvas"
     assert len(small["chart_line"].data["x0"]) == 19
+
+
+def _bins(x: np.ndarray, columns: int) -> np.ndarray:
+    """Pixel column of each x: ``columns`` equal slices of the x range (the last closed)."""
+    span = x.max() - x.min()
+    scale = columns / span if span > 0 else 0.0
+    return np.minimum(np.floor((x - x.min()) * scale), columns - 1).astype(int)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    values=st.lists(
+        st.one_of(st.floats(-1e6, 1e6), st.just(float("nan"))), min_size=1, max_size=300
+    ),
+    data=st.data(),
+)
+def test_display_rows_keep_each_column_s_extremes_the_ends_and_every_signal(values, data):
+    y = np.array(values)
+    size = y.size
+    x = np.sort(np.array(data.draw(st.lists(st.floats(0, 1e4), min_size=size, max_size=size))))
+    group = np.array(data.draw(st.lists(st.integers(0, 2), min_size=size, max_size=size)))
+    keep = np.array(data.draw(st.lists(st.booleans(), min_size=size, max_size=size)))
+    columns = data.draw(st.integers(1, 40))
+    rows = parts.display_rows(x, [y], keep, group, columns)
+    assert (np.diff(rows) > 0).all()
+    assert set(np.flatnonzero(keep)) <= set(rows)
+    frame = pd.DataFrame({"x": x, "y": y, "g": group, "c": _bins(x, columns)})
+    shown = frame.iloc[rows]
+    pd.testing.assert_frame_equal(  # a column of missing values only has nothing to draw
+        shown.dropna().groupby(["g", "c"])["y"].agg(["min", "max"]),
+        frame.dropna().groupby(["g", "c"])["y"].agg(["min", "max"]),
+    )
+    pd.testing.assert_frame_equal(
+        shown.groupby("g")["x"].agg(["min", "max"]), frame.groupby("g")["x"].agg(["min", "max"])
+    )
+    # nothing more: two per column and group, the two ends of each group, the kept rows
+    cells = frame.groupby(["g", "c"]).ngroups
+    assert rows.size <= 2 * cells + 2 * frame["g"].nunique() + int(keep.sum())
+
+
+def test_a_long_chart_says_what_it_is_drawn_from_and_keeps_every_signal():
+    k = 20_000
+    result = chart_result(k=k, strata=None, signals=(0, 1, 2, 9_999, 19_999), kind="xbar_s")
+    layout = draw.chart_figure(result)
+    points = data_of(layout, "chart_points")
+    title = named(layout)["chart"].title.text.replace("\n", " ")
+    assert (
+        f"drawn from {k:,} points by the lowest and highest per pixel column and every signal"
+        in title
+    )
+    assert len(points["x"]) <= 2 * parts.WIDTH + 2 + 5
+    assert "drawn from" in named(layout)["secondary_chart"].title.text
+    # the point column maps each drawn row to its row of the result
+    at = np.asarray(points["point"])
+    np.testing.assert_array_equal(points["value"], result.points["stat"].to_numpy()[at])
+    assert {0, 1, 2, 9_999, 19_999} <= set(at.tolist())
+    # each pixel column's extremes are drawn
+    x = result.points["stat"].to_numpy()
+    c = _bins(np.arange(k, dtype=float), parts.WIDTH)
+    assert np.isin(pd.Series(x).groupby(c).idxmax().to_numpy(), at).all()
+    assert np.isin(pd.Series(x).groupby(c).idxmin().to_numpy(), at).all()
+    # a short chart draws every point and says nothing of a reduction
+    short = draw.chart_figure(chart_result(k=parts.REDUCE_FROM, strata=None))
+    assert "drawn from" not in named(short)["chart"].title.text
+    assert len(data_of(short, "chart_points")["x"]) == parts.REDUCE_FROM
+
+
+def test_a_long_split_chart_states_the_reduction_in_its_heading():
+    layout = draw.chart_figure(chart_result(k=12_000, strata=("A", "B")), split=True)
+    assert "drawn from 12,000 points by the lowest" in named(layout)["chart_title"].text
+    panels = pd.DataFrame(data_of(layout, "chart_points"))
+    # each panel (narrower figures: fewer pixel columns) has its own extremes and ends
+    assert set(panels["panel_code"]) == {0, 1}
+    assert panels.groupby("panel_code").size().max() <= 2 * (parts.WIDTH // 2) + 2 + 2
+
+
+def test_refresh_round_trips_on_reduced_charts():
+    first, second = (chart_result(k=30_000, strata=("A", "B"), seed=s) for s in (1, 2))
+    layout = draw.chart_figure(first)
+    doc = Document()
+    doc.add_root(layout)
+    ids = {m.id for m in layout.references()}
+    before = _snapshot(layout)
+    title = named(layout)["chart"].title.text
+    assert not draw.needs_rebuild(layout, second)
+    draw.refresh(layout, second)
+    assert {m.id for m in layout.references()} == ids
+    fresh = draw.chart_figure(second)
+    assert_same(_snapshot(layout), _snapshot(fresh))
+    assert named(layout)["chart"].title.text == named(fresh)["chart"].title.text
+    draw.refresh(layout, first)
+    assert_same(_snapshot(layout), before)
+    assert named(layout)["chart"].title.text == title
 
 
 # --- other figures ----------------------------------------------------------------------

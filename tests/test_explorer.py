@@ -10,6 +10,7 @@ clicks would set them.
 from __future__ import annotations
 
 import datetime as dt
+import html
 import json
 
 import numpy as np
@@ -28,6 +29,7 @@ from qcexplore.options import ChartOptions
 from qcexplore.spec import Spec
 from qcexplore.study import Study
 from qcexplore.views.log import ExplorerState
+from qcexplore.views.text import WORDS
 
 FACTORS = ["crew", "shift", "nozzle"]
 
@@ -53,7 +55,9 @@ def study() -> Study:
 
 @pytest.fixture
 def ex(study: Study) -> Explorer:
-    return Explorer(study)
+    explorer = Explorer(study)
+    explorer.show_view("chart")
+    return explorer
 
 
 def chart_control(ex: Explorer, name: str):
@@ -83,10 +87,21 @@ def assert_shows(ex: Explorer, result) -> None:
     assert limit_values(ex) == result_limit_values(result)
 
 
-def test_builds_with_chart_only(ex: Explorer, study: Study) -> None:
+def test_opens_on_the_findings_board(study: Study) -> None:
+    fresh = Explorer(study)
+    assert fresh.visible == "findings" and "What the data say:" in fresh.status.value
+    assert set(fresh._shown) == {"findings"}  # the other views wait until their tab is shown
+    assert fresh.tabs.titles == tuple(v.title for v in views.VIEWS)
+    cards = fresh.panels["findings"].cards.children
+    found = study.findings()
+    assert len(cards) == len(found)
+    for card, finding in zip(cards, found, strict=True):
+        assert html.escape(finding.title) in card.children[0].value
+
+
+def test_builds_the_chart_when_its_tab_opens(ex: Explorer, study: Study) -> None:
     assert ex.status.value.count("Chart:") == 1 and "qcx-ok" in ex.status.value
-    assert set(ex._shown) == {"chart"}  # the other panels wait until their tab is shown
-    assert ex.tabs.titles == tuple(v.title for v in views.VIEWS)
+    assert set(ex._shown) == {"findings", "chart"}
     assert_shows(ex, study.chart())
 
 
@@ -206,7 +221,7 @@ def test_bad_roles_are_refused_and_controls_go_back(ex: Explorer) -> None:
 def test_tabs_compute_lazily_and_only_what_changed(
     ex: Explorer, study: Study, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    ex.tabs.selected_index = 1
+    ex.show_view("variation")
     assert "variation" in ex._shown and "qcx-ok" in ex.status.value
     text = ex.texts["variation"].value
     assert "Variance components" in text and "residual" in text
@@ -221,26 +236,28 @@ def test_tabs_compute_lazily_and_only_what_changed(
     chart = views.view_named("chart")
     assert ex._shown["chart"] != ex._view_key(chart)  # the hidden chart waits
     monkeypatch.undo()
-    ex.tabs.selected_index = 0
+    ex.show_view("chart")
     assert ex._shown["chart"] == ex._view_key(chart)
 
 
 def test_time_and_capability_panels(ex: Explorer, study: Study) -> None:
-    ex.tabs.selected_index = 2
+    ex.show_view("time")
     assert "Ljung-Box" in ex.texts["time"].value
     assert ex.slots["acf"].layout is not None and ex.slots["shifts"].layout is not None
-    ex.tabs.selected_index = 3
+    ex.show_view("capability")
     indices = study.capability().indices
     assert "Capability indices" in ex.texts["capability"].value
-    assert all(f"<td>{i}</td>" in ex.texts["capability"].value for i in indices["index"])
+    shown = ex.texts["capability"].value
+    assert all(f"<td>{WORDS[i]}</td>" in shown for i in indices["index"])  # Cpk, not cpk
 
 
 def test_findings_panel(ex: Explorer, study: Study) -> None:
-    ex.tabs.selected_index = 4
+    ex.show_view("findings")
     text = ex.texts["findings"].value
-    assert "do not decide product disposition" in text
-    for finding in study.findings():
-        assert finding.title.replace("'", "&#x27;").replace("<", "&lt;")[:20] in text
+    assert "do not decide product disposition" in text and "weights-and-measures" in text
+    cards = ex.panels["findings"].cards.children
+    for card, finding in zip(cards, study.findings(), strict=True):
+        assert html.escape(finding.title) in card.children[0].value
 
 
 def test_selection_table_and_exclusion(ex: Explorer, study: Study) -> None:
@@ -283,10 +300,11 @@ def test_log_round_trip(ex: Explorer, study: Study, tmp_path) -> None:
     again = Explorer(demo_study(), log=path)
     assert again.state == ex.state
     assert "loaded from" in again.status.value and "3 subgroup(s)" in again.status.value
-    assert "Chart:" in again.status.value  # what the panel update said is still there
+    assert "What the data say:" in again.status.value  # what the view update said stays
     assert again.state.notes[0].text == "Crew B reads high on its own scale."
     pd.testing.assert_frame_equal(again.chart().limits, ex.chart().limits)
     assert list(again.chart().excluded) == list(ex.chart().excluded)
+    again.show_view("chart")  # the log opens on the findings board; its chart is as saved
     assert_shows(again, ex.chart())
 
 
@@ -295,9 +313,18 @@ def test_log_against_other_data_is_refused(ex: Explorer, tmp_path) -> None:
     other = Explorer(demo_study(seed=1))
     with pytest.raises(QCDataError, match="other data"):
         other.load(path)
-    other.actions.path.value = str(path)
-    other.actions.load.click()  # from the button: reported, not raised
-    assert "other data" in other.status.value
+    content = path.read_bytes()
+    # From the page: the log is uploaded through the browser; what differs is said, not raised.
+    other.actions.upload.value = (
+        {
+            "name": "log.json",
+            "type": "application/json",
+            "size": len(content),
+            "content": memoryview(content),
+            "last_modified": dt.datetime.now(),
+        },
+    )
+    assert "other data" in other.actions.confirm_text.value
     with pytest.raises(QCDataError, match="not a qcexplore investigation log"):
         (tmp_path / "x.json").write_text("{}")
         other.load(tmp_path / "x.json")
@@ -333,7 +360,7 @@ def test_stable_classes_and_bokehjs_outside_kernel(ex: Explorer) -> None:
 def test_comparison_chart_is_drawn_without_a_choice(ex: Explorer) -> None:
     # The "Compare levels of" dropdown starts on the first factor, so the analysis of
     # means is on show as soon as the panel opens.
-    ex.tabs.selected_index = 1
+    ex.show_view("variation")
     assert ex.panels["variation"].choice.value == FACTORS[0]
     assert ex.slots["anom"].layout is not None
     assert f"Comparisons of the levels of {FACTORS[0]}" in ex.texts["variation"].value
@@ -347,7 +374,7 @@ def test_selection_tools_are_added_before_the_figure_goes_to_the_page(
 ) -> None:
     # Tools added to a figure already on show leave BokehJS without its legend and
     # toolbar (seen in the served app): they must be there when BokehModel wraps it.
-    from qcexplore.app import explorer as module
+    from qcexplore.app import panels as module
 
     seen: list[bool] = []
     real = module.BokehModel
@@ -358,9 +385,10 @@ def test_selection_tools_are_added_before_the_figure_goes_to_the_page(
         return real(layout, **kwargs)
 
     monkeypatch.setattr(module, "BokehModel", recording)
-    fresh = Explorer(study)
+    fresh = Explorer(study)  # the findings board may draw the chart too, in a card
+    fresh.show_view("chart")
     fresh.set(by="crew")
-    assert seen == [True, True]
+    assert len(seen) >= 2 and all(seen)
 
 
 def test_split_by_a_derived_factor(ex: Explorer, study: Study) -> None:
@@ -370,3 +398,35 @@ def test_split_by_a_derived_factor(ex: Explorer, study: Study) -> None:
     chart_control(ex, "by").value = "weekday"
     assert_shows(ex, study.chart(by="weekday"))
     assert "split by weekday" in ex.status.value
+
+
+def test_show_this_opens_the_view_that_shows_the_finding(study: Study) -> None:
+    fresh = Explorer(study)
+    found = study.findings()
+    index = next(i for i, f in enumerate(found) if f.kind == "measurement_offset")
+    card = fresh.panels["findings"].cards.children[index]
+    card.children[-1].click()  # "Show this"
+    assert fresh.visible == "chart" and fresh.options("chart").by == found[index].factor
+    assert_shows(fresh, study.chart(by=found[index].factor))
+
+
+def test_a_refused_choice_is_explained_beside_its_control_and_taken_back(ex: Explorer) -> None:
+    before = list(source(ex).data["value"])
+    chart_control(ex, "kind").value = "p"  # fill weights are no counts of defectives
+    assert "whole-number counts" in ex.panels["chart"].message.value
+    assert chart_control(ex, "kind").value == "auto" and ex.options("chart").kind == "auto"
+    assert list(source(ex).data["value"]) == before
+    chart_control(ex, "kind").value = "xbar_s"  # a good choice clears the explanation
+    assert ex.panels["chart"].message.value == ""
+
+
+def test_a_specification_typed_in_changes_capability_and_the_findings(study: Study) -> None:
+    fresh = Explorer(study)
+    fresh.show_view("capability")
+    fresh.panels["capability"].controls["lsl"].value = "503"
+    assert fresh.study_for().spec == Spec(lsl=503)
+    expected = study.capability(spec=Spec(lsl=503)).indices
+    assert all(f"{v:.4g}" in fresh.texts["capability"].value for v in expected["value"])
+    fresh.show_view("findings")
+    cards = [c.children[0].value for c in fresh.panels["findings"].cards.children]
+    assert any("LSL 503 g" in c for c in cards)

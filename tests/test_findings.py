@@ -21,7 +21,9 @@ from statsmodels.stats.multitest import multipletests
 
 import qcexplore as qx
 from qcexplore.caution import NET_CONTENT, caution
-from qcexplore.data.validate import as_factor, finite_mask, numeric_values, parse_times
+from qcexplore.data.dates import parse_times
+from qcexplore.data.numbers import numeric_values
+from qcexplore.data.validate import as_factor, finite_mask
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
 from qcexplore.findings import KINDS, Finding, findings, findings_frame
@@ -141,6 +143,10 @@ def test_demo_reports_the_autocorrelation(demo):
 def test_demo_ranking_and_fields(demo):
     study, truth, found = demo
     assert {f.kind for f in found} <= set(KINDS)
+    # The variance split is the overview and comes first (qcexplore.story); then the tested
+    # findings by strength, then the notes.
+    assert found[0].kind == "variance_split"
+    found = found[1:]
     tested = [f for f in found if np.isfinite(f.p_adjusted)]
     notes = found[len(tested) :]
     assert all(f.kind in ("confounded", "capability") for f in notes)
@@ -358,7 +364,7 @@ def test_findings_frame_and_html(demo):
         "kind", "title", "detail", "factor", "level", "effect", "p", "share",
     ]  # fmt: skip
     assert findings_frame([]).empty
-    html = found[0]._repr_html_()
+    html = next(f for f in found if f.kind == "measurement_offset")._repr_html_()
     assert "Crew B&#x27;s readings" in html and "adjusted p" in html
     with pytest.raises(dataclasses.FrozenInstanceError):
         found[0].title = "x"

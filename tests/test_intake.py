@@ -222,3 +222,40 @@ def test_messages_name_rows_of_the_table_as_given() -> None:
     frame.loc[30, "lot"] = None
     with pytest.raises(QCDataError, match=r"'lot'.*row 3;"):
         qx.Study(frame, value="w", time="t", subgroup="lot")
+
+
+def test_to_long_refuses_a_missing_list_and_takes_number_names() -> None:
+    wide = pd.DataFrame({"day": [1, 2], "s1": [1.0, 3.0], "s2": ["2,5", 4]})
+    with pytest.raises(QCDataError, match="sample_columns must be a non-empty list"):
+        qx.to_long(wide, None)
+    with pytest.raises(QCDataError, match=r"an entry of sample_columns=\['s1'\] is not one"):
+        qx.to_long(wide, [["s1"]])
+    assert qx.to_long(wide, ["s1", "s2"])["value"].tolist() == [1.0, 2.5, 3.0, 4.0]
+    from_array = pd.DataFrame(np.array([[500.1, 500.4], [499.7, 500.0]]))
+    long = qx.to_long(from_array, [0, 1])
+    assert long["value"].tolist() == [500.1, 500.4, 499.7, 500.0]
+    assert long["sample"].tolist() == ["0", "1", "0", "1"]
+
+
+@pytest.mark.parametrize(
+    "spec, message",
+    [
+        (5, r"spec=5 is not a specification; give qx.Spec"),
+        ({"usll": 505}, r"spec has no entry 'usll' \(did you mean 'usl'\?\)"),
+        ({"lsl": "500"}, r"Spec lsl='500' is not a number"),
+        ({"lsl": 505, "usl": 495}, r"Spec lsl=505 is not below usl=495"),
+        ({"lsl": 495, "usl": 505, "target": 510}, r"Spec target=510 lies outside the limits"),
+        ({"lsl": float("inf")}, r"Spec lsl=inf is not a number"),
+    ],
+)
+def test_spec_arguments_are_checked(spec, message) -> None:
+    with pytest.raises(QCDataError, match=message):
+        qx.Spec.coerce(spec)
+
+
+def test_spec_takes_tiny_and_huge_magnitudes() -> None:
+    assert qx.Spec(lsl=1e-310, usl=2e-310).sides == ("lower", "upper")
+    assert qx.Spec(lsl=-1e300, usl=1e300, target=0).target == 0.0
+    assert qx.Spec.coerce(None) is None
+    spec = qx.Spec(lsl=500)
+    assert qx.Spec.coerce(spec) is spec

@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from scipy import stats
 
 from qcexplore.errors import QCDataError
-from qcexplore.stats.onset import stream_onset
+from qcexplore.stats.onset import ramp_rss, stream_onset
 
 
 def two_streams(contrast, *, times=False, noise=0.0, seed=0):
@@ -133,6 +133,30 @@ def test_level_is_matched_by_its_label():
     found = stream_onset(frame, value="w", subgroup="sg", factor="stream", level="4")
     assert (found.model, found.position) == ("step", 20)
     assert stream_onset(frame, value="w", subgroup="sg", factor="stream", level=9) is None
+
+
+def test_level_of_a_plain_column_is_matched_like_a_categorical():
+    # The same data with the factor as plain integers (no categorical): the level's rows
+    # are found from the column's own codes, with the same onset.
+    frame = two_streams(np.where(np.arange(40) >= 20, 2.0, 0.0), noise=0.1)
+    plain = frame.assign(stream=np.tile([4, 5], 40))
+    coded = frame.assign(stream=pd.Categorical(np.tile([4, 5], 40)))
+    args = {"value": "w", "subgroup": "sg", "factor": "stream", "level": "4"}
+    assert stream_onset(plain, **args) == stream_onset(coded, **args)
+
+
+def test_ramp_rss_keeps_its_precision_far_from_time_zero():
+    # Reference: numpy.linalg.lstsq at every hinge, with the times about 8,000 days from
+    # their origin (a long record in days) and a million points' worth of positions.
+    rng = np.random.default_rng(2)
+    for t in (8000.0 + np.sort(rng.random(60)) * 30.0, 1e6 + np.arange(60.0)):
+        y = 0.3 * np.maximum(0.0, t - t[25]) + rng.normal(0.0, 0.1, 60)
+        expected = []
+        for k in range(1, 59):
+            design = np.column_stack([np.ones(60), np.maximum(0.0, t - t[k])])
+            resid = y - design @ np.linalg.lstsq(design, y, rcond=None)[0]
+            expected.append(float(resid @ resid))
+        np.testing.assert_allclose(ramp_rss(t, y), expected, rtol=1e-9, atol=1e-9)
 
 
 def test_too_few_shared_subgroups_give_none():

@@ -23,7 +23,8 @@ from qcexplore.views.log import ExplorerState
 
 EVIL_COLUMN = "<script>alert(1)</script>"
 EVIL_LEVEL = "<b>A</b>"
-SECTIONS = ("roles", "chart", "variation", "time", "capability", "findings", "log")
+#: The story first: the findings board, then the views, the roles and the log.
+SECTIONS = ("findings", "chart", "variation", "time", "capability", "roles", "log")
 
 
 class Page(HTMLParser):
@@ -167,3 +168,26 @@ def test_the_net_content_caution_only_for_fill_quantities(tmp_path: Path) -> Non
     minimum_fill = Study(frame, value="net_g", subgroup="round", spec=Spec(lsl=500))
     page = parse(write_report(minimum_fill, tmp_path / "fill.html")).visible.replace("\n", " ")
     assert NET_CONTENT in page
+
+
+def test_findings_first_as_cards_then_the_contents(report: Path, study: Study) -> None:
+    raw = report.read_text(encoding="utf-8")
+    page = parse(report)
+    assert page.sections[0] == "findings"
+    cards = [a for t, a in page.tags if t == "article" and a.get("class") == "qcx-card"]
+    assert len(cards) == len(study.findings())
+    links = [a.get("href") for t, a in page.tags if t == "a"]
+    assert links[: len(SECTIONS)] == [f"#{s}" for s in SECTIONS]
+    assert raw.index("qcx-card") < raw.index("qcx-contents") < raw.index("<section id='chart'>")
+
+
+def test_the_demo_report_stays_small_and_carries_bokehjs_once(tmp_path: Path) -> None:
+    frame, _ = filling_line()  # the whole demo: four weeks, 672 rounds
+    from qcexplore.demo import ROLES
+
+    out = Study(frame, **ROLES).report(tmp_path / "demo.html")
+    raw = out.read_text(encoding="utf-8")
+    assert out.stat().st_size < 6_000_000
+    # The core bundle sets bokeh.__bokeh__ once; each further copy would set it again.
+    assert raw.count("bokeh.__bokeh__ = true") == 1
+    assert "bokeh-mathjax" not in raw  # the typesetting bundle (and its CDN loader) left out

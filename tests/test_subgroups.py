@@ -42,6 +42,32 @@ def test_moments_equal_pandas_groupby(offset: float) -> None:
         np.testing.assert_allclose(m.mean[present], reference["mean"].to_numpy(), rtol=1e-12)
 
 
+def test_blocks_of_sorted_rows_sum_squares_to_the_same_bits_as_one_bincount() -> None:
+    # More rows than a block, one group longer than a block, empty groups between: with the
+    # codes in order the squared deviations are summed in blocks; the sums must equal those
+    # of a single np.bincount over all rows bit for bit, and pandas' min and max (reference:
+    # numpy and pandas).
+    rng = np.random.default_rng(7)
+    sizes = np.r_[rng.integers(1, 9, 30_000), 150_000, rng.integers(1, 9, 30_000)]
+    codes = np.repeat(np.arange(sizes.size) * 2, sizes)  # odd codes: groups without rows
+    values = rng.normal(1e6, 2.0, codes.size)
+    k = 2 * sizes.size + 1
+    m = group_moments(values, codes, k)
+    n = np.bincount(codes, minlength=k)
+    mean = np.bincount(codes, values, k) / np.where(n > 0, n, 1)
+    ss = np.bincount(codes, (values - mean[codes]) ** 2, k)
+    present = n > 0
+    np.testing.assert_array_equal(m.ss[present], ss[present])
+    assert np.isnan(m.ss[~present]).all()
+    reference = pd.Series(values).groupby(codes).agg(["min", "max"])
+    np.testing.assert_array_equal(m.min[present], reference["min"].to_numpy())
+    np.testing.assert_array_equal(m.max[present], reference["max"].to_numpy())
+    # The same rows shuffled take the one-bincount path: the same moments to rounding.
+    order = rng.permutation(codes.size)
+    shuffled = group_moments(values[order], codes[order], k)
+    np.testing.assert_allclose(shuffled.ss[present], m.ss[present], rtol=1e-9)
+
+
 def test_no_values_at_all_gives_empty_groups() -> None:
     # Every group empty (a level that occurs nowhere): NaN moments, not a dtype error.
     m = group_moments(np.array([]), np.array([], dtype=int), n_groups=3)

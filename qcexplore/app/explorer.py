@@ -17,114 +17,53 @@ from __future__ import annotations
 
 import html
 from collections.abc import Callable
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import ipywidgets as widgets
+import numpy as np
 import pandas as pd
 from bokeh.models import ColumnDataSource, LayoutDOM
-from jupyter_bokeh import BokehModel
 
-from qcexplore import draw, views
-from qcexplore.app.controls import Actions, OptionControls, RoleControls, styled
+from qcexplore import views
+from qcexplore.app.controls import Actions, RoleControls, styled
+from qcexplore.app.logbook import Logbook
+from qcexplore.app.panels import FigureSlot, Panel
 from qcexplore.app.resources import load_bokehjs
 from qcexplore.errors import QCDataError
 from qcexplore.study import Study
 from qcexplore.views.base import View
-from qcexplore.views.log import ExplorerState, load_log, save_log
+from qcexplore.views.log import (
+    ExplorerState,
+    LogMismatch,
+    SavedLog,
+    fit_state,
+    parse_log,
+    read_log_file,
+    save_log,
+)
 from qcexplore.views.text import log_html, table_html
 
 #: Rows of the selection table per page: never the whole data set in the page.
 PAGE_ROWS = 20
-
-
-@dataclass
-class FigureSlot:
-    """One bokeh figure place in the widget: figures are built once, then refreshed in place.
-
-    A few built layouts are kept (each in its own BokehModel), one per layout shape
-    (for example the overlay split by crew and the one split by shift), so going back
-    to a shape seen before swaps the shown model and refreshes its data instead of
-    building and sending a whole new figure.
-    """
-
-    css: str
-    keep: int = 6
-    box: widgets.Box = field(init=False)
-    built: list[tuple[tuple, LayoutDOM, BokehModel]] = field(default_factory=list)
-
-    def __post_init__(self) -> None:
-        self.box = styled(widgets.Box(), f"figure-{self.css}")
-
-    @property
-    def layout(self) -> LayoutDOM | None:
-        """The layout on show."""
-        return self.built[0][1] if self.built else None
-
-    def show(self, result: Any, build: Callable[[], LayoutDOM], options: tuple = ()) -> bool:
-        """Put ``result`` on show; returns True when a new figure was built."""
-        for i, (opts, layout, model) in enumerate(self.built):
-            if opts == options and not draw.needs_rebuild(layout, result):
-                draw.refresh(layout, result)
-                if i:
-                    self.built.insert(0, self.built.pop(i))
-                    self.box.children = [model]
-                return False
-        layout = build()
-        model = BokehModel(layout)
-        self.built.insert(0, (options, layout, model))
-        for _opts, _layout, old in self.built[self.keep :]:
-            old.close()
-        del self.built[self.keep :]
-        self.box.children = [model]
-        return True
-
-    def clear(self) -> None:
-        """Show nothing (the panel's result is not available)."""
-        self.box.children = []
-        for _opts, _layout, model in self.built:
-            model.close()
-        self.built.clear()
-
-
-@dataclass
-class Panel:
-    """One view's tab: its option controls, its choice control, figure slots and HTML."""
-
-    view: View
-    controls: OptionControls | None
-    choice: widgets.Dropdown | None
-    text: widgets.HTML
-    figures: widgets.VBox
-    box: widgets.VBox
-    slots: dict[str, FigureSlot] = field(default_factory=dict)
-
-    @classmethod
-    def of(cls, view: View, extra: list[widgets.Widget]) -> Panel:
-        controls = None if view.options_type is None else OptionControls(view.options_type)
-        if controls is not None and not controls.widgets:
-            controls = None
-        choice = None
-        if view.choice_label:
-            choice = styled(
-                widgets.Dropdown(
-                    description=view.choice_label, options=[], style={"description_width": "130px"}
-                ),
-                f"{view.name}-choice",
-            )
-        text = styled(widgets.HTML(value=""), f"{view.name}-text")
-        figures = styled(widgets.VBox([]), f"{view.name}-figures")
-        parts = [w for w in (controls.box if controls else None, choice) if w is not None]
-        box = styled(widgets.VBox([*parts, figures, text, *extra]), f"panel-{view.name}")
-        return cls(view, controls, choice, text, figures, box)
-
-    def slot(self, name: str) -> FigureSlot:
-        """The figure place of this name, made on first use, in the order first asked for."""
-        if name not in self.slots:
-            self.slots[name] = FigureSlot(name)
-            self.figures.children = [s.box for s in self.slots.values()]
-        return self.slots[name]
+#: The page's own rules. Tab titles are our view names in plain words: they take the width they
+#: need instead of the toolkit's fixed tab width, which cuts them off. Long labels and tables
+#: wrap or scroll inside their panel rather than push it wider than the window. Presentation
+#: mode enlarges the text for a room and puts the settings and the log out of the way.
+PAGE_STYLE = """
+.qcx-panels .lm-TabBar-tab { flex: 0 0 auto !important; max-width: none !important; }
+.qcx-explorer { max-width: 100%; }
+.qcx-explorer .widget-label { white-space: normal; }
+.qcx-explorer table { display: block; max-width: 100%; overflow-x: auto; }
+.qcx-card { border: 1px solid #ddd; border-radius: 6px; padding: 6px 12px; margin: 8px 0; }
+.qcx-card-headline { font-size: 1.25em; font-weight: bold; }
+.qcx-presenting { font-size: 150%; }
+.qcx-presenting .widget-label, .qcx-presenting .widget-html-content,
+.qcx-presenting .lm-TabBar-tabLabel, .qcx-presenting button { font-size: 1.4em !important; }
+.qcx-presenting .qcx-card-headline { font-size: 1.8em; }
+.qcx-presenting .qcx-roles, .qcx-presenting .qcx-log, .qcx-presenting .qcx-options,
+.qcx-presenting .qcx-card-statistics { display: none !important; }
+"""
 
 
 class Explorer(widgets.VBox):
@@ -185,17 +124,41 @@ class Explorer(widgets.VBox):
         self._points: dict[int, ColumnDataSource] = {}
         # Tab titles are our view names in plain words: let them take the width they need
         # instead of the toolkit's fixed tab width, which cuts them off.
-        tab_style = widgets.HTML(
-            "<style>.qcx-panels .lm-TabBar-tab "
-            "{ flex: 0 0 auto !important; max-width: none !important; }</style>"
+        page_style = widgets.HTML(f"<style>{PAGE_STYLE}</style>")
+        self.presenting = styled(
+            widgets.ToggleButton(
+                description="Presentation mode",
+                tooltip="Larger text for a room; settings and the log out of the way",
+                layout=widgets.Layout(width="auto"),
+            ),
+            "presentation",
         )
-        super().__init__([tab_style, self.roles.box, self.tabs, self.actions.log_box, self.status])
+        self.presenting.observe(lambda change: self.present(bool(change["new"])), "value")
+        super().__init__(
+            [
+                page_style,
+                self.presenting,
+                self.roles.box,
+                self.tabs,
+                self.actions.log_box,
+                self.status,
+            ]
+        )
         styled(self, "explorer")
         self._wire()
         if log is not None:
             self.load(log)
         else:
             self._apply(self.state)
+
+    def present(self, on: bool = True) -> None:
+        """Presentation mode on or off: larger text, settings and the log out of the way."""
+        if on:
+            self.add_class("qcx-presenting")
+        else:
+            self.remove_class("qcx-presenting")
+        if self.presenting.value != on:
+            self.presenting.value = on
 
     # ---- display ---------------------------------------------------------------
     def _repr_mimebundle_(self, **kwargs: Any) -> Any:
@@ -223,8 +186,8 @@ class Explorer(widgets.VBox):
         a.previous.on_click(lambda _b: self._guard("selection", lambda: self._turn(-1)))
         a.next.on_click(lambda _b: self._guard("selection", lambda: self._turn(1)))
         a.add_note.on_click(lambda _b: self._guard("note", self.add_note))
-        a.save.on_click(lambda _b: self._guard("log", lambda: self.save(a.path.value)))
-        a.load.on_click(lambda _b: self._guard("log", lambda: self.load(a.path.value)))
+        # The log's buttons (download, upload, log folder, autosave) are the logbook's.
+        self.logbook = Logbook(self, a)
 
     def _guard(self, what: str, action: Callable[[], Any]) -> None:
         """Run a callback; report any error in the status line and keep the last view."""
@@ -279,7 +242,13 @@ class Explorer(widgets.VBox):
         panel = self.panels[name]
         assert panel.controls is not None and panel.view.options_type is not None
         current = self.state.options_for(name, panel.view.options_type)
-        self._apply(self.state.with_options(name, panel.controls.read(current)))
+        try:
+            options = panel.controls.read(current)
+        except QCDataError as error:
+            self._write_controls(self.state)
+            self._explain(name, str(error))
+            raise
+        self._apply(self.state.with_options(name, options))
 
     def _from_choice(self, name: str) -> None:
         choice = self.panels[name].choice
@@ -295,10 +264,24 @@ class Explorer(widgets.VBox):
         except Exception:
             self._write_controls(self.state)  # the controls go back to the last good state
             raise
-        self.state = state
+        previous, self.state = self.state, state
         self._write_controls(state)
         self._show_log()
-        self._refresh()
+        failure = self._refresh()
+        if failure is not None and previous != state and self.visible in self._shown:
+            # What cannot be shown is not kept: the controls go back to what is on show, and
+            # the reason stands next to them.
+            self.state = previous
+            self._write_controls(previous)
+            self._show_log()
+            self._explain(self.visible, f"This cannot be shown: {failure}")
+
+    def _explain(self, view: str, text: str) -> None:
+        self.panels[
+            view
+        ].message.value = (
+            f"<span class='qcx-error' style='color:#b00020'>{html.escape(text)}</span>"
+        )
 
     def _write_controls(self, state: ExplorerState) -> None:
         study = self.study_for(state)
@@ -307,16 +290,39 @@ class Explorer(widgets.VBox):
             controls = self.panels[view.name].controls
             if controls is not None:
                 options = view.options_for(study, state)
-                controls.write(options, view.live_choices(study), view.inactive(study, options))
+                live = view.live_choices(study, options)
+                controls.write(options, live, view.inactive(study, options))
+
+    def _roles_set_by_views(self, state: ExplorerState) -> dict[str, Any]:
+        """Roles of the Study that views' options set (the specification and the units)."""
+        stored = dict(state.options)
+        roles: dict[str, Any] = {}
+        for view in self.views:
+            if view.name in stored:
+                roles.update(view.study_roles(stored[view.name]))
+        return roles
+
+    def _study_key(self, state: ExplorerState) -> tuple:
+        """What decides the Study: roles, date window and the roles that views set."""
+        extra = self._roles_set_by_views(state)
+        return (state.roles_key, tuple(sorted(extra.items(), key=lambda kv: kv[0])))
 
     def study_for(self, state: ExplorerState | None = None) -> Study:
         """The Study for a state's roles and date window (built once, then reused)."""
         state = state or self.state
-        key = state.roles_key
+        set_by_views = self._roles_set_by_views(state)
+        key = self._study_key(state)
         if key not in self._studies:
             base = self.study
-            if (state.value, state.subgroup, state.time) == (base.value, base.subgroup, base.time):
+            same_roles = (state.value, state.subgroup, state.time) == (
+                base.value,
+                base.subgroup,
+                base.time,
+            )
+            if same_roles and all(getattr(base, k) == v for k, v in set_by_views.items()):
                 study = base
+            elif same_roles:
+                study = Study(self._frame, **{**base.roles(), **set_by_views})
             else:
                 taken = {state.value, state.subgroup, state.time}
                 factors = [f for f in base.factors if f not in taken]
@@ -330,6 +336,7 @@ class Explorer(widgets.VBox):
                     shifts=base.shifts,
                     spec=base.spec if state.value == base.value else None,
                     units=base.units if state.value == base.value else None,
+                    **set_by_views,
                 )
             if state.start is not None or state.end is not None:
                 end = None
@@ -340,8 +347,10 @@ class Explorer(widgets.VBox):
         return self._studies[key]
 
     def chart(self) -> Any:
-        """The ChartResult on show (from the Study's cache)."""
-        return self.study_for().chart_of(self.options("chart"))
+        """The ChartResult of the subgroups on show (from the Study's cache): the chart whose
+        points can be selected and left out of the limits."""
+        study = self.study_for()
+        return views.view_named("chart").compute(study, self.options("chart")).main
 
     # ---- views -------------------------------------------------------------------
     @property
@@ -352,25 +361,28 @@ class Explorer(widgets.VBox):
     def _view_key(self, view: View) -> tuple:
         """What decides what a view shows: roles, its options, its choice, the exclusions."""
         return (
-            self.state.roles_key,
+            self._study_key(self.state),
             self.options(view.name),
             self.state.choice_for(view.name),
             self.state.excluded if view.uses_exclusions else (),
         )
 
-    def _refresh(self) -> None:
-        """Bring the visible view up to date if the state changed what it shows."""
+    def _refresh(self) -> BaseException | None:
+        """Bring the visible view up to date if the state changed what it shows; return the
+        error that kept it from being shown (it is also reported in the status line)."""
         view = self.views[self.tabs.selected_index or 0]
         key = self._view_key(view)
         if self._shown.get(view.name) == key:
-            return
+            return None
         try:
             summary = self._show(view)
         except Exception as error:
             self._report_error(view.title, error)
-            return
+            return error
         self._shown[view.name] = key
+        self.panels[view.name].message.value = ""
         self._say(f"{view.title}: {summary}.")
+        return None
 
     def _show(self, view: View) -> str:
         panel = self.panels[view.name]
@@ -383,9 +395,15 @@ class Explorer(widgets.VBox):
             return why_not.split(":")[0].lower()
         result = view.compute(study, view.options_for(study, self.state))
         shown = view.show(study, result)
+        if shown.cards or panel.cards.children:
+            panel.cards.children = [self._card_box(panel, c) for c in shown.cards]
         choice = self._choice(panel, study, result)
         chosen = view.show_choice(study, result, choice) if choice is not None else None
         figures = shown.figures + (chosen.figures if chosen else ())
+        wanted = {f.slot for f in figures}
+        for name, slot in panel.slots.items():  # a figure this result has not: none on show
+            if not slot.in_card and name not in wanted:
+                slot.clear()
         for figure in figures:
             slot = panel.slot(figure.slot)
             if slot.show(figure.result, figure.build, figure.variant):
@@ -394,6 +412,41 @@ class Explorer(widgets.VBox):
             self._attach_selection(panel)
         panel.text.value = shown.html + (chosen.html if chosen else "")
         return shown.summary
+
+    def _card_box(self, panel: Panel, card: Any) -> widgets.Widget:
+        parts: list[widgets.Widget] = [widgets.HTML(card.html)]
+        if card.figure is not None:
+            slot = panel.slot(card.figure.slot, in_card=True)
+            slot.show(card.figure.result, card.figure.build, card.figure.variant)
+            parts.append(slot.box)
+        parts.append(widgets.HTML(card.details))
+        if card.action:
+            button = styled(
+                widgets.Button(description="Show this", tooltip="Open the view that shows it"),
+                "show-this",
+            )
+            button.on_click(lambda _b: self._guard("view", lambda: self.open_view(card.action)))
+            parts.append(button)
+        return styled(widgets.VBox(parts), "card")
+
+    def show_view(self, name: str) -> None:
+        """Bring the view of this name to the front."""
+        self.tabs.selected_index = [v.name for v in self.views].index(name)
+
+    def open_view(self, settings: tuple[tuple[str, Any], ...]) -> None:
+        """Set the explorer to the settings that show a finding (``Finding.view``): the view
+        named first, with the given options and choice."""
+        values = dict(settings)
+        name = values.pop("view")
+        view = views.view_named(name)
+        state = self.state
+        if "choice" in values:
+            state = state.with_choice(name, values.pop("choice"))
+        if values and view.options_type is not None:
+            current = state.options_for(name, view.options_type)
+            state = state.with_options(name, current.replace(**values))
+        self._apply(state)
+        self.show_view(name)
 
     def _choice(self, panel: Panel, study: Study, result: Any) -> str | None:
         choices = panel.view.choices(study, result)
@@ -451,7 +504,10 @@ class Explorer(widgets.VBox):
             raise QCDataError("The chart has no points to select.")
         # The source's rows are the chart's points in order; its subgroup column may hold
         # codes or times, so the labels come from the result, written as _select reads them.
-        subgroup = self.chart().points["subgroup"].iloc[list(indices)]
+        # On a long chart the points source is a display reduction: its "point" column holds
+        # each row's position in the result's points.
+        rows = np.asarray(self._selection_source.data["point"])[list(indices)]
+        subgroup = self.chart().points["subgroup"].iloc[rows]
         if isinstance(subgroup.dtype, pd.CategoricalDtype):
             labels = subgroup.cat.categories.astype(str)[subgroup.cat.codes.to_numpy()]
         else:
@@ -513,22 +569,75 @@ class Explorer(widgets.VBox):
     def _show_log(self) -> None:
         self.actions.exclusions.value = log_html(self.state.exclusions, ())
         self.actions.notes.value = log_html((), self.state.notes) if self.state.notes else ""
+        self.logbook.changed(self.state)
 
     # ---- the investigation log ----------------------------------------------------
     def save(self, path: str | Path) -> Path:
-        """Save settings, exclusions and notes with a fingerprint of the data (JSON)."""
-        written = save_log(path, self.state, data_id=self.data_id, roles=self.study.roles())
+        """Save settings, exclusions and notes with a description of the data (JSON), whole
+        or not at all: a failed save leaves a log saved there before as it was."""
+        written = save_log(path, self.state, self.logbook.data)
+        self.logbook.saved(self.state)
         self._say(f"Investigation log saved to {written}.")
         return written
 
-    def load(self, path: str | Path) -> None:
-        """Load an investigation log saved on the same data (other data are refused)."""
-        state = load_log(path, data_id=self.data_id, option_types=views.option_types())
-        self._shown.clear()
-        self._apply(state)
-        # Said before what the panel update reported (which may be an error), not instead.
+    def load(
+        self, source: str | Path | bytes | SavedLog | ExplorerState, *, fit: bool = False
+    ) -> None:
+        """Load an investigation log: a file's path, its content, a log read already, or a state.
+
+        A log made on other data is refused with what differs (``views.log.LogMismatch``);
+        ``fit=True`` applies what still fits these data instead (``views.log.fit_state``).
+        A log that cannot be applied raises a QCDataError and changes nothing.
+        """
+        left_out: tuple[str, ...] | None = None  # None: made on these data
+        if isinstance(source, ExplorerState):
+            state, origin = source, "the given state"
+        else:
+            if isinstance(source, SavedLog):
+                log = source
+            elif isinstance(source, (bytes, bytearray, memoryview)):
+                log = parse_log(bytes(source), "the uploaded log")
+            else:
+                log = parse_log(read_log_file(source), str(source))
+            state, origin = log.state(views.option_types()), log.source
+            try:
+                log.check(self.logbook.data)
+            except LogMismatch:
+                if not fit:
+                    raise
+                state, left_out = fit_state(state, self.state, self.views, self.study_for)
+        previous = self.state
+        try:
+            # The view on show is computed first, so that a log it cannot show is refused
+            # before anything changes.
+            study = self.study_for(state)
+            visible = self.views[self.tabs.selected_index or 0]
+            if not visible.available(study):
+                visible.compute(study, visible.options_for(study, state))
+            self._apply(state)
+        except Exception as error:
+            if self.state != previous:
+                self.state = previous
+                self._write_controls(previous)
+                self._show_log()
+            if isinstance(error, QCDataError):
+                raise
+            # A state from a file that these data cannot take: refused like any bad input.
+            raise QCDataError(
+                f"The investigation log {origin!r} does not fit these data "
+                f"({type(error).__name__}: {error})."
+            ) from None
+        if self.state != state:
+            raise QCDataError(
+                f"The investigation log {origin!r} cannot be shown here (the reason is next to "
+                "the view's settings)."
+            )
         loaded = (
-            f"Investigation log loaded from {path}: {len(state.exclusions)} subgroup(s) left "
+            f"Investigation log loaded from {origin}: {len(state.exclusions)} subgroup(s) left "
             f"out of the limits, {len(state.notes)} note(s)."
         )
+        if left_out is not None:
+            kept = f"; left out: {'; '.join(left_out)}" if left_out else ": all of it"
+            loaded += f" It was made on other data. Applied what fits these data{kept}."
+        # Said before what the panel update reported (which may be an error), not instead.
         self.status.value = f"<span class='qcx-ok'>{html.escape(loaded)}</span> {self.status.value}"

@@ -1,17 +1,27 @@
 """The explorer as a standalone web page, served by Voila.
 
-``serve(study)`` writes the study to a private temporary folder, starts a Voila
-server on the notebook ``app.ipynb`` shipped with the package, prints the address
-and blocks until Ctrl-C (or SIGTERM). The notebook runs :func:`app_view`, which
-reads the study back through the environment variable :data:`CONFIG_ENV`.
+``serve(study)`` writes the study to a private temporary folder, starts the app's Voila server
+(:mod:`qcexplore.app.server`) on the notebook ``app.ipynb`` shipped with the package, prints the
+address and blocks until Ctrl-C (or SIGTERM). The notebook runs :func:`app_view`, which reads
+the study back through the environment variable :data:`CONFIG_ENV`.
 
-The page loads BokehJS from the installed package (no CDN), each page view gets its
-own kernel, a warm kernel is kept ready so the first page opens quickly, and kernels
-left idle (a closed tab) are shut down after ``idle_timeout`` seconds.
+What the server does for a room of viewers, and against the pages they visit elsewhere:
+
+- it answers only at its own address (Host checked) and only its own page (Origin checked);
+  remote access is off unless ``host`` says otherwise;
+- on the network it needs an access token (one is made and printed when none is given), which
+  is never put on a command line; with a certificate it speaks TLS, without one it warns;
+- each page view gets its own kernel, up to a cap sized to the machine
+  (:func:`qcexplore.app.kernels.default_max_pages`); kernels whose page never connected go
+  after ``connect_timeout`` seconds, those of closed pages after ``idle_timeout``;
+- the page loads everything from this machine (BokehJS from the installed package, no CDN);
+- investigation logs go to and from the browser, or by name to a log folder fixed here,
+  where every page view also autosaves (:mod:`qcexplore.app.logs`); no page names a path.
 """
 
 from __future__ import annotations
 
+import html
 import ipaddress
 import json
 import os
@@ -19,9 +29,10 @@ import pickle
 import secrets
 import shutil
 import socket
+import ssl
 import sys
 import tempfile
-from collections.abc import Callable
+from collections.abc import Callable, MutableMapping
 from dataclasses import asdict, dataclass
 from importlib.resources import files
 from pathlib import Path
@@ -35,10 +46,27 @@ from qcexplore.study import Study
 
 #: Environment variable naming the JSON file that tells the notebook what to show.
 CONFIG_ENV = "QCEXPLORE_APP_CONFIG"
+#: Environment variable that may hold the access token (read once, then removed).
+TOKEN_ENV = "QCEXPLORE_APP_TOKEN"
+#: Tokens shorter than this are refused: they could be guessed.
+MIN_TOKEN_LENGTH = 16
 #: The notebook the served page runs (package data).
 NOTEBOOK = "app.ipynb"
 _STUDY_FILE = "study.pickle"
 _CONFIG_FILE = "app.json"
+#: Asks before the page is closed or reloaded while the log has changes not saved under a
+#: name (the log's status line then carries the ``qcx-unsaved`` mark).
+UNSAVED_WARNING = """
+if (!window.qcexploreUnsavedWarning) {
+  window.qcexploreUnsavedWarning = true;
+  window.addEventListener('beforeunload', (event) => {
+    if (document.querySelector('.qcx-unsaved')) {
+      event.preventDefault();
+      event.returnValue = '';
+    }
+  });
+}
+"""
 
 
 def is_loopback(host: str) -> bool:
@@ -57,25 +85,6 @@ def is_loopback(host: str) -> bool:
         return False
 
 
-def require_access_control(host: str, token: str | None) -> None:
-    """Refuse to serve the network without an access token (loopback needs none).
-
-    Examples
-    --------
-    >>> require_access_control("127.0.0.1", None)
-    >>> require_access_control("0.0.0.0", None)  # doctest: +ELLIPSIS
-    Traceback (most recent call last):
-    ...
-    qcexplore.errors.QCDataError: Serving on 0.0.0.0 lets others on the network in: ...
-    """
-    if not is_loopback(host) and not token:
-        raise QCDataError(
-            f"Serving on {host} lets others on the network in: give an access token "
-            "(--token TOKEN, or --token auto to generate one), or serve this machine only "
-            "(the default host 127.0.0.1)."
-        )
-
-
 def new_token() -> str:
     """A random access token for a server that others on the network can reach.
 
@@ -85,6 +94,86 @@ def new_token() -> str:
     True
     """
     return secrets.token_urlsafe(24)
+
+
+def read_token(
+    token_file: str | os.PathLike | None = None,
+    environ: MutableMapping[str, str] | None = None,
+) -> str | None:
+    """The access token: from ``token_file`` (its first line) or from the environment variable
+    :data:`TOKEN_ENV`, which is removed so that kernels do not inherit it. None when neither
+    gives one.
+
+    Raises
+    ------
+    QCDataError
+        When the file cannot be read, or the token is shorter than :data:`MIN_TOKEN_LENGTH`.
+
+    Examples
+    --------
+    >>> env = {TOKEN_ENV: "x" * 20}
+    >>> read_token(environ=env) == "x" * 20 and TOKEN_ENV not in env
+    True
+    >>> read_token(environ={}) is None
+    True
+    """
+    environ = os.environ if environ is None else environ
+    from_environment = environ.pop(TOKEN_ENV, None)
+    if token_file is not None:
+        try:
+            lines = Path(token_file).read_text(encoding="utf-8").splitlines()
+        except (OSError, UnicodeDecodeError) as error:
+            reason = getattr(error, "strerror", None) or type(error).__name__
+            raise QCDataError(
+                f"Cannot read the token file {str(token_file)!r} ({reason}): give a text file "
+                "whose first line is the token."
+            ) from None
+        token, where = (lines[0].strip() if lines else ""), f"the token file {str(token_file)!r}"
+    elif from_environment is not None:
+        token, where = from_environment.strip(), TOKEN_ENV
+    else:
+        return None
+    if len(token) < MIN_TOKEN_LENGTH:
+        raise QCDataError(
+            f"The token in {where} is {len(token)} characters long: give at least "
+            f"{MIN_TOKEN_LENGTH} (leave it out on the network and one is made for you)."
+        )
+    return token
+
+
+def tls_context(certfile: str | None, keyfile: str | None) -> ssl.SSLContext | None:
+    """The TLS settings for a certificate (and its key, unless the certificate file holds it);
+    None when no certificate is given.
+
+    Raises
+    ------
+    QCDataError
+        When the files cannot be read or do not belong together.
+
+    Examples
+    --------
+    >>> tls_context(None, None) is None
+    True
+    >>> tls_context(None, "key.pem")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: --keyfile needs --certfile: ...
+    """
+    if certfile is None:
+        if keyfile is not None:
+            raise QCDataError("--keyfile needs --certfile: give the certificate as well.")
+        return None
+    context = ssl.create_default_context(ssl.Purpose.CLIENT_AUTH)
+    try:
+        context.load_cert_chain(certfile, keyfile)
+    except (OSError, ssl.SSLError) as error:
+        reason = getattr(error, "strerror", None) or getattr(error, "reason", None) or error
+        raise QCDataError(
+            f"Cannot use the certificate {certfile!r}"
+            f"{f' with the key {keyfile!r}' if keyfile else ''} ({reason}): give a PEM "
+            "certificate and its private key (--certfile, --keyfile)."
+        ) from None
+    return context
 
 
 def free_port(host: str = "127.0.0.1", port: int = 0) -> int:
@@ -119,15 +208,14 @@ def free_port(host: str = "127.0.0.1", port: int = 0) -> int:
 class AppSettings:
     """What the served page shows besides the study.
 
-    ``workdir``: the folder the kernel works in (where the explorer saves and loads
-    investigation logs): the folder ``qcexplore app`` was started in, not the
-    temporary app folder that is removed when the server stops. ``log``: an
-    investigation log to open the explorer with.
+    ``title``: the page's heading; ``log``: an investigation log to open the explorer with
+    (checked when the server starts); ``log_folder``: the folder of investigation logs, where
+    every page view autosaves (None: logs only go to and from the browser).
     """
 
     title: str = ""
-    workdir: str | None = None
     log: str | None = None
+    log_folder: str | None = None
 
 
 def write_app_folder(study: Study, folder: Path, settings: AppSettings | None = None) -> Path:
@@ -197,6 +285,9 @@ def load_app_study(config: str | os.PathLike | None = None) -> tuple[Study, AppS
 def app_view(config: str | os.PathLike | None = None) -> Any:
     """The widget the served page shows: a heading and the explorer of the study.
 
+    The explorer keeps its logs in the settings' log folder (autosaving this page view's
+    work there) and opens the settings' log, if any.
+
     Examples
     --------
     >>> import tempfile
@@ -206,79 +297,45 @@ def app_view(config: str | os.PathLike | None = None) -> Any:
     >>> type(app_view(config).children[1]).__name__
     'Explorer'
     """
-    import html
-
     import ipywidgets as widgets
 
-    from qcexplore.app.resources import load_bokehjs
+    from qcexplore.app.logs import LogFolder
+    from qcexplore.app.resources import in_kernel, load_bokehjs
 
     study, settings = load_app_study(config)
-    if settings.workdir and Path(settings.workdir).is_dir():
-        os.chdir(settings.workdir)
-    explorer = study.explore(log=settings.log)
+    explorer = study.explore()
+    if settings.log_folder:
+        explorer.logbook.attach(LogFolder(settings.log_folder))
+    if settings.log:
+        explorer.logbook.open_file(settings.log)
     heading = widgets.HTML(
         f"<h2 class='qcexplore-app-title'>{html.escape(settings.title)}</h2>",
         layout=widgets.Layout(margin="0 0 0 8px"),
     )
     # The explorer loads BokehJS when it is displayed itself; wrapped, it is loaded here.
     load_bokehjs()
+    if in_kernel():
+        from IPython.display import Javascript, display
+
+        display(Javascript(UNSAVED_WARNING))
     return widgets.VBox([heading, explorer])
 
 
-def voila_arguments(
-    notebook: Path,
-    *,
-    host: str,
-    port: int,
-    token: str | None,
-    idle_timeout: float,
-    preheat: bool,
-) -> list[str]:
-    """The Voila command line for serving ``notebook``.
-
-    Examples
-    --------
-    >>> args = voila_arguments(Path("app.ipynb"), host="127.0.0.1", port=8900, token=None,
-    ...                        idle_timeout=600, preheat=True)
-    >>> "--preheat_kernel=True" in args and "--port=8900" in args
-    True
-    """
-    args = [
-        str(notebook),
-        "--no-browser",
-        f"--Voila.ip={host}",
-        f"--port={port}",
-        "--Voila.port_retries=0",
-        f"--Voila.root_dir={notebook.parent}",
-        "--theme=light",
-        f"--MappingKernelManager.cull_idle_timeout={int(idle_timeout)}",
-        f"--MappingKernelManager.cull_interval={max(1, min(60, int(idle_timeout) // 2))}",
-        "--Voila.log_level=ERROR",
-        # Kernels talk to the server over local sockets: no TCP ports, nothing in plain text.
-        "--KernelManager.transport=ipc",
-    ]
-    if preheat:
-        args += ["--preheat_kernel=True", "--pool_size=1"]
-    if token:
-        args.append(f"--token={token}")
-    return args
-
-
-def app_address(host: str, port: int, token: str | None) -> str:
-    """The address to open in a browser.
+def app_address(host: str, port: int, token: str | None, *, tls: bool = False) -> str:
+    """The address to open in a browser (with the token, when one is to be shown).
 
     Examples
     --------
     >>> app_address("127.0.0.1", 8900, None)
     'http://127.0.0.1:8900/'
-    >>> app_address("0.0.0.0", 8900, "abc").endswith(":8900/?token=abc")
+    >>> app_address("0.0.0.0", 8900, "abc", tls=True).endswith(":8900/?token=abc")
     True
     """
     shown = socket.gethostname() if host in ("0.0.0.0", "::", "") else host
     if ":" in shown:
         shown = f"[{shown}]"
     query = f"?token={token}" if token else ""
-    return f"http://{shown}:{port}/{query}"
+    return f"{'https' if tls else 'http'}://{shown}:{port}/{query}"
 
 
 def serve(
@@ -288,8 +345,10 @@ def serve(
     host: str = "127.0.0.1",
     port: int | None = None,
     token: str | None = None,
+    tls: ssl.SSLContext | None = None,
     idle_timeout: float = 900.0,
-    preheat: bool = True,
+    connect_timeout: float = 120.0,
+    max_pages: int | None = None,
     announce: Callable[[str], None] | None = None,
 ) -> None:
     """Serve the explorer of ``study`` as a web page until Ctrl-C.
@@ -297,58 +356,75 @@ def serve(
     Parameters
     ----------
     study : the study to explore
-    settings : the page's title, the kernel's working folder and an investigation log
-        to open (default: no title, the current folder, no log)
-    host : address to listen on; anything other than loopback needs ``token``
+    settings : the page's title, an investigation log to open and the log folder
+        (default: no title, no log, logs only to and from the browser)
+    host : address to listen on (default: this machine only)
     port : TCP port (default: a free one)
-    token : access token; requests without it are refused
-    idle_timeout : seconds after which a kernel without a page is shut down
-    preheat : keep one kernel ready with the notebook already run (faster first page)
-    announce : called with one line naming the address once the server listens
-        (default: print it)
+    token : access token; requests without it are refused. On the network one is made when
+        none is given, and shown in the address.
+    tls : TLS settings (:func:`tls_context`); without them a network server warns
+    idle_timeout : seconds after which the kernel of a closed page is shut down
+    connect_timeout : seconds after which a kernel whose page never connected is shut down
+    max_pages : pages open at once (default: sized to the machine's free memory)
+    announce : called with each line to show (default: print it); the last names the address
+        once the server listens
 
     Examples
     --------
     >>> from qcexplore.demo import filling_line
     >>> s = Study(filling_line()[0], value="net_g", subgroup="round")
-    >>> serve(s, host="0.0.0.0")  # the network needs a token; serve(s) blocks until Ctrl-C
+    >>> serve(s, port=-1)  # doctest: +ELLIPSIS
     Traceback (most recent call last):
     ...
-    qcexplore.errors.QCDataError: Serving on 0.0.0.0 lets others on the network in: ...
+    qcexplore.errors.QCDataError: Cannot listen on 127.0.0.1 port -1 ...
     """
-    require_access_control(host, token)
-    from tornado.ioloop import IOLoop
-    from tornado.web import GZipContentEncoding
-    from voila.app import Voila
+    from qcexplore.app.guard import HostPolicy
+    from qcexplore.app.kernels import KERNEL_BYTES, default_max_pages
+    from qcexplore.app.server import AppServer, ServerSetup, voila_config, write_template
 
     say = announce or (lambda line: print(line, flush=True))
-    port = free_port(host or "0.0.0.0", port or 0)
-    address = app_address(host, port, token)
+    port = free_port(host or "0.0.0.0", port if port is not None else 0)
+    shown_token = None
+    if token is None and not is_loopback(host):
+        token = shown_token = new_token()
+    if not is_loopback(host) and tls is None:
+        print(
+            f"qcexplore app: warning: serving {host} over plain HTTP: the page, the data and "
+            "the token can be read on the network; give --certfile and --keyfile.",
+            file=sys.stderr,
+            flush=True,
+        )
+    data_bytes = int(study.data.memory_usage(deep=True).sum())
+    limit = max_pages or default_max_pages(data_bytes)
+    each = (KERNEL_BYTES + 3 * data_bytes) / 2**20
+    say(f"qcexplore app: up to {limit} pages at once (about {each:.0f} MB each; --max-pages)")
+    settings = settings or AppSettings()
+    if settings.log_folder:
+        say(f"qcexplore app: investigation logs in {settings.log_folder}")
+    address = app_address(host, port, shown_token, tls=tls is not None)
 
     folder = Path(tempfile.mkdtemp(prefix="qcexplore-app-"))
     previous = os.environ.get(CONFIG_ENV)
     try:
-        settings = settings or AppSettings(workdir=os.getcwd())
         os.environ[CONFIG_ENV] = str(write_app_folder(study, folder, settings))
-        server = Voila()
-        server.stop = lambda: _stop_kernels(server)
-        server.initialize(
-            voila_arguments(
-                folder / NOTEBOOK,
-                host=host,
-                port=port,
-                token=token,
-                idle_timeout=idle_timeout,
-                preheat=preheat,
-            )
+        setup = ServerSetup(
+            policy=HostPolicy(host, scheme="https" if tls else "http"),
+            max_pages=limit,
+            template=write_template(folder / "template"),
+            tls=tls,
+            compress=not is_loopback(host),
+            on_listen=lambda: say(f"qcexplore app: {address} (Ctrl-C stops)"),
         )
-
-        def listening() -> None:  # Voila starts this loop once the port is bound
-            if not is_loopback(host):  # the page carries BokehJS (MB): gzip it on a network
-                server.app.add_transform(GZipContentEncoding)
-            say(f"qcexplore app: {address} (Ctrl-C stops)")
-
-        IOLoop.current().add_callback(listening)
+        config = voila_config(
+            host=host,
+            port=port,
+            root=folder,
+            token=token,
+            idle_timeout=idle_timeout,
+            connect_timeout=connect_timeout,
+        )
+        server = AppServer(setup, config=config)
+        server.initialize([str(folder / NOTEBOOK)])
         server.start()  # returns after Ctrl-C or SIGTERM, kernels shut down
     finally:
         if previous is None:
@@ -357,25 +433,3 @@ def serve(
             os.environ[CONFIG_ENV] = previous
         shutil.rmtree(folder, ignore_errors=True)
     print("qcexplore app: stopped", file=sys.stderr, flush=True)
-
-
-def _stop_kernels(server: Any) -> None:
-    """Voila's stop, made to finish when a kernel died first (Ctrl-C reaches kernels too).
-
-    Voila shuts all kernels down together and gives up at the first one that is
-    already gone (a kernel starting for the pool when the stop came); the rest
-    are then shut down one by one so that none is left running.
-    """
-    from jupyter_core.utils import run_sync
-    from voila.app import Voila
-
-    try:
-        Voila.stop(server)
-    except Exception as error:  # a kernel that is already gone; stop the others
-        server.log.info("Kernel shut-down: %s", error)
-        manager = server.kernel_manager
-        for kernel_id in list(manager.list_kernel_ids()):
-            try:
-                run_sync(manager.shutdown_kernel)(kernel_id, now=True)
-            except Exception as gone:  # already stopped on its own
-                server.log.info("Kernel %s: %s", kernel_id, gone)

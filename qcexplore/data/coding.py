@@ -23,12 +23,17 @@ def is_real_number(x: object, *, finite: bool = True) -> bool:
     --------
     >>> is_real_number(2), is_real_number(True), is_real_number("2"), is_real_number(float("nan"))
     (True, False, False, False)
-    >>> is_real_number(float("inf"), finite=False)
-    True
+    >>> is_real_number(float("inf"), finite=False), is_real_number(10**400)
+    (True, False)
     """
     if isinstance(x, (bool, np.bool_)) or not isinstance(x, numbers.Real):
         return False
-    return not finite or math.isfinite(float(x))
+    if not finite:
+        return True
+    try:
+        return math.isfinite(float(x))
+    except OverflowError:  # an integer beyond any float (10**400) is no usable number
+        return False
 
 
 def real_number(
@@ -53,7 +58,7 @@ def real_number(
     """
     if not is_real_number(x):
         raise QCDataError(
-            f"{name}={_short(x)} is not {what}: give a single finite number"
+            f"{name}={shorten(x)} is not {what}: give a single finite number"
             f"{_range(lower, upper, inclusive)}."
         )
     value = float(x)  # type: ignore[arg-type]
@@ -77,7 +82,7 @@ def _range(lower: float | None, upper: float | None, inclusive: bool) -> str:
     return ""
 
 
-def _short(x: Any, limit: int = 60) -> str:
+def shorten(x: Any, limit: int = 60) -> str:
     text = repr(x)
     return text if len(text) <= limit else f"{text[:limit]}... ({len(text)} characters)"
 

@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import re
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -44,6 +45,27 @@ def shift_starts(shifts: Mapping[str, str]) -> list[tuple[int, str]]:
     return starts
 
 
+def _wall_clock(times: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """The calendar day (``datetime64[D]``) and the minute of the day of each timestamp, read
+    on its own wall clock (a time zone's local time), in whole-array operations."""
+    local = times.dt.tz_localize(None) if getattr(times.dt, "tz", None) is not None else times
+    stamps = local.to_numpy().astype("datetime64[m]")
+    days = stamps.astype("datetime64[D]")
+    return days, np.where(np.isnat(stamps), -1, (stamps - days).astype(np.int64))
+
+
+def _shift_slots(
+    days: np.ndarray, minutes: np.ndarray, shifts: Mapping[str, str]
+) -> tuple[pd.Categorical, np.ndarray]:
+    """Shift of each minute of the day, and the production day (the day its shift began)."""
+    starts = shift_starts(shifts)
+    slot = np.searchsorted(np.array([m for m, _ in starts]), minutes, side="right") - 1
+    before_first = slot < 0
+    slot = np.where(minutes < 0, -1, np.where(before_first, len(starts) - 1, slot))
+    shift = pd.Categorical.from_codes(slot, categories=[name for _, name in starts])
+    return shift, days - before_first.astype("timedelta64[D]")
+
+
 def assign_shifts(times: pd.Series, shifts: Mapping[str, str]) -> tuple[pd.Series, pd.Series]:
     """Shift name and production day of each timestamp.
 
@@ -59,20 +81,18 @@ def assign_shifts(times: pd.Series, shifts: Mapping[str, str]) -> tuple[pd.Serie
     >>> names.tolist(), days.astype(str).tolist()
     (['night', 'night'], ['2026-03-02', '2026-03-02'])
     """
-    starts = shift_starts(shifts)
-    start_minutes = np.array([m for m, _ in starts])
-    names = [n for _, n in starts]
-    local = times.dt
-    minute_of_day = (local.hour * 60 + local.minute).to_numpy()
-    slot = np.searchsorted(start_minutes, minute_of_day, side="right") - 1
-    before_first = slot < 0
-    slot = np.where(before_first, len(names) - 1, slot)
-    shift = pd.Categorical.from_codes(slot, categories=names)
-    calendar_day = local.normalize()
-    if getattr(local, "tz", None) is not None:
-        calendar_day = calendar_day.dt.tz_localize(None)
-    day = calendar_day - pd.to_timedelta(before_first.astype(int), unit="D")
-    return pd.Series(shift, index=times.index), day.dt.date
+    shift, day = _shift_slots(*_wall_clock(times), shifts)
+    return pd.Series(shift, index=times.index), pd.Series(day, index=times.index).dt.date
+
+
+def _present(codes: np.ndarray, labels: Sequence[Any], index: pd.Index) -> pd.Series:
+    """A categorical of ``labels[codes]`` (-1: missing) with only the labels in use, in their
+    order."""
+    used = np.bincount(codes + 1, minlength=len(labels) + 1)[1:] > 0
+    # The new code of each old one; the last entry, -1, is what code -1 (missing) reads.
+    renumber = np.r_[np.cumsum(used) - 1, -1].astype(np.int8)
+    kept = [label for label, keep in zip(labels, used, strict=True) if keep]
+    return pd.Series(pd.Categorical.from_codes(renumber[codes], categories=kept), index=index)
 
 
 def derive_time_factors(
@@ -81,7 +101,8 @@ def derive_time_factors(
     """Weekday, hour (and shift and production day when ``shifts`` is given) as categoricals.
 
     With shifts, the weekday is that of the production day, so the Monday night
-    shift's early-morning samples count as Monday.
+    shift's early-morning samples count as Monday. Each distinct day is named and given
+    its weekday once, whatever the number of rows on it.
 
     Examples
     --------
@@ -92,20 +113,18 @@ def derive_time_factors(
     """
     if not pd.api.types.is_datetime64_any_dtype(times.dtype):
         return {}
-    hours = pd.Categorical(times.dt.hour, categories=range(24)).remove_unused_categories()
-    derived = {"hour": pd.Series(hours, index=times.index)}
+    days, minutes = _wall_clock(times)
+    derived = {"hour": _present(minutes // 60, list(range(24)), times.index)}
     if shifts is not None:
-        shift, day = assign_shifts(times, shifts)
-        derived["shift"] = shift
-        day_ts = pd.to_datetime(day)
-    else:
-        day_ts = times.dt.normalize()
-        if getattr(times.dt, "tz", None) is not None:
-            day_ts = day_ts.dt.tz_localize(None)
-    weekday = pd.Categorical.from_codes(day_ts.dt.day_of_week.to_numpy(), categories=list(WEEKDAYS))
-    derived["weekday"] = pd.Series(weekday, index=times.index).cat.remove_unused_categories()
-    days = day_ts.dt.strftime("%Y-%m-%d")
+        shift, days = _shift_slots(days, minutes, shifts)
+        derived["shift"] = pd.Series(shift, index=times.index)
+    codes, distinct = pd.factorize(days, sort=True)
+    # 1970-01-01, day 0 of datetime64[D], was a Thursday (weekday 3 counting Monday as 0).
+    weekday_of = (distinct.astype(np.int64) + 3) % 7
+    weekdays = np.where(codes >= 0, weekday_of[codes], -1)
+    derived["weekday"] = _present(weekdays, list(WEEKDAYS), times.index)
+    names = np.datetime_as_string(distinct, unit="D").tolist()
     derived["day"] = pd.Series(
-        pd.Categorical(days, categories=sorted(days.unique())), index=times.index
+        pd.Categorical.from_codes(codes, categories=names), index=times.index
     )
     return derived

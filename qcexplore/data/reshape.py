@@ -2,22 +2,24 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Hashable, Sequence
 
 import numpy as np
 import pandas as pd
 
-from qcexplore.data.validate import require_columns, require_frame
+from qcexplore.data.coding import shorten as shown
+from qcexplore.data.numbers import is_measurement_dtype, number_cells
+from qcexplore.data.validate import column_name, column_names, require_columns, require_frame
 from qcexplore.errors import QCDataError
 
 
 def to_long(
     frame: pd.DataFrame,
-    sample_columns: Sequence[str],
+    sample_columns: Sequence[Hashable],
     *,
-    keep: Sequence[str] | None = None,
-    sample: str = "sample",
-    value: str = "value",
+    keep: Sequence[Hashable] | None = None,
+    sample: Hashable = "sample",
+    value: Hashable = "value",
 ) -> pd.DataFrame:
     """One row per measurement from a sheet with one column per sample.
 
@@ -37,34 +39,46 @@ def to_long(
     >>> wide = pd.DataFrame({"day": [1, 2], "s1": [500.1, 499.7], "s2": [500.4, 500.0]})
     >>> to_long(wide, ["s1", "s2"]).values.tolist()
     [[1, 's1', 500.1], [1, 's2', 500.4], [2, 's1', 499.7], [2, 's2', 500.0]]
+    >>> to_long(pd.DataFrame([[1.5, 2.5]]), [0, 1])["value"].tolist()  # a frame from an array
+    [1.5, 2.5]
     """
     require_frame(frame)
-    if isinstance(sample_columns, str) or not len(sample_columns):
+    sample_columns = list(column_names(sample_columns, "sample_columns"))
+    if not sample_columns:
         raise QCDataError(
             "sample_columns must be a non-empty list of column names, e.g. ['s1', 's2']."
         )
-    sample_columns = list(sample_columns)
     require_columns(frame, sample_columns, "sample columns")
     if len(set(sample_columns)) != len(sample_columns):
         raise QCDataError("A sample column is listed twice in sample_columns; list each once.")
     if keep is None:
-        keep = [c for c in frame.columns if c not in sample_columns]
+        kept = [i for i, c in enumerate(frame.columns) if c not in sample_columns]
     else:
-        keep = list(keep)
+        keep = list(column_names(keep, "keep"))
         require_columns(frame, keep, "keep")
-    clash = {sample, value} & set(keep)
+        kept = [frame.columns.get_loc(c) for c in keep]
+    sample = column_name(sample, "sample")
+    value = column_name(value, "value")
+    clash = {sample, value} & set(frame.columns[kept])
     if clash or sample == value:
         raise QCDataError(
-            f"The new column names sample={sample!r} and value={value!r} must differ from "
-            f"each other and from the kept columns; pass other names (clash: {sorted(clash)})."
+            f"The new column names sample={shown(sample)} and value={shown(value)} must differ "
+            "from each other and from the kept columns; pass other names "
+            f"(clash: {', '.join(shown(c) for c in clash) or 'sample equals value'})."
         )
     k = len(sample_columns)
-    # By position: labels would repeat rows of a frame whose index has duplicates.
-    ids = frame[keep].iloc[np.repeat(np.arange(len(frame)), k)].reset_index(drop=True)
+    # By position: labels would repeat rows of a frame whose index has duplicates, and a
+    # column named None or NaN cannot be looked up by its name.
+    ids = frame.iloc[np.repeat(np.arange(len(frame)), k), kept].reset_index(drop=True)
     positions = np.tile(np.arange(k), len(frame))
     ids[sample] = pd.Categorical.from_codes(positions, categories=[str(c) for c in sample_columns])
-    ids[value] = frame[sample_columns].to_numpy(dtype=object).reshape(-1)
-    numeric = pd.to_numeric(ids[value], errors="coerce")
-    if numeric.notna().sum() == ids[value].notna().sum():
-        ids[value] = numeric.astype(np.float64)
+    block = frame.iloc[:, [frame.columns.get_loc(c) for c in sample_columns]]
+    if all(is_measurement_dtype(dtype) for dtype in block.dtypes):
+        ids[value] = block.to_numpy(dtype=np.float64, na_value=np.nan).reshape(-1)
+        return ids
+    cells = pd.Series(block.to_numpy(dtype=object).reshape(-1), dtype=object)
+    read = number_cells(cells)
+    # Numbers when every cell reads as one; otherwise the cells as given, for the Study
+    # to name the rows that are not numbers.
+    ids[value] = read.values if read.readable else cells
     return ids

@@ -1,23 +1,31 @@
 """The one place where input is checked: every problem becomes a QCDataError.
 
 Messages name the column, the first offending rows (as 1-based row numbers of the
-table the user gave) and what to do.
+table the user gave) and what to do. Cells and names quoted in a message are cut to
+about 60 characters, with their length, so a huge cell never floods a terminal.
+
+Text cells are read in :mod:`qcexplore.data.numbers` (decimal comma or point) and
+:mod:`qcexplore.data.dates` (day-first, month-first or year-first dates; the time line).
 """
 
 from __future__ import annotations
 
-import numbers
-import re
-from collections.abc import Iterable, Sequence
+from collections.abc import Hashable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
+from qcexplore.data.coding import is_real_number
+from qcexplore.data.coding import shorten as shown
 from qcexplore.errors import QCDataError
 
 _SHOWN_ROWS = 5
-_DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d{1,3}(?:[.\s']\d{3})*,\d+\s*$|^\s*[-+]?\d+,\d+\s*$")
+
+#: Cells that mean "no value" (pandas' own list for CSV files, so frames and files agree).
+MISSING_TEXT = frozenset(
+    {"", "nan", "NaN", "-nan", "-NaN", "NA", "N/A", "n/a", "#N/A", "NULL", "null", "None", "<NA>"}
+)
 
 
 def row_list(positions: Iterable[int]) -> str:
@@ -29,11 +37,16 @@ def row_list(positions: Iterable[int]) -> str:
     'rows 1, 5'
     """
     rows = [int(p) + 1 for p in positions]
-    shown = ", ".join(map(str, rows[:_SHOWN_ROWS]))
+    listed = ", ".join(map(str, rows[:_SHOWN_ROWS]))
     more = f" and {len(rows) - _SHOWN_ROWS} more" if len(rows) > _SHOWN_ROWS else ""
-    return f"row{'s' if len(rows) > 1 else ''} {shown}{more}"
+    return f"row{'s' if len(rows) > 1 else ''} {listed}{more}"
 
 
+def cell_examples(cells: Sequence[object], positions: np.ndarray, count: int = 3) -> str:
+    return ", ".join(shown(cells[int(i)]) for i in positions[:count])
+
+
+# ---- tables and column names ----------------------------------------------------------------
 def require_frame(frame: object) -> pd.DataFrame:
     """Check that ``frame`` is a pandas DataFrame with unique column names and some rows.
 
@@ -54,11 +67,88 @@ def require_frame(frame: object) -> pd.DataFrame:
     duplicated = frame.columns[frame.columns.duplicated()].unique().tolist()
     if duplicated:
         raise QCDataError(
-            f"Duplicate column names {duplicated}: rename the columns so each name is used once."
+            f"Duplicate column names {shown(duplicated)}: rename the columns so each name is "
+            "used once."
         )
     if len(frame) == 0:
         raise QCDataError("The table has no rows: check the file or the filter that made it.")
     return frame
+
+
+def require_text_names(frame: pd.DataFrame) -> pd.DataFrame:
+    """Check that every column name is text, as the Study's roles, tables and figures need.
+
+    A table made from an array has the numbers 0, 1, 2, ... as names; it is refused with
+    the way to name the columns rather than failing later in a join or a widget.
+
+    Examples
+    --------
+    >>> require_text_names(pd.DataFrame({"w": [1.0]})).columns.tolist()
+    ['w']
+    >>> require_text_names(pd.DataFrame([[1.0, 2.0]]))  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: Column names must be text; this table has 0, 1 ...
+    """
+    odd = [name for name in frame.columns if not isinstance(name, str)]
+    if odd:
+        listed = ", ".join(shown(name) for name in odd[:5])
+        raise QCDataError(
+            f"Column names must be text; this table has {listed} (a table made from an array "
+            "has numbers as names). Name the columns, e.g. frame.columns = ['weight', 'crew', "
+            "...], or frame = frame.rename(columns=str)."
+        )
+    return frame
+
+
+def column_name(name: object, role: str, *, optional: bool = False) -> Hashable:
+    """One column name (text or a whole number), or a QCDataError naming the argument.
+
+    Examples
+    --------
+    >>> column_name("w", "value")
+    'w'
+    >>> column_name(["w"], "value")
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: value=['w'] is not one column name: give the name as text, \
+e.g. value='weight'.
+    """
+    if name is None and optional:
+        return None
+    whole_number = is_real_number(name) and float(name).is_integer()  # type: ignore[arg-type]
+    if isinstance(name, str) or whole_number:
+        return name  # type: ignore[return-value]
+    raise QCDataError(
+        f"{role}={shown(name)} is not one column name: give the name as text, e.g. {role}='weight'."
+    )
+
+
+def column_names(names: object, role: str) -> tuple[Hashable, ...]:
+    """A list of column names as a tuple; a lone string is refused, not split into letters.
+
+    Examples
+    --------
+    >>> column_names(["crew", "nozzle"], "factors")
+    ('crew', 'nozzle')
+    >>> column_names("crew", "factors")  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: factors must be a list of column names, got the string ...
+    """
+    if names is None:
+        return ()
+    if isinstance(names, str):
+        raise QCDataError(
+            f"{role} must be a list of column names, got the string {shown(names)}; "
+            f"write {role}=[{shown(names)}]."
+        )
+    if isinstance(names, (bytes, Mapping)) or not isinstance(names, Iterable):
+        raise QCDataError(
+            f"{role}={shown(names)} is not a list of column names; write e.g. "
+            f"{role}=['crew', 'nozzle']."
+        )
+    return tuple(column_name(name, f"an entry of {role}") for name in names)
 
 
 def require_columns(frame: pd.DataFrame, columns: Sequence[object], role: str) -> None:
@@ -72,60 +162,49 @@ def require_columns(frame: pd.DataFrame, columns: Sequence[object], role: str) -
     ...
     qcexplore.errors.QCDataError: Column 'crew' given as factor not found; the table has: 'w'.
     """
+    for column in columns:
+        column_name(column, role)
     missing = [c for c in columns if c not in frame.columns]
     if missing:
-        available = ", ".join(map(repr, list(frame.columns)[:20]))
+        available = ", ".join(shown(c) for c in list(frame.columns)[:20])
+        more = f" and {frame.shape[1] - 20} more" if frame.shape[1] > 20 else ""
         raise QCDataError(
-            f"Column{'s' if len(missing) > 1 else ''} {', '.join(map(repr, missing))} "
-            f"given as {role} not found; the table has: {available}."
+            f"Column{'s' if len(missing) > 1 else ''} {', '.join(shown(c) for c in missing[:5])} "
+            f"given as {role} not found; the table has: {available}{more}."
         )
 
 
-def _parse_text_numbers(text: pd.Series) -> pd.Series:
-    """Numbers written as text, with a decimal point or a decimal comma."""
-    stripped = text.str.strip()
-    comma = stripped.str.match(_DECIMAL_COMMA).fillna(False).astype(bool)
-    converted = stripped.where(
-        ~comma, stripped.str.replace(r"[.\s']", "", regex=True).str.replace(",", ".")
-    )
-    return pd.to_numeric(converted, errors="coerce")
-
-
-def numeric_values(frame: pd.DataFrame, column: str) -> pd.Series:
-    """The column as float64; text numbers and decimal commas converted.
-
-    Cells that hold something other than a number, a blank or a missing value
-    raise a QCDataError listing their rows. Missing and infinite values stay in
-    the result as NaN/inf for the caller to count and drop.
+def check_role_names(
+    value: object,
+    subgroup: object,
+    time: object,
+    factors: Sequence[Hashable],
+    measured_by: Sequence[Hashable],
+) -> None:
+    """Catch contradictory or malformed role assignments before any data are touched.
 
     Examples
     --------
-    >>> f = pd.DataFrame({"w": ["500,5", " 1.499,8", "", "501"]})
-    >>> numeric_values(f, "w").tolist()
-    [500.5, 1499.8, nan, 501.0]
+    >>> check_role_names("w", "round", None, ("crew",), ("crew",))
+    >>> check_role_names("w", None, None, ("w",), ())  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    qcexplore.errors.QCDataError: Column 'w' is the value and cannot also be ...
     """
-    series = frame[column]
-    if pd.api.types.is_bool_dtype(series.dtype):
+    column_name(value, "value")
+    column_name(subgroup, "subgroup", optional=True)
+    column_name(time, "time", optional=True)
+    for name in (*factors, *measured_by):
+        column_name(name, "a factor")
+    if value in factors or value == subgroup or value == time:
         raise QCDataError(
-            f"Column {column!r} holds true/false values, not measurements; "
-            "choose the column with the measured values."
+            f"Column {shown(value)} is the value and cannot also be the subgroup, time or a factor."
         )
-    if pd.api.types.is_numeric_dtype(series.dtype):
-        return series.astype(np.float64)
-    if isinstance(series.dtype, pd.CategoricalDtype):
-        series = series.astype(object)
-    text = series.astype("string")
-    blank = text.isna() | (text.str.strip() == "")
-    parsed = _parse_text_numbers(text.fillna(""))
-    parsed = parsed.where(~blank)
-    unreadable = np.flatnonzero((parsed.isna() & ~blank).to_numpy())
-    if unreadable.size:
-        examples = ", ".join(repr(str(series.iloc[i])) for i in unreadable[:3])
+    repeated = sorted({shown(f) for f in factors if list(factors).count(f) > 1})
+    if repeated:
         raise QCDataError(
-            f"Column {column!r} has cells that are not numbers ({examples}) in "
-            f"{row_list(unreadable)}; correct or blank them in the source."
+            f"Factors {', '.join(repeated)} are listed more than once; list each once."
         )
-    return parsed.astype(np.float64)
 
 
 @dataclass(frozen=True)
@@ -195,7 +274,7 @@ def as_factor(series: pd.Series) -> pd.Series:
             cat = series.astype("category")
         except TypeError:  # unhashable cells (lists, dicts) cannot be levels
             raise QCDataError(
-                f"Column {series.name!r} holds cells that cannot be used as labels (such as "
+                f"Column {shown(series.name)} holds cells that cannot be used as labels (such as "
                 "lists); give it plain text or numbers."
             ) from None
     if cat.isna().any():
@@ -203,121 +282,24 @@ def as_factor(series: pd.Series) -> pd.Series:
     return cat.cat.remove_unused_categories()
 
 
-def parse_times(series: pd.Series, column: str) -> pd.Series:
-    """Timestamps (with or without time zone) or a numeric order column.
-
-    Messages name rows by the series' index, which the Study keeps as the 0-based
-    positions of the table the user gave.
-
-    Examples
-    --------
-    >>> parse_times(pd.Series(["2026-03-29 01:30", "2026-03-29 03:30"]), "t").dt.hour.tolist()
-    [1, 3]
-    """
-    if pd.api.types.is_datetime64_any_dtype(series.dtype):
-        parsed = series
-    elif pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(
-        series.dtype
-    ):
-        parsed = series.astype(np.float64)
-    else:
-        text = series.astype("string")
-        try:
-            parsed = pd.to_datetime(text, errors="coerce", format="mixed")
-        except (ValueError, TypeError) as error:
-            # Mixed time zones in one column cannot share one dtype.
-            parsed = pd.to_datetime(text, errors="coerce", format="mixed", utc=True)
-            if parsed.isna().all():
-                raise QCDataError(
-                    f"Column {column!r} could not be read as times ({error}); "
-                    "write them as ISO dates like 2026-03-29 06:15, one time zone per column."
-                ) from None
-        bad = np.flatnonzero((parsed.isna() & text.notna() & (text.str.strip() != "")).to_numpy())
-        if bad.size:
-            examples = ", ".join(repr(str(series.iloc[i])) for i in bad[:3])
-            raise QCDataError(
-                f"Column {column!r} has cells that are not times ({examples}) in "
-                f"{row_list(series.index[bad])}; write them as ISO dates like 2026-03-29 06:15."
-            )
-    missing = np.flatnonzero(pd.isna(parsed).to_numpy())
-    if missing.size:
-        raise QCDataError(
-            f"Column {column!r} has missing times in {row_list(series.index[missing])}; "
-            "fill them in or leave the time column out."
-        )
-    return parsed
+def is_missing_cell(cell: object) -> bool:
+    if cell is None or cell is pd.NA or cell is pd.NaT:
+        return True
+    return isinstance(cell, float) and np.isnan(cell)
 
 
-def column_names(names: Sequence[str] | str | None, role: str) -> tuple[str, ...]:
-    """A list of column names as a tuple; a lone string is refused, not split into letters.
-
-    Examples
-    --------
-    >>> column_names(["crew", "nozzle"], "factors")
-    ('crew', 'nozzle')
-    >>> column_names("crew", "factors")  # doctest: +ELLIPSIS
-    Traceback (most recent call last):
-    ...
-    qcexplore.errors.QCDataError: factors must be a list of column names, got the string ...
-    """
-    if names is None:
-        return ()
-    if isinstance(names, str):
-        raise QCDataError(
-            f"{role} must be a list of column names, got the string {names!r}; "
-            f"write {role}=[{names!r}]."
-        )
-    return tuple(names)
-
-
-def check_role_names(
-    value: str,
-    subgroup: str | None,
-    time: str | None,
-    factors: Sequence[str],
-    measured_by: Sequence[str],
-) -> None:
-    """Catch contradictory role assignments before any data are touched.
-
-    Examples
-    --------
-    >>> check_role_names("w", "round", None, ("crew",), ("crew",))
-    >>> check_role_names("w", None, None, ("w",), ())  # doctest: +ELLIPSIS
-    Traceback (most recent call last):
-    ...
-    qcexplore.errors.QCDataError: Column 'w' is the value and cannot also be ...
-    """
-    if value in factors or value == subgroup or value == time:
-        raise QCDataError(
-            f"Column {value!r} is the value and cannot also be the subgroup, time or a factor."
-        )
-    repeated = sorted({f for f in factors if list(factors).count(f) > 1})
-    if repeated:
-        raise QCDataError(f"Factors {repeated} are listed more than once; list each once.")
-
-
-def _is_missing(cell: object) -> bool:
-    return cell is None or cell is pd.NA or cell is pd.NaT
+def cell_float(cell: object) -> float:
+    try:
+        return float(cell)  # type: ignore[arg-type]
+    except OverflowError:  # a Python integer beyond the float range
+        return np.inf if cell > 0 else -np.inf  # type: ignore[operator]
 
 
 def _not_numbers(cells: np.ndarray) -> np.ndarray:
     """Positions of cells that are neither a real number nor missing (text, true/false, ...)."""
     return np.flatnonzero(
-        [
-            not _is_missing(v)
-            and (isinstance(v, (bool, np.bool_)) or not isinstance(v, numbers.Real))
-            for v in cells
-        ]
+        [not is_missing_cell(v) and not is_real_number(v, finite=False) for v in cells]
     )
-
-
-def _cell_float(cell: object) -> float:
-    if _is_missing(cell):
-        return np.nan
-    try:
-        return float(cell)
-    except OverflowError:  # a Python integer beyond the float range
-        return np.inf
 
 
 def _finite(values: pd.Series | np.ndarray, subject: str) -> np.ndarray:
@@ -332,13 +314,14 @@ def _finite(values: pd.Series | np.ndarray, subject: str) -> np.ndarray:
         cells = np.asarray(values, dtype=object).ravel()
         odd = _not_numbers(cells)
         if odd.size:
-            examples = ", ".join(repr(cells[i]) for i in odd[:3])
             raise QCDataError(
-                f"{subject}: cells that are not numbers ({examples}) in {row_list(odd)}; convert "
-                "them to numbers first (for instance with pd.to_numeric, or read files with "
-                "qx.read)."
+                f"{subject}: cells that are not numbers ({cell_examples(cells, odd)}) in "
+                f"{row_list(odd)}; convert them to numbers first (for instance with "
+                "pd.to_numeric, or read files with qx.read)."
             )
-        values = np.array([_cell_float(v) for v in cells], dtype=np.float64)
+        values = np.array(
+            [np.nan if is_missing_cell(v) else cell_float(v) for v in cells], dtype=np.float64
+        )
     if isinstance(values, pd.Series):
         array = values.to_numpy(dtype=np.float64, na_value=np.nan)
     else:

@@ -22,12 +22,14 @@ most of a split-by change on a long chart. Texts live in the small lookup source
 
 Source columns:
 
-- ``*_points``: ``x, value, subgroup, n, excluded`` (1 for a subgroup left out of the
-  limit estimate: drawn crossed out, else 0); with strata ``stratum_code`` (row of the
-  level in ``chart_strata``, -1 for none) and ``color_code`` (row of the colour in the
-  ``chart_colors`` palette, see :func:`qcexplore.draw.palette.color_codes`; -1 is the
-  neutral colour); ``time`` (milliseconds since the epoch, wall clock) when the points
-  have a ``start``; ``panel_code`` (position of the panel, -1 for none) when split.
+- ``*_points``: ``x, value, subgroup, n, point`` (the row of the point in the result's
+  ``points``: a selection of source rows maps back through it), ``excluded`` (1 for a
+  subgroup left out of the limit estimate: drawn crossed out, else 0); with strata
+  ``stratum_code`` (row of the level in ``chart_strata``, -1 for none) and
+  ``color_code`` (row of the colour in the ``chart_colors`` palette, see
+  :func:`qcexplore.draw.palette.color_codes`; -1 is the neutral colour); ``time``
+  (milliseconds since the epoch, wall clock) when the points have a ``start``;
+  ``panel_code`` (position of the panel, -1 for none) when split.
   ``subgroup`` holds numbers when the subgroups are numbers, milliseconds since the
   epoch when they are times, else text. A CUSUM chart draws both sums: ``value`` is
   the upper sum C+ (the result's ``stat``, drawn as upward triangles) and ``lower``
@@ -36,6 +38,12 @@ Source columns:
   ``color_code``, plus ``rules_code``: the row in ``*_rules``, whose column ``rules``
   holds the rule ids that fired with their plain-words description. On a CUSUM chart
   the ring sits on the sum that lies beyond its limit (``value`` is that sum).
+  The signals are never reduced. Above :data:`~qcexplore.draw.parts.REDUCE_FROM`
+  points, the points (and the line and limits drawn from them) are a display reduction
+  (:func:`~qcexplore.draw.parts.display_rows`): per panel and colour, the lowest and
+  highest point of each pixel column, the first and last point, every signal and every
+  subgroup left out of the limits; the figure's title (or the split layout's heading)
+  says how many points it is drawn from. The result and its tables keep every point.
 - ``*_line`` (thin joining line, as segments): ``x0, y0, x1, y1`` (+ ``panel_code``).
   Empty above :data:`~qcexplore.draw.parts.LINE_UP_TO` points.
 - ``*_limits`` (centre and limits as step lines): ``x0, y0, x1, y1, role_code``, the
@@ -205,9 +213,21 @@ def _signal_rows(points: pd.DataFrame, values: dict[str, np.ndarray]) -> tuple[n
     return rows, np.concatenate([values["value"][upper], values["lower"][lower]])
 
 
-def _chart_sources(
+def _panel_width(plan: dict[str, Any]) -> int:
+    """Width in pixels of each figure of the layout (small multiples share the width)."""
+    count = len(plan["panels"])
+    return parts.WIDTH if count == 1 else max(240, parts.WIDTH // count)
+
+
+def _levels(result: ChartResult) -> list[str]:
+    return [str(v) for v in encode.levels_of(_stratum(result.points))]
+
+
+def _point_columns(
     result: ChartResult, plan: dict[str, Any], prefix: str, levels: list[str]
-) -> dict[str, dict[str, np.ndarray]]:
+) -> tuple[dict[str, np.ndarray], tuple[str, ...]]:
+    """Columns of the points source for every point of the result, and the names of the
+    series among them (``value``, and ``lower`` on a CUSUM chart)."""
     # Only number columns in the per-point sources: the page receives those as binary
     # arrays, text columns element by element (seconds for a long chart). Texts live in
     # the small lookup sources ("chart_strata", "*_rules") that the hover reads.
@@ -216,16 +236,16 @@ def _chart_sources(
     stratum = _stratum(points)
     codes = encode.codes_for(stratum, levels) if plan["strata"] else np.full(size, -1, np.int32)
     start = encode.time_ms(points["start"]) if plan["time"] else None
-    x = start if plan["x"] == "time" else _positions(points)
     series = {"value": points["stat"].to_numpy(dtype=float)}
     if prefix == "chart" and plan["sums"]:
         series["lower"] = points["stat_lower"].to_numpy(dtype=float)
-    panelled = plan["panels"] != ["all"]
     data: dict[str, Any] = {
-        "x": x,
+        "x": start if plan["x"] == "time" else _positions(points),
         **series,
         "subgroup": encode.hover_values(points["subgroup"]),
         "n": points["n"].to_numpy(),
+        # The row of the result's points: what a selection on the page maps back through.
+        "point": np.arange(size, dtype=np.int32),
     }
     if plan["strata"]:
         data["stratum_code"] = codes
@@ -235,18 +255,64 @@ def _chart_sources(
     # Subgroups left out of the limit estimate (still plotted) are drawn crossed out.
     left_out = points["excluded"].to_numpy(dtype=bool) if "excluded" in points else None
     data["excluded"] = np.zeros(size, np.int8) if left_out is None else left_out.astype(np.int8)
-    # Panel of each row: its level's position among the panels shown (-1: none).
-    panel = None
-    if panelled:
+    if plan["panels"] != ["all"]:
+        # Panel of each row: its level's position among the panels shown (-1: none).
         at = pd.Index(plan["panels"], dtype=object).get_indexer(levels)
-        panel = np.append(at, -1).astype(np.int32)[codes]
-        data["panel_code"] = panel
+        data["panel_code"] = np.append(at, -1).astype(np.int32)[codes]
+    return data, tuple(series)
+
+
+def _shown_rows(
+    points: pd.DataFrame, data: dict[str, np.ndarray], series: tuple[str, ...], width: int
+) -> np.ndarray | None:
+    """Rows of the points sent to the page: all of them (``None``) up to
+    :data:`~qcexplore.draw.parts.REDUCE_FROM` points, else their display reduction
+    (:func:`~qcexplore.draw.parts.display_rows`) per panel and colour, with every signal
+    and every subgroup left out of the limits."""
+    if len(points) <= parts.REDUCE_FROM:
+        return None
+    keep = points["signal"].to_numpy(dtype=bool) | (data["excluded"] == 1)
+    group = data.get("panel_code", data.get("color_code", np.zeros(len(points), np.int32)))
+    return parts.display_rows(data["x"], [data[s] for s in series], keep, group, width)
+
+
+def _reduction_words(result: ChartResult) -> str:
+    """What a reduced chart says about the points it draws (empty when it draws all).
+
+    Without the count of the points drawn, so that titles cost nothing to write.
+    """
+    if len(result.points) <= parts.REDUCE_FROM:
+        return ""
+    return (
+        f"drawn from {len(result.points):,} points by the lowest and highest per pixel "
+        "column and every signal"
+    )
+
+
+def _chart_sources(
+    result: ChartResult, plan: dict[str, Any], prefix: str, levels: list[str]
+) -> dict[str, dict[str, np.ndarray]]:
+    points = result.points
+    data, names = _point_columns(result, plan, prefix, levels)
+    series = {k: data[k] for k in names}
     rows, ringed = _signal_rows(points, series)
     points_only = ("color_code", "excluded", "lower")
     signals = {k: v[rows] for k, v in data.items() if k not in points_only}
     signals["value"] = ringed
     rule_codes, rule_sets = encode.code_table(points["rules"].to_numpy(dtype=object)[rows])
     signals["rules_code"] = rule_codes
+
+    limit_cols = {k: points[k].to_numpy(dtype=float) for k in ("center", "lcl", "ucl")}
+    shown = _shown_rows(points, data, names, _panel_width(plan))
+    if shown is not None:
+        data = {k: v[shown] for k, v in data.items()}
+        series = {k: data[k] for k in names}
+        limit_cols = {k: v[shown] for k, v in limit_cols.items()}
+    size = data["x"].size
+    x = data["x"]
+    codes = data.get("stratum_code", np.full(size, -1, np.int32))
+    panel = data.get("panel_code")
+    panelled = panel is not None
 
     # Join within a stratum when strata share positions (a factor that varies inside
     # subgroups), else join all points in time order.
@@ -265,7 +331,6 @@ def _chart_sources(
     line["panel_code"] = line.pop("panel")
 
     pad = parts.TIME_PAD if plan["x"] == "time" else parts.POSITION_PAD
-    limit_cols = {k: points[k].to_numpy(dtype=float) for k in ("center", "lcl", "ucl")}
     rows_of = [slice(None)] if panel is None else [panel == i for i in range(len(plan["panels"]))]
     pieces, ends = [], []
     for i, r in enumerate(rows_of):
@@ -306,8 +371,7 @@ def chart_sources(result: ChartResult, plan: dict[str, Any]) -> dict[str, dict[s
     ['chart_limit_values', 'chart_limits', 'chart_line']
     """
     # The secondary chart takes the main chart's levels so that colours match.
-    stratum = _stratum(result.points)
-    levels = [str(v) for v in encode.levels_of(stratum)]
+    levels = _levels(result)
     highlight = plan["options"]["highlight"]
     out = _chart_sources(result, plan, "chart", levels)
     if plan["strata"]:
@@ -365,13 +429,18 @@ def chart_texts(result: ChartResult, plan: dict[str, Any]) -> dict[str, str]:
     texts = {f"{names[0]}_y_axis": _words(result).axis}
     if sec is not None:
         texts[f"{sec_names[0]}_y_axis"] = _words(sec).axis
+    # A long chart is drawn from a display reduction of its points: its title says so.
+    title = ", ".join(filter(None, [_title(result), _reduction_words(result)]))
+    sec_title = (
+        None if sec is None else ", ".join(filter(None, [_title(sec), _reduction_words(sec)]))
+    )
     if len(panels) == 1:
-        texts["chart"] = _title(result)
+        texts["chart"] = title
         if sec is not None:
-            texts["secondary_chart"] = _title(sec)
+            texts["secondary_chart"] = sec_title
         return texts
-    texts["chart_title"] = f"<b>{html.escape(_title(result))}</b>" + (
-        f"<br>below: {html.escape(_title(sec))}" if sec is not None else ""
+    texts["chart_title"] = f"<b>{html.escape(title)}</b>" + (
+        f"<br>below: {html.escape(sec_title)}" if sec is not None else ""
     )
     by = result.by or "stratum"
     for name, sec_name, level in zip(names, sec_names, panels, strict=True):
@@ -510,7 +579,9 @@ def chart_figure(
     limit values are written at the right end of their lines. A CUSUM chart draws the
     upper sum above zero and the lower sum below it. Above
     :data:`~qcexplore.draw.parts.WEBGL_FROM` points the figures draw through WebGL;
-    above :data:`~qcexplore.draw.parts.LINE_UP_TO` points the joining line is left out.
+    above :data:`~qcexplore.draw.parts.REDUCE_FROM` points they draw a display reduction
+    of the points (every signal kept), stated in the title; above
+    :data:`~qcexplore.draw.parts.LINE_UP_TO` drawn points the joining line is left out.
     Model names and source columns: see the module docstring.
 
     Parameters
@@ -542,7 +613,7 @@ def chart_figure(
     panels = plan["panels"]
     names = parts.panel_names("chart", len(panels))
     sec_names = parts.panel_names("secondary_chart", len(panels))
-    width = parts.WIDTH if len(panels) == 1 else max(240, parts.WIDTH // len(panels))
+    width = _panel_width(plan)
     axis = {"x_axis_type": "datetime"} if plan["x"] == "time" else {}
     secondary = result.secondary
     mains, seconds = [], []

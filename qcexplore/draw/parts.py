@@ -289,6 +289,63 @@ def line_rows(size: int) -> np.ndarray:
     return np.arange(size if size <= LINE_UP_TO else 0)
 
 
+#: Above this many points a chart sends a display reduction of them (:func:`display_rows`):
+#: a figure about :data:`WIDTH` pixels wide cannot show more, and every point sent
+#: costs page size and redraw time.
+REDUCE_FROM = 5_000
+
+
+def _extremes(key: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Rows of the lowest and the highest of ``values`` for each distinct ``key`` (codes
+    0..m-1; the first such row of each; missing values never count)."""
+    missing = np.isnan(values)
+    found = []
+    for fill, extreme in ((np.inf, np.minimum), (-np.inf, np.maximum)):
+        ranked = np.where(missing, fill, values)
+        best = np.full(int(key.max()) + 1, fill)
+        extreme.at(best, key, ranked)
+        at = np.flatnonzero((ranked == best[key]) & ~missing)
+        found.append(at[np.unique(key[at], return_index=True)[1]])
+    return np.concatenate(found)
+
+
+def display_rows(
+    x: np.ndarray,
+    series: Sequence[np.ndarray],
+    keep: np.ndarray,
+    group: np.ndarray,
+    columns: int = WIDTH,
+) -> np.ndarray:
+    """Rows that draw a long series: in each of ``columns`` equal slices of the x range
+    (the pixel columns of the figure) and each ``group``, the rows of the lowest and the
+    highest value of each of ``series``; the first and the last row (by x) of each group;
+    and every row where ``keep`` is true (the signals). Sorted row numbers.
+
+    Missing values are never a lowest or highest one; rows whose x is missing are left out
+    unless kept.
+
+    Examples
+    --------
+    >>> x = np.arange(8.0); y = np.array([5.0, 1.0, 7.0, 3.0, 2.0, 9.0, 4.0, 4.0])
+    >>> display_rows(x, [y], x == 3, np.zeros(8), columns=2).tolist()
+    [0, 1, 2, 3, 4, 5, 7]
+    """
+    x = np.asarray(x, dtype=float)
+    kept = [np.flatnonzero(keep)]
+    finite = np.flatnonzero(np.isfinite(x))
+    if finite.size:
+        xs = x[finite]
+        low, high = xs.min(), xs.max()
+        # Divide first: columns / (high - low) overflows for spans near the smallest double.
+        share = (xs - low) / (high - low) if high > low else np.zeros_like(xs)
+        column = np.clip((share * columns).astype(np.int64), 0, columns - 1)
+        codes = pd.factorize(np.asarray(group)[finite])[0].astype(np.int64)
+        kept.append(finite[_extremes(codes, xs)])
+        key = codes * columns + column
+        kept += [finite[_extremes(key, np.asarray(v, dtype=float)[finite])] for v in series]
+    return np.unique(np.concatenate(kept))
+
+
 def segments(
     x: np.ndarray, y: np.ndarray, group: np.ndarray, panel: np.ndarray | None = None
 ) -> dict[str, np.ndarray]:

@@ -18,6 +18,11 @@ BokehModel. A different plan needs a new figure (:func:`needs_rebuild`):
 - ACF and capability: never (their layout does not depend on the data);
 - a result of another type than the one the layout was built from.
 
+A long chart's sources hold a display reduction of its points (see
+:mod:`qcexplore.draw.charts`): a refresh swaps in the new result's reduction, however many
+points it keeps, and its title's statement of it; the ``point`` column maps the rows of
+the points source back to the rows of the result's points.
+
 Re-colouring (another split factor with the same panel structure, more or fewer
 levels than colours) is data only: the colours travel as codes in the ``color_code``
 column of the sources (see :mod:`qcexplore.draw.charts`). The figure options (split,

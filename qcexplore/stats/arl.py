@@ -207,6 +207,8 @@ def _ewma(delta: float, lam: float, big_l: float) -> ArlResult:
 def arl_detail(
     kind: str,
     *,
+    n_sim: int = 2000,
+    seed: int = 0,
     shift: float = 0.0,
     n: int = 1,
     sigma_level: float = 3.0,
@@ -215,8 +217,6 @@ def arl_detail(
     L: float | None = None,  # noqa: N803 (the published name of the EWMA limit width)
     k: float | None = None,
     h: float | None = None,
-    n_sim: int = 2000,
-    seed: int = 0,
 ) -> ArlResult:
     """Average run length of a chart design, with the method used and its standard error.
 

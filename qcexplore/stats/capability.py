@@ -18,7 +18,8 @@ from scipy import stats
 from qcexplore.data.coding import real_number
 from qcexplore.data.validate import finite_column, require_frame
 from qcexplore.errors import QCDataError
-from qcexplore.stats.results import CapabilityResult
+from qcexplore.stats.constants import c4, d2, d3
+from qcexplore.stats.results import CapabilityResult, ChartResult
 
 if TYPE_CHECKING:
     from qcexplore.spec import Spec
@@ -66,6 +67,120 @@ def anderson_darling_normal(values: np.ndarray) -> tuple[float, float]:
     else:
         p = 0.0
     return float(a2), float(min(max(p, 0.0), 1.0))
+
+
+#: Covariance of two consecutive moving ranges |x2 - x1|, |x3 - x2| of independent normal
+#: values, in sigma^2: the differences have correlation -1/2, and for two normals of
+#: variance 2 and correlation rho, E|UV| = (4/pi)(sqrt(1 - rho^2) + rho arcsin rho) (from
+#: memory), so cov = (4/pi)(sqrt(3)/2 + pi/12 - 1).
+_MR_LAG1_COV = 4.0 / math.pi * (math.sqrt(3.0) / 2.0 + math.pi / 12.0 - 1.0)
+
+
+def within_sigma_df(estimator: str, sizes: np.ndarray) -> float:
+    """Effective degrees of freedom of a within-subgroup sigma estimate.
+
+    A sigma estimate with variance V sigma^2 carries about nu = 1 / (2 V) degrees of
+    freedom, as a pooled standard deviation on nu df does (common practice). ``estimator``:
+
+    * ``"range"``: the mean of R_i/d2(n_i) weighted by n_i - 1 over subgroups of ``sizes``
+      (R-bar/d2 for equal sizes), V = sum(w_i^2 (d3_i/d2_i)^2) / (sum w_i)^2; for k
+      subgroups of n, nu = k d2^2 / (2 d3^2) (25 subgroups of 5: about 91, not 124);
+    * ``"sd"``: the same mean of s_i/c4(n_i), with (1 - c4^2)/c4^2 for (d3/d2)^2;
+    * ``"moving_range"``: MR-bar/d2(2) over ``sizes`` = one number, the count of values m:
+      M = m - 1 moving ranges of variance (2 - 4/pi) sigma^2 whose neighbours covary by
+      ``_MR_LAG1_COV`` sigma^2, so nu is about 0.6 (m - 1).
+
+    Checked by the coverage of the Cp and Cpk intervals built on it (simulation,
+    tests/test_honesty.py) and for equal sizes against k d2^2 / (2 d3^2).
+
+    Examples
+    --------
+    >>> round(within_sigma_df("range", np.full(25, 5)), 1)
+    90.6
+    """
+    sizes = np.asarray(sizes, dtype=np.float64)
+    if estimator == "moving_range":
+        m = float(sizes.sum()) if sizes.size != 1 else float(sizes[0])
+        count = m - 1.0
+        if count < 1:
+            return float("nan")
+        var_mr = 2.0 - 4.0 / math.pi
+        v = (count * var_mr + 2.0 * (count - 1.0) * _MR_LAG1_COV) / (count * d2(2)) ** 2
+        return 1.0 / (2.0 * v)
+    sizes = sizes[sizes >= 2]
+    if sizes.size == 0:
+        return float("nan")
+    if estimator == "range":
+        ratio = np.array([d3(int(n)) / d2(int(n)) for n in sizes]) ** 2
+    elif estimator == "sd":
+        ratio = np.array([(1.0 - c4(int(n)) ** 2) / c4(int(n)) ** 2 for n in sizes])
+    else:
+        raise QCDataError(f"estimator={estimator!r}: use 'range', 'sd' or 'moving_range'.")
+    w = sizes - 1.0
+    return float(w.sum() ** 2 / (2.0 * np.sum(w * w * ratio)))
+
+
+#: The words of a chart's limits method that name its within-subgroup sigma estimator.
+_ESTIMATOR_WORDS = (("MR", "moving_range"), ("R_i/d2", "range"), ("R-bar/d2", "range"),
+                    ("s_i/c4", "sd"), ("s-bar/c4", "sd"))  # fmt: skip
+
+
+def chart_sigma_df(chart: ChartResult) -> tuple[float, str] | None:
+    """The effective degrees of freedom of a chart's within-subgroup sigma and its words.
+
+    Read from the chart's limits method (R-bar/d2, s-bar/c4 or MR-bar/d2) and the sizes of
+    the points used for the limits (:func:`within_sigma_df`); ``None`` when the chart's
+    sigma is not a within-subgroup estimate (given, between means, overall, attributes).
+
+    Examples
+    --------
+    >>> from qcexplore.stats.charts import control_chart
+    >>> f = pd.DataFrame({"h": np.repeat(np.arange(25), 5), "w": np.tile(np.arange(5.0), 25)})
+    >>> df, words = chart_sigma_df(control_chart(f, value="w", subgroup="h"))
+    >>> round(df, 1), words
+    (90.6, 'R-bar/d2')
+    """
+    if chart.sigma_method != "within" or not len(chart.limits):
+        return None
+    method = str(chart.limits["method"].iloc[0])
+    estimator = next((e for word, e in _ESTIMATOR_WORDS if word in method), None)
+    if estimator is None:
+        return None
+    points = chart.points
+    used = ~points["excluded"].to_numpy(dtype=bool) & np.isfinite(
+        points["stat"].to_numpy(dtype=np.float64)
+    )
+    sizes = points["n"].to_numpy(dtype=np.float64)[used]
+    if estimator == "moving_range":
+        sizes = np.array([float(used.sum())])
+    words = {"range": "R-bar/d2", "sd": "s-bar/c4", "moving_range": "MR-bar/d2"}[estimator]
+    return within_sigma_df(estimator, sizes), words
+
+
+def index_interval(
+    name: str, value: np.ndarray | float, n: float, df: np.ndarray | float, confidence: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Two-sided ``confidence`` limits of a capability index from ``n`` values, its sigma
+    on ``df`` degrees of freedom (arrays broadcast, for simulation).
+
+    ``cp``/``pp``: the chi-square interval index * sqrt(chi2_{a/2, df} / df) to
+    index * sqrt(chi2_{1 - a/2, df} / df); the others (Cpk, Ppk and the one-sided indices):
+    Bissell's (1990) normal approximation index +- z sqrt(1 / (9 n) + index^2 / (2 df)).
+
+    Examples
+    --------
+    >>> [round(float(x), 3) for x in index_interval("cp", 1.0, 125, 124, 0.95)]
+    [0.876, 1.124]
+    """
+    a = 1.0 - confidence
+    value = np.asarray(value, dtype=np.float64)
+    df = np.asarray(df, dtype=np.float64)
+    if name in ("cp", "pp"):
+        low = np.sqrt(stats.chi2.ppf(a / 2.0, df) / df)
+        high = np.sqrt(stats.chi2.ppf(1.0 - a / 2.0, df) / df)
+        return value * low, value * high
+    half = stats.norm.ppf(1.0 - a / 2.0) * np.sqrt(1.0 / (9.0 * n) + value**2 / (2.0 * df))
+    return value - half, value + half
 
 
 def _check_inputs(values: np.ndarray) -> None:
@@ -119,6 +234,8 @@ def capability(
     sigma_within: float | None = None,
     in_control: bool | None = None,
     confidence: float = 0.95,
+    sigma_df: float | None = None,
+    sigma_words: str = "",
 ) -> CapabilityResult:
     """Capability indices with confidence intervals, ppm outside the limits and normality.
 
@@ -133,6 +250,10 @@ def capability(
         chart). Without it ``cp``/``cpk`` are omitted and a warning says so.
     in_control : whether the chart showed a stable process; ``False`` adds a warning
     confidence : two-sided confidence level of the intervals
+    sigma_df, sigma_words : the effective degrees of freedom of ``sigma_within`` and the
+        estimator's name (:func:`chart_sigma_df` reads both off the control chart). Without
+        them the Cp-type intervals use N - 1, which is too narrow for R-bar/d2 and
+        s-bar/c4 (they carry fewer), and ``interval_method`` says so.
 
     Returns
     -------
@@ -140,18 +261,19 @@ def capability(
         ``indices`` (``index, value, lower, upper``): ``cp``/``pp`` when both limits exist,
         ``cpl``/``cpu``/``ppl``/``ppu`` for each side present and ``cpk``/``ppk`` (the worse
         side). ``ppm`` (``side, observed, expected``) for ``lower``, ``upper`` (sides with a
-        limit) and ``total``. ``normality`` (``test, statistic, p``).
+        limit) and ``total``. ``normality`` (``test, statistic, p``). ``interval_method``
+        states the intervals and the degrees of freedom they rest on.
 
     Notes
     -----
     * Cp = (USL - LSL) / (6 sigma), Cpk = min(mean - LSL, USL - mean) / (3 sigma); the P
       indices use the overall sample standard deviation (ddof=1). Common practice.
-    * Intervals for Cp and Pp use the chi-square distribution of the variance with
-      n - 1 degrees of freedom: Cp * sqrt(chi2_{a/2, n-1} / (n-1)) to
-      Cp * sqrt(chi2_{1-a/2, n-1} / (n-1)). For Cp the sigma comes from the chart, whose
-      degrees of freedom are not known here, so n - 1 is an approximation.
-    * Intervals for Cpk, Ppk and the one-sided indices use Bissell's (1990) normal
-      approximation: index +- z * sqrt(1 / (9n) + index^2 / (2(n - 1))).
+    * Intervals (:func:`index_interval`): for Cp and Pp the chi-square distribution of the
+      variance, for Cpk, Ppk and the one-sided indices Bissell's (1990) normal
+      approximation. The P indices use the N - 1 degrees of freedom of the overall
+      standard deviation; the C indices those of the within sigma, ``sigma_df`` (for
+      R-bar/d2 from d2 and d3, for s-bar/c4 from c4, common practice; see
+      :func:`within_sigma_df`).
     * Expected ppm comes from the normal with the sample mean and the overall standard
       deviation (what the process delivered over the whole period).
     * Normality: Anderson-Darling with the D'Agostino-Stephens p value
@@ -159,7 +281,9 @@ def capability(
 
     Checked against: a centred normal process with Cp = 1 (2700 ppm) and Cp = 1.33 (about
     63 ppm), common practice tables; ``scipy.stats.chi2`` by hand for the Cp interval;
-    Bissell's formula by hand; ``statsmodels`` ``normal_ad`` (tests/test_capability.py).
+    Bissell's formula by hand; ``statsmodels`` ``normal_ad`` (tests/test_capability.py);
+    the coverage of the Cp and Cpk intervals by simulation for subgroups of 2 to 10 and 20
+    to 100 subgroups (tests/test_honesty.py).
 
     Examples
     --------
@@ -192,19 +316,27 @@ def capability(
         point.update(_index_rows("c", sigma_within, mean, lsl, usl))
     point.update(_index_rows("p", sd, mean, lsl, usl))
 
-    df = n - 1
-    a = 1.0 - confidence
-    z = stats.norm.ppf(1.0 - a / 2.0)
-    chi_low = math.sqrt(stats.chi2.ppf(a / 2.0, df) / df)
-    chi_high = math.sqrt(stats.chi2.ppf(1.0 - a / 2.0, df) / df)
+    if sigma_df is not None:
+        sigma_df = real_number("sigma_df", sigma_df, lower=0, inclusive=False)
+    within_df = float(n - 1 if sigma_df is None else sigma_df)
     rows = []
     for name, value in point.items():
-        if name in ("cp", "pp"):
-            lower, upper = value * chi_low, value * chi_high
-        else:
-            half = z * math.sqrt(1.0 / (9.0 * n) + value**2 / (2.0 * df))
-            lower, upper = value - half, value + half
+        df = within_df if name.startswith("c") else n - 1.0
+        lower, upper = (float(x) for x in index_interval(name, value, n, df, confidence))
         rows.append((name, value, lower, upper))
+    words = sigma_words or "the within sigma"
+    within_words = (
+        f"C indices on the {within_df:.1f} effective degrees of freedom of {words}"
+        if sigma_df is not None
+        else "C indices on N - 1 degrees of freedom, because those of the within sigma were "
+        "not given (too narrow for R-bar/d2 or s-bar/c4, which carry fewer)"
+    )
+    interval_method = (
+        f"{confidence:.0%} intervals: chi-square for Cp and Pp, Bissell's normal "
+        f"approximation for Cpk, Ppk and the one-sided indices; "
+        + (f"{within_words}; " if sigma_within is not None else "")
+        + f"P indices on N - 1 = {n - 1}"
+    )
     indices = pd.DataFrame(rows, columns=["index", "value", "lower", "upper"])
 
     sides = []
@@ -251,4 +383,5 @@ def capability(
         histogram=histogram,
         curve=curve,
         warnings=tuple(warnings),
+        interval_method=interval_method,
     )

@@ -39,6 +39,7 @@ from qcexplore.stats.results import (
     VariationResult,
 )
 from qcexplore.stats.subgroups import group_codes, group_moments
+from qcexplore.stats.variation.timeline import TIME_COLUMNS, time_confounding
 
 __all__ = [
     "beyond_limits",
@@ -285,7 +286,9 @@ def collect_evidence(
         exist (no factors; a series too short or constant; no specification)
 
     The onsets are fitted for every level of the process factors that vary within
-    subgroups, the only ones whose levels the findings date.
+    subgroups, the only ones whose levels the findings date. With factors, each level of
+    those constant inside subgroups is set against the steps found and against where it
+    starts or stops appearing (``time_confounding``).
 
     Examples
     --------
@@ -305,6 +308,12 @@ def collect_evidence(
             for f in factors
             if f not in measured_by and variation.relation(f) == "within_subgroup"
         )
+    timing = pd.DataFrame(columns=TIME_COLUMNS)
+    if variation is not None:
+        steps = () if time_result is None else time_result.shifts["position"].astype(int)
+        timing = time_confounding(
+            data, value=value, subgroup=subgroup, factors=factors, time=time, steps=tuple(steps)
+        )
     return Evidence(
         chart=chart,
         variation=variation,
@@ -321,4 +330,5 @@ def collect_evidence(
         subgroup=None if individuals else subgroup,
         factors=factors,
         measured_by=measured_by,
+        time_confounding=timing,
     )

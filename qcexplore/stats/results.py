@@ -156,6 +156,8 @@ class VariationResult(_Result):
 
     ``comparisons`` rows carry ``signal`` (analysis of means: the level's mean lies outside
     its decision limits; False on the other tests' rows), so no reader decides it again.
+    ``nesting`` lists the nested factors and those whose labels look nested
+    (``factor, parent, kind, ..., note``; ``kind`` is ``"nested"`` or ``"probably_nested"``).
     """
 
     structure: pd.DataFrame
@@ -167,8 +169,17 @@ class VariationResult(_Result):
     multivari: pd.DataFrame = field(default_factory=pd.DataFrame)
     method: str = ""
     notes: tuple[str, ...] = ()
-    _tables = ("structure", "anova", "components", "comparisons", "spread", "offsets")
+    nesting: pd.DataFrame = field(default_factory=pd.DataFrame)
+    _tables = ("structure", "anova", "components", "comparisons", "spread", "offsets", "nesting")
     _heading = "Sources of variation"
+
+    def nested_in(self, factor: str) -> str | None:
+        """The parent ``factor`` is nested in (the subgroup column for the subgroups)."""
+        rows = self.nesting
+        if not len(rows):
+            return None
+        rows = rows[(rows["factor"] == factor) & (rows["kind"] == "nested")]
+        return str(rows["parent"].iloc[0]) if len(rows) else None
 
     def relation(self, factor: str) -> str:
         """``"within_subgroup"`` or ``"between_subgroups"`` for a factor, ``""`` if unknown."""
@@ -187,12 +198,12 @@ class VariationResult(_Result):
 
 @dataclass(frozen=True)
 class AR1Fit(Mapping):
-    """A lag-1 autoregressive fit with a mean, and the Wald test of phi = 0.
+    """A lag-1 autoregressive fit with a mean, and the likelihood-ratio test of phi = 0.
 
-    ``phi``, ``se`` (its standard error), ``sigma2`` (innovation variance) and ``loglik``
-    are the published fit; ``mean`` is the process mean and ``p`` the two-sided Wald
-    test of phi = 0, 2 P(Z > |phi| / se) (NaN when the likelihood has no curvature at
-    its maximum, so se is not finite). It reads as the mapping of the published four,
+    ``phi``, ``se`` (its standard error, NaN when the likelihood has no curvature at its
+    maximum), ``sigma2`` (innovation variance) and ``loglik`` are the published fit;
+    ``mean`` is the process mean and ``p`` the likelihood-ratio test of phi = 0
+    (chi-square with 1 df). It reads as the mapping of the published four,
     as ``TimeResult.ar1`` always has: ``fit["phi"]``, ``dict(fit)``.
 
     Examples
@@ -227,13 +238,18 @@ _AR1_KEYS = ("phi", "se", "sigma2", "loglik")
 
 @dataclass(frozen=True, eq=False, repr=False)
 class TimeResult(_Result):
-    """Time structure of the plotted series: autocorrelation, an AR(1) fit, step changes.
+    """Time structure of the plotted series: autocorrelation, steps, a drift, an AR(1) fit.
 
     ``acf``: ``lag, acf, pacf, lower, upper``; ``ljung_box``: ``lag, q, p``; ``ar1``: the
-    AR(1) fit and its test; ``shifts``: ``subgroup, position, time, before, after, p``;
-    ``series``: ``subgroup, start, mean, n, segment_mean`` (the fitted step function);
+    AR(1) fit of the residuals about the chosen level and its test; ``shifts``:
+    ``subgroup, position, time, before, after, p``; ``series``: ``subgroup, start, mean,
+    n, segment_mean`` (the fitted step function) and ``level`` (the chosen level);
     ``residual_chart`` and ``moving_center_chart``: the charts to read when the series is
-    autocorrelated (``None`` when it is not).
+    autocorrelated (``None`` when it is not). ``explanation``: what the data support, words
+    of ``stats.timeseries.EXPLANATIONS``; ``level_models``: the evidence for it (each
+    level model with the AR(1) fit of its residuals and its BIC); ``drift``: ``subgroup,
+    position, time, slope, before, after`` when a drift explains the change;
+    ``autocorrelation_p``: the p value the autocorrelation explanation rests on.
     """
 
     acf: pd.DataFrame
@@ -245,13 +261,21 @@ class TimeResult(_Result):
     residual_chart: ChartResult | None = None
     moving_center_chart: ChartResult | None = None
     notes: tuple[str, ...] = ()
-    _tables = ("acf", "ljung_box", "shifts")
+    explanation: tuple[str, ...] = ()
+    level_models: pd.DataFrame = field(default_factory=pd.DataFrame)
+    drift: pd.DataFrame = field(default_factory=pd.DataFrame)
+    autocorrelation_p: float = float("nan")
+    _tables = ("acf", "ljung_box", "shifts", "level_models")
     _heading = "Time structure"
 
 
 @dataclass(frozen=True, eq=False, repr=False)
 class CapabilityResult(_Result):
-    """Capability indices against a specification, with intervals and ppm."""
+    """Capability indices against a specification, with intervals and ppm.
+
+    ``interval_method`` states how the intervals were computed and on how many degrees of
+    freedom (for the C indices, the effective df of the within-subgroup sigma).
+    """
 
     indices: pd.DataFrame
     ppm: pd.DataFrame
@@ -266,6 +290,7 @@ class CapabilityResult(_Result):
     histogram: pd.DataFrame = field(default_factory=pd.DataFrame)
     curve: pd.DataFrame = field(default_factory=pd.DataFrame)
     warnings: tuple[str, ...] = ()
+    interval_method: str = ""
     _tables = ("indices", "ppm", "normality")
     _heading = "Capability"
 
@@ -370,6 +395,10 @@ class Evidence(_Result):
     others_sd``); ``onsets`` the onset of each level of the within-subgroup process
     factors. ``value``, ``units``, ``subgroup`` (``None`` for individual values),
     ``factors`` and ``measured_by`` are the roles the wording needs.
+    ``time_confounding`` sets each level of the factors constant inside subgroups against
+    the changes in time (the steps found, where a level starts or stops appearing;
+    ``stats.variation.time_confounding``): ``confounded`` marks a level that cannot be told
+    apart from a change of the process at that time.
     """
 
     chart: ChartResult
@@ -387,11 +416,19 @@ class Evidence(_Result):
     subgroup: str | None
     factors: tuple[str, ...]
     measured_by: tuple[str, ...]
-    _tables = ("tests", "levels", "level_spread")
+    time_confounding: pd.DataFrame = field(default_factory=pd.DataFrame)
+    _tables = ("tests", "levels", "level_spread", "time_confounding")
 
     @property
     def _heading(self) -> str:  # type: ignore[override]
         return f"Evidence on {self.value}"
+
+    def time_rows(self, factor: str, level: str) -> pd.DataFrame:
+        """The rows of ``time_confounding`` for one level (empty when it is not one-sided)."""
+        table = self.time_confounding
+        if not len(table):
+            return table
+        return table[(table["factor"] == factor) & (table["level"] == level)]
 
     def onset(self, factor: str, level: str) -> Onset | None:
         """The onset of one level's difference from the others, if it was fitted."""
@@ -409,6 +446,14 @@ def p_text(p: float) -> str:
     return "< 1e-300" if p < 1e-300 else f"{p:.2g}"
 
 
+class Findings(list):
+    """The ranked findings (a list of :class:`Finding`) that show as cards in a notebook."""
+
+    def _repr_html_(self) -> str:
+        cards = "".join(f._repr_html_() for f in self)
+        return cards or "<p>No findings: nothing stands out beyond chance.</p>"
+
+
 @dataclass(frozen=True)
 class Finding:
     """One thing the data say, with its evidence.
@@ -420,8 +465,10 @@ class Finding:
     standard error, ``effect_sd`` the effect in within-subgroup sigma, ``p`` the raw
     p-value of the test behind the finding, ``p_adjusted`` the Holm-adjusted p-value
     the report uses, ``share`` the factor's share of the total variance, ``strength``
-    the ranking key, ``start`` the time (or subgroup) a change appears to start, and
-    ``caveat`` what the design cannot tell.
+    the ranking key, ``start`` the time (or subgroup) a change appears to start,
+    ``caveat`` what the design cannot tell, ``sentence`` one sentence a team understands,
+    ``next_step`` what would settle it (with the samples it needs), and ``view`` the
+    explorer settings that show its evidence (``("view", name)`` first, then options).
 
     Examples
     --------
@@ -445,6 +492,9 @@ class Finding:
     strength: float = 0.0
     start: Any = None
     caveat: str = ""
+    sentence: str = ""
+    next_step: str = ""
+    view: tuple[tuple[str, Any], ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
         """The fields as a plain dict (one row of ``findings.findings_frame``)."""
@@ -457,9 +507,12 @@ class Finding:
             else f" <small>(adjusted p = {p_text(self.p_adjusted)})</small>"
         )
         caveat = f"<p><em>{html.escape(self.caveat)}</em></p>" if self.caveat else ""
+        step = f"<p><b>Next step:</b> {html.escape(self.next_step)}</p>" if self.next_step else ""
         return (
-            "<div class='qcexplore-finding'>"
-            f"<p><small>{html.escape(self.kind.replace('_', ' '))}</small><br>"
-            f"<strong>{html.escape(self.title)}</strong>{evidence}</p>"
-            f"<p>{html.escape(self.detail)}</p>{caveat}</div>"
+            "<div class='qcexplore-finding' style='border:1px solid #ddd;border-radius:6px;"
+            "padding:0.4em 0.8em;margin:0.6em 0'>"
+            f"<p style='font-size:1.15em'><strong>{html.escape(self.title)}</strong>{evidence}</p>"
+            f"<p>{html.escape(self.sentence)}</p>{step}"
+            f"<details><summary>The statistics behind it</summary><p>{html.escape(self.detail)}"
+            f"</p>{caveat}</details></div>"
         )

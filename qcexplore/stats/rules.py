@@ -8,6 +8,7 @@ counted with cumulative sums, so the cost is a handful of array passes whatever 
 from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
+from functools import cache
 
 import numpy as np
 
@@ -119,10 +120,18 @@ def _rule_masks(
     z: np.ndarray, dev: np.ndarray, pos: np.ndarray, ids: tuple[str, ...], sigma_level: float
 ) -> dict[str, np.ndarray]:
     """Boolean mask per rule id over points grouped by segment (``pos``: place in segment)."""
-    step = np.zeros(z.size)
-    step[1:] = np.diff(dev)
-    step[pos < 1] = 0.0  # no step across a segment boundary
-    up, down = step > 0, step < 0
+
+    @cache
+    def steps() -> tuple[np.ndarray, np.ndarray]:
+        """Up and down steps of ``dev``: only trend and alternation rules need them."""
+        step = np.zeros(z.size)
+        step[1:] = np.diff(dev)
+        step[pos < 1] = 0.0  # no step across a segment boundary
+        return step > 0, step < 0
+
+    @cache
+    def size() -> np.ndarray:
+        return np.abs(z)
 
     def run(hit: np.ndarray, width: int) -> np.ndarray:
         return _window(hit, width, pos, width)
@@ -131,33 +140,99 @@ def _rule_masks(
         return _window(z > level, width, pos, need) | _window(z < -level, width, pos, need)
 
     def alternating(width: int) -> np.ndarray:
+        up, down = steps()
         turn = np.zeros(z.size, dtype=bool)
         turn[1:] = (up[1:] & down[:-1]) | (down[1:] & up[:-1])
         turn &= pos >= 2
         return run(turn, width)
 
     makers = {
-        "beyond": lambda: np.abs(z) > sigma_level,
+        "beyond": lambda: size() > sigma_level,
         "2of3": lambda: same_side(2.0, 2, 3),
         "4of5": lambda: same_side(1.0, 4, 5),
         "side8": lambda: run(z > 0, 8) | run(z < 0, 8),
         "side9": lambda: run(z > 0, 9) | run(z < 0, 9),
-        "trend6": lambda: run(up, 5) | run(down, 5),
+        "trend6": lambda: run(steps()[0], 5) | run(steps()[1], 5),
         "alt14": lambda: alternating(12),
-        "inside15": lambda: run(np.abs(z) < 1.0, 15),
-        "outside8": lambda: run(np.abs(z) > 1.0, 8),
+        "inside15": lambda: run(size() < 1.0, 15),
+        "outside8": lambda: run(size() > 1.0, 8),
     }
     pattern = {
         "WE1": "beyond", "WE2": "2of3", "WE3": "4of5", "WE4": "side8",
         "N1": "beyond", "N2": "side9", "N3": "trend6", "N4": "alt14",
         "N5": "2of3", "N6": "4of5", "N7": "inside15", "N8": "outside8",
     }  # fmt: skip
-    cache: dict[str, np.ndarray] = {}
+    made: dict[str, np.ndarray] = {}
     for rule in ids:
         key = pattern[rule]
-        if key not in cache:
-            cache[key] = makers[key]()
-    return {rule: cache[pattern[rule]] for rule in ids}
+        if key not in made:
+            made[key] = makers[key]()
+    return {rule: made[pattern[rule]] for rule in ids}
+
+
+def fired_rules(
+    stat: Sequence[float] | np.ndarray,
+    center: float | Sequence[float] | np.ndarray,
+    sigma: float | Sequence[float] | np.ndarray,
+    rules: str | Sequence[str],
+    *,
+    sigma_level: float = 3.0,
+    segments: Sequence[int] | np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`evaluate_rules` with ``fired`` as an object array of tuples, one per point: a
+    table column takes it as it is, where a list of a million tuples would be copied."""
+    ids = resolve_rules(rules)
+    stat_arr = _as_column("stat", stat, None)
+    size = stat_arr.size
+    center_arr = _as_column("center", center, size)
+    sigma_arr = _as_column("sigma", sigma, size)
+    if not (np.isfinite(sigma_level) and sigma_level > 0):
+        raise QCDataError(f"sigma_level={sigma_level!r}: must be a positive number, e.g. 3.")
+    negative = np.flatnonzero(sigma_arr < 0)
+    if negative.size:
+        raise QCDataError(
+            f"sigma: negative standard errors at positions {negative[:5].tolist()}; "
+            "sigma must be the (non-negative) standard error of each point."
+        )
+    dev_all = stat_arr - center_arr
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z_all = dev_all / sigma_arr
+    keep = np.flatnonzero(~np.isnan(z_all))
+    if segments is not None:
+        seg = np.asarray(segments)
+        if seg.shape != (size,):
+            raise QCDataError(
+                f"segments: has shape {seg.shape} but stat has {size} values; "
+                "pass one segment label per point."
+            )
+        seg = seg[keep]
+        order = np.argsort(seg, kind="stable")
+        keep, seg = keep[order], seg[order]
+        new_segment = np.zeros(keep.size, dtype=bool)
+        new_segment[1:] = seg[1:] != seg[:-1]
+        new_segment[:1] = True
+        place = np.arange(keep.size)
+        pos = place - np.maximum.accumulate(np.where(new_segment, place, 0))
+    else:
+        pos = np.arange(keep.size)
+
+    every = segments is None and keep.size == size  # points in order, none skipped
+    z_kept, dev_kept = (z_all, dev_all) if every else (z_all[keep], dev_all[keep])
+    masks = _rule_masks(z_kept, dev_kept, pos, ids, float(sigma_level))
+    kept_code = np.zeros(keep.size, dtype=np.int64)
+    for bit, rule in enumerate(ids):
+        kept_code[masks[rule]] |= 1 << bit
+    if every:
+        code = kept_code
+    else:
+        code = np.zeros(size, dtype=np.int64)
+        code[keep] = kept_code
+    # Map each distinct combination once, then spread it with one gather (no per-point loop).
+    counts = np.bincount(code, minlength=1)
+    table = np.empty(counts.size, dtype=object)
+    for c in np.flatnonzero(counts).tolist():
+        table[c] = tuple(rule for bit, rule in enumerate(ids) if c >> bit & 1)
+    return code > 0, table[code]
 
 
 def evaluate_rules(
@@ -211,51 +286,10 @@ def evaluate_rules(
     >>> signal.tolist(), fired[2]
     ([False, False, True, False], ('N1',))
     """
-    ids = resolve_rules(rules)
-    stat_arr = _as_column("stat", stat, None)
-    size = stat_arr.size
-    center_arr = _as_column("center", center, size)
-    sigma_arr = _as_column("sigma", sigma, size)
-    if not (np.isfinite(sigma_level) and sigma_level > 0):
-        raise QCDataError(f"sigma_level={sigma_level!r}: must be a positive number, e.g. 3.")
-    negative = np.flatnonzero(sigma_arr < 0)
-    if negative.size:
-        raise QCDataError(
-            f"sigma: negative standard errors at positions {negative[:5].tolist()}; "
-            "sigma must be the (non-negative) standard error of each point."
-        )
-    dev_all = stat_arr - center_arr
-    with np.errstate(divide="ignore", invalid="ignore"):
-        z_all = dev_all / sigma_arr
-    keep = np.flatnonzero(~np.isnan(z_all))
-    new_segment = np.zeros(keep.size, dtype=bool)
-    if segments is not None:
-        seg = np.asarray(segments)
-        if seg.shape != (size,):
-            raise QCDataError(
-                f"segments: has shape {seg.shape} but stat has {size} values; "
-                "pass one segment label per point."
-            )
-        seg = seg[keep]
-        order = np.argsort(seg, kind="stable")
-        keep, seg = keep[order], seg[order]
-        new_segment[1:] = seg[1:] != seg[:-1]
-    new_segment[:1] = True
-    place = np.arange(keep.size)
-    pos = place - np.maximum.accumulate(np.where(new_segment, place, 0))
-
-    masks = _rule_masks(z_all[keep], dev_all[keep], pos, ids, float(sigma_level))
-    kept_code = np.zeros(keep.size, dtype=np.int64)
-    for bit, rule in enumerate(ids):
-        kept_code[masks[rule]] |= 1 << bit
-    code = np.zeros(size, dtype=np.int64)
-    code[keep] = kept_code
-    # Map each distinct combination once, then spread it with one gather (no per-point loop).
-    counts = np.bincount(code, minlength=1)
-    table = np.empty(counts.size, dtype=object)
-    for c in np.flatnonzero(counts).tolist():
-        table[c] = tuple(rule for bit, rule in enumerate(ids) if c >> bit & 1)
-    return code > 0, table[code].tolist()
+    signal, fired = fired_rules(
+        stat, center, sigma, rules, sigma_level=sigma_level, segments=segments
+    )
+    return signal, fired.tolist()
 
 
 def evaluate_rows(

@@ -94,8 +94,43 @@ class GroupMoments:
         return self.max - self.min
 
 
+#: Rows per block of squared deviations: a small temporary reused, not one row-length array
+#: (fresh memory is what a pass over a million rows mostly costs).
+_BLOCK_ROWS = 1 << 16
+
+
+def _squared_deviations(
+    values: np.ndarray, codes: np.ndarray, mean: np.ndarray, n_groups: int, in_order: bool
+) -> np.ndarray:
+    """Per group, the sum of squared deviations from its mean, added up in row order.
+
+    With the codes in order the rows go in blocks that end where a group ends, so every
+    group is summed in the same order, to the same bits, as by one ``np.bincount``.
+    """
+    if not in_order or values.size <= _BLOCK_ROWS:
+        deviation = values - mean[codes]
+        # float64 explicitly: bincount returns integers when there are no values at all.
+        return np.bincount(codes, deviation * deviation, n_groups).astype(np.float64)
+    ss = np.zeros(n_groups)
+    start = 0
+    while start < values.size:
+        stop = int(
+            np.searchsorted(codes, codes[min(start + _BLOCK_ROWS, values.size) - 1], "right")
+        )
+        block = codes[start:stop]
+        first, last = int(block[0]), int(block[-1])
+        deviation = values[start:stop] - mean[block]
+        ss[first : last + 1] = np.bincount(block - first, deviation * deviation, last - first + 1)
+        start = stop
+    return ss
+
+
 def group_moments(
-    values: np.ndarray, codes: np.ndarray, n_groups: int | None = None
+    values: np.ndarray,
+    codes: np.ndarray,
+    n_groups: int | None = None,
+    *,
+    counts: np.ndarray | None = None,
 ) -> GroupMoments:
     """Sufficient statistics of ``values`` for each integer group code.
 
@@ -108,6 +143,7 @@ def group_moments(
     values : array of float, no NaN
     codes : array of int in ``0 .. n_groups - 1``, same length as ``values``
     n_groups : number of groups (default ``codes.max() + 1``)
+    counts : the number of values of each group, when the caller has counted them already
 
     Checked against pandas ``groupby().agg(["count", "mean", "var", "min", "max"])``
     on random data (tests/test_subgroups.py).
@@ -122,21 +158,21 @@ def group_moments(
     codes = np.asarray(codes, dtype=np.intp)
     if n_groups is None:
         n_groups = int(codes.max()) + 1 if codes.size else 0
-    n = np.bincount(codes, minlength=n_groups)
+    n = np.bincount(codes, minlength=n_groups) if counts is None else counts
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.bincount(codes, weights=values, minlength=n_groups) / n
-    deviation = values - mean[codes]
-    # float64 explicitly: bincount returns integers when there are no values at all.
-    ss = np.bincount(codes, weights=deviation * deviation, minlength=n_groups).astype(np.float64)
+    in_order = codes.size < 2 or not np.any(codes[1:] < codes[:-1])
+    ss = _squared_deviations(values, codes, mean, n_groups, in_order)
     ss[n == 0] = np.nan
     low = np.full(n_groups, np.nan)
     high = np.full(n_groups, np.nan)
     if values.size:
-        if codes.size > 1 and np.any(codes[1:] < codes[:-1]):
+        if not in_order:
             order = np.argsort(codes, kind="stable")
             codes, values = codes[order], values[order]
-        starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])
-        present = codes[starts]
+        # With the codes in order, each present group's rows start where the counts say.
+        present = np.flatnonzero(n)
+        starts = (np.cumsum(n) - n)[present]
         low[present] = np.minimum.reduceat(values, starts)
         high[present] = np.maximum.reduceat(values, starts)
     return GroupMoments(n=n, mean=mean, ss=ss, min=low, max=high)

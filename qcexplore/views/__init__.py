@@ -7,14 +7,15 @@ panel is one view module plus its figure). Hosts read the registry and nothing e
 from __future__ import annotations
 
 from qcexplore.options import Options
-from qcexplore.views.base import Figure, Shown, View
+from qcexplore.views.base import Card, Figure, Shown, View
 from qcexplore.views.capability import CapabilityView
 from qcexplore.views.chart import ChartView
 from qcexplore.views.findings import FindingsView
 from qcexplore.views.time import TimeView
 from qcexplore.views.variation import VariationView
 
-VIEWS: list[View] = [ChartView(), VariationView(), TimeView(), CapabilityView(), FindingsView()]
+#: The story first: the findings board, then the views that show the evidence.
+VIEWS: list[View] = [FindingsView(), ChartView(), VariationView(), TimeView(), CapabilityView()]
 
 
 def register(view: View, *, before: str | None = None) -> View:
@@ -23,7 +24,7 @@ def register(view: View, *, before: str | None = None) -> View:
     Examples
     --------
     >>> [v.name for v in VIEWS][:2]
-    ['chart', 'variation']
+    ['findings', 'chart']
     """
     if any(v.name == view.name for v in VIEWS):
         raise ValueError(f"A view named {view.name!r} is registered already.")
@@ -52,6 +53,7 @@ def option_types() -> dict[str, type[Options]]:
 
 __all__ = [
     "VIEWS",
+    "Card",
     "Figure",
     "Shown",
     "View",

@@ -34,12 +34,27 @@ class Figure:
 
 
 @dataclass(frozen=True)
+class Card:
+    """One finding as the room sees it: headline and sentence, its picture, the statistics
+    and the next step behind a disclosure, and the settings that open the full view."""
+
+    html: str
+    figure: Figure | None
+    details: str
+    action: tuple[tuple[str, Any], ...] = ()
+
+
+@dataclass(frozen=True)
 class Shown:
-    """What a view shows of one result: figures, HTML (tables and captions), a status line."""
+    """What a view shows of one result: cards, figures, HTML (tables, captions), a status line.
+
+    Hosts show the cards first (one under the other), then the figures, then the HTML.
+    """
 
     figures: tuple[Figure, ...] = ()
     html: str = ""
     summary: str = ""
+    cards: tuple[Card, ...] = ()
 
 
 class View:
@@ -62,7 +77,11 @@ class View:
             return None
         return state.options_for(self.name, self.options_type)
 
-    def live_choices(self, study: Any) -> Mapping[str, Mapping[Any, str]]:
+    def study_roles(self, options: Options) -> dict[str, Any]:
+        """Roles of the Study that this view's options set (e.g. the specification)."""
+        return {}
+
+    def live_choices(self, study: Any, options: Options | None) -> Mapping[str, Mapping[Any, str]]:
         """Choices of option fields that depend on the study (e.g. the factors to split by)."""
         return {}
 

@@ -5,8 +5,9 @@ from __future__ import annotations
 from typing import Any
 
 from qcexplore import draw
-from qcexplore.options import Options
+from qcexplore.options import Options, SpecOptions
 from qcexplore.views.base import Figure, Shown, View
+from qcexplore.views.log import ExplorerState
 from qcexplore.views.text import notes_html, plural, table_html
 
 
@@ -15,12 +16,21 @@ class CapabilityView(View):
 
     name = "capability"
     title = "Against the specification"
+    options_type = SpecOptions
+
+    def options_for(self, study: Any, state: ExplorerState) -> SpecOptions:
+        stored = dict(state.options).get(self.name)
+        return stored if stored is not None else SpecOptions.of(study.spec, study.units)
+
+    def study_roles(self, options: SpecOptions) -> dict[str, Any]:
+        """The Study's roles these options set: the specification and the units."""
+        return {"spec": options.spec(), "units": options.units}
 
     def available(self, study: Any) -> str:
         if study.spec is None:
             return (
-                "No specification was given, so capability is not computed: give the lower "
-                "and/or upper limit to see it."
+                "No specification was given, so capability is not computed: type the lower "
+                "and/or upper limit above to see it."
             )
         return ""
 
@@ -31,7 +41,11 @@ class CapabilityView(View):
         return Shown(
             figures=(Figure("capability", lambda: draw.capability_figure(result), result),),
             html=table_html(result.indices, "Capability indices")
-            + table_html(result.ppm, "Parts per million outside the specification")
+            + table_html(
+                result.ppm,
+                "Parts per million outside the specification",
+                whole_numbers=("observed", "expected"),
+            )
             + table_html(result.normality, "Normality")
             + notes_html(result.warnings),
             summary=plural(len(result.indices), "index", "indices"),

@@ -6,6 +6,7 @@ Every piece of text that comes from the data or the user is escaped here.
 from __future__ import annotations
 
 import html
+import math
 from collections.abc import Iterable
 from typing import Any
 
@@ -23,15 +24,78 @@ def plural(count: int, word: str, words: str | None = None) -> str:
     return f"{count} {word if count == 1 else (words or word + 's')}"
 
 
-def _joined(cell: Any) -> Any:
-    return ", ".join(map(str, cell)) if isinstance(cell, (tuple, list)) else cell
+#: Code values of result tables in the words people read (others: underscores as spaces).
+WORDS = {
+    "between_subgroups": "between subgroups",
+    "within_subgroup": "within subgroups",
+    "brown_forsythe": "Brown-Forsythe",
+    "anderson_darling": "Anderson-Darling",
+    "kruskal_wallis": "Kruskal-Wallis",
+    "tukey": "Tukey",
+    "anom": "analysis of means",
+    "ljung_box": "Ljung-Box",
+    **{name: name.capitalize() for name in ("cp", "cpk", "cpl", "cpu", "pp", "ppk", "ppl", "ppu")},
+}
+#: Column headings in words (others: underscores as spaces).
+HEADINGS = {"center": "centre", "lcl": "lower limit", "ucl": "upper limit", "with_": "with"}
+_P_COLUMNS = ("p", "p_adjusted")
 
 
-def table_html(frame: pd.DataFrame, caption: str, *, rows: int | None = None) -> str:
-    """A small HTML table of a result frame with a heading, every cell escaped.
+def p_words(p: float) -> str:
+    """A p-value for people: "< 0.001" below a thousandth, else two significant digits.
 
-    Column names are shown as words ("error_term" as "error term", "with_" as "with"),
-    left-aligned over their cells; a column with no value in any row (the stratum of a
+    Examples
+    --------
+    >>> p_words(3.965e-52), p_words(0.6612), p_words(0.0123)
+    ('< 0.001', '0.66', '0.012')
+    """
+    if p != p:  # NaN: no test
+        return ""
+    return "< 0.001" if p < 0.001 else f"{p:.2g}"
+
+
+def whole(x: float) -> str:
+    """A count or ppm for people: a whole number with thousands separators.
+
+    Examples
+    --------
+    >>> whole(25981.4)
+    '25,981'
+    """
+    return "" if x != x else f"{x:,.0f}"
+
+
+def _cell_words(cell: Any) -> Any:
+    if isinstance(cell, (tuple, list)):  # rule ids read as "N1, N5", not a Python tuple
+        return ", ".join(map(str, cell))
+    if isinstance(cell, str) and cell.isidentifier() and cell.islower():
+        return WORDS.get(cell, cell.replace("_", " "))
+    return cell
+
+
+def _number(v: float) -> str:
+    if v != v:
+        return ""
+    if math.isinf(v):
+        return "∞" if v > 0 else "-∞"
+    if v == int(v) and abs(v) < 1e15:
+        return f"{int(v):,}"
+    return f"{v:.4g}"
+
+
+def table_html(
+    frame: pd.DataFrame,
+    caption: str,
+    *,
+    rows: int | None = None,
+    whole_numbers: tuple[str, ...] = (),
+) -> str:
+    """A small HTML table of a result frame for people, with a heading, every cell escaped.
+
+    Column names are shown as words ("error_term" as "error term", "center" as "centre"),
+    left-aligned over their cells; code values as words ("between_subgroups" as "between
+    subgroups"); p-values as "< 0.001" or two digits; the ``whole_numbers`` columns (ppm,
+    counts) with thousands separators; a column with no value in any row (the stratum of a
     chart without a split) is left out.
 
     Examples
@@ -42,20 +106,25 @@ def table_html(frame: pd.DataFrame, caption: str, *, rows: int | None = None) ->
     True
     >>> "stratum" in table_html(pd.DataFrame({"stratum": [None], "ucl": [3.0]}), "x")
     False
+    >>> "&lt; 0.001" in table_html(pd.DataFrame({"p": [1e-52]}), "x")
+    True
     """
     shown = frame if rows is None else frame.head(rows)
     if len(shown):
         shown = shown.loc[:, shown.notna().any().to_numpy()]
-    # Rule ids and other sequences read as "N1, N5", not as a Python tuple.
-    shown = shown.apply(lambda column: column.map(_joined) if column.dtype == object else column)
-    shown = shown.rename(columns=lambda c: str(c).strip("_").replace("_", " "))
+    shown = shown.copy()
+    for column in shown.columns:
+        if column in _P_COLUMNS:
+            shown[column] = shown[column].astype(float).map(p_words)
+        elif column in whole_numbers:
+            shown[column] = shown[column].astype(float).map(whole)
+        elif shown[column].dtype == object or isinstance(shown[column].dtype, pd.StringDtype):
+            shown[column] = shown[column].map(_cell_words)
+    shown = shown.rename(
+        columns=lambda c: HEADINGS.get(str(c), str(c).strip("_").replace("_", " "))
+    )
     body = shown.to_html(
-        index=False,
-        escape=True,
-        border=0,
-        na_rep="",
-        justify="left",
-        float_format=lambda v: f"{v:.4g}",
+        index=False, escape=True, border=0, na_rep="", justify="left", float_format=_number
     )
     more = "" if rows is None or len(frame) <= rows else f"<p>... {len(frame) - rows} more</p>"
     return f"<h4>{html.escape(caption)}</h4>{body}{more}"
@@ -71,22 +140,6 @@ def notes_html(notes: Iterable[Any]) -> str:
     """
     items = "".join(f"<li>{html.escape(str(n))}</li>" for n in notes)
     return f"<ul>{items}</ul>" if items else ""
-
-
-def findings_html(found: Iterable[Any], caution: str) -> str:
-    """The findings as a numbered list of titles and details, then the caution (escaped).
-
-    Examples
-    --------
-    >>> "take care" in findings_html([], "take care")
-    True
-    """
-    items = "".join(
-        f"<li><b>{html.escape(str(f.title))}</b><br>{html.escape(str(f.detail))}</li>"
-        for f in found
-    )
-    body = f"<ol class='qcx-findings'>{items}</ol>" if items else "<p>No findings.</p>"
-    return body + f"<p class='qcx-caution'><i>{html.escape(caution)}</i></p>"
 
 
 def log_html(exclusions: Iterable[Any], notes: Iterable[Any]) -> str:

@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+import html
 from typing import Any
 
 from qcexplore import draw
 from qcexplore.options import Options, VariationOptions
 from qcexplore.views.base import Figure, Shown, View
-from qcexplore.views.text import notes_html, plural, table_html
+from qcexplore.views.text import notes_html, p_words, plural, table_html
 
 
 class VariationView(View):
@@ -47,5 +48,37 @@ class VariationView(View):
     def show_choice(self, study: Any, result: Any, choice: str) -> Shown:
         return Shown(
             figures=(Figure("anom", lambda: draw.anom_figure(result, choice), result, (choice,)),),
-            html=table_html(result.comparisons[choice], f"Comparisons of the levels of {choice}"),
+            html=_agreement(result, choice)
+            + table_html(result.comparisons[choice], f"Comparisons of the levels of {choice}"),
         )
+
+
+def _agreement(result: Any, factor: str, alpha: float = 0.05) -> str:
+    """Say so on the panel when the analysis of means marks a level of a factor that the
+    analysis of variance finds no difference for (or the other way round), and why."""
+    table = result.comparisons[factor]
+    anom = table[table["test"] == "anom"]
+    rows = result.anova[result.anova["source"] == factor]
+    if not len(anom) or not len(rows) or "signal" not in anom:
+        return ""
+    marked = bool(anom["signal"].any())
+    p = float(rows["p"].iloc[0])
+    if p != p or marked == (p < alpha):
+        return ""
+    error = str(rows["error_term"].iloc[0]) if "error_term" in rows else "its error term"
+    if marked:
+        why = (
+            f"The analysis of means marks a level of {factor}, but the analysis of variance "
+            f"finds no difference between the {factor} levels (p = {p_words(p)}, tested "
+            f"against {error}). The two ask different questions: the analysis of means "
+            "compares each level with the overall mean, one level at a time; the analysis of "
+            "variance asks whether the levels differ at all, against the variation the design "
+            "calls for. Read the marked level as a lead to check, not as a finding."
+        )
+    else:
+        why = (
+            f"The analysis of variance finds the {factor} levels differ (p = {p_words(p)}), "
+            "but no single level stands outside the decision limits of the analysis of means: "
+            "the difference is spread over several levels."
+        )
+    return f"<p class='qcx-agreement'>{html.escape(why)}</p>"

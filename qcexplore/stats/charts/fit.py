@@ -37,7 +37,14 @@ def limits_from(
     center: np.ndarray, se: np.ndarray, level: float, low: float = -np.inf,
     high: np.ndarray | float = np.inf,
 ) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
-    return np.maximum(center - level * se, low), np.minimum(center + level * se, high)
+    half = level * se
+    lower, upper = center - half, center + half
+    # An infinite bound cuts nothing (and keeps NaN as NaN): skip the pass over the points.
+    if low != -np.inf:
+        lower = np.maximum(lower, low)
+    if np.ndim(high) or high != np.inf:
+        upper = np.minimum(upper, high)
+    return lower, upper
 
 
 def fit_limits(

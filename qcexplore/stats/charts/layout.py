@@ -56,7 +56,10 @@ def point_codes(frame: pd.DataFrame, subgroup: str, by: str | None, per_stratum:
 def per_size(func: Callable[[int], float], n: np.ndarray) -> np.ndarray:
     """``func(n_i)`` for every n_i >= 2 (NaN below), one call per distinct size."""
     n = np.asarray(n)
-    whole = np.where(np.isfinite(n), n, 0).astype(np.int64)
+    if n.dtype.kind in "iu":  # counts of rows: already whole and finite
+        whole = n.astype(np.int64, copy=False)
+    else:
+        whole = np.where(np.isfinite(n), n, 0).astype(np.int64)
     sizes = np.flatnonzero(np.bincount(np.maximum(whole, 0)))
     sizes = sizes[sizes >= 2]
     table = np.full(int(whole.max(initial=1)) + 1, np.nan)
@@ -92,10 +95,14 @@ def pair_used(used: np.ndarray, prev: np.ndarray) -> np.ndarray:
 
 def seg_mean(terms: np.ndarray, weights: np.ndarray, seg: np.ndarray, n_seg: int) -> np.ndarray:
     """Weighted mean of ``terms`` per segment (NaN where a segment has no weight)."""
-    weights = np.where(np.isnan(terms), 0.0, weights)
+    missing = np.isnan(terms)
+    weights = np.where(missing, 0.0, weights)
     total = np.bincount(seg, weights, n_seg)
+    # As np.nan_to_num (NaN to 0, infinities to the largest finite numbers), in two passes.
+    big = np.finfo(np.float64).max
+    finite = np.clip(np.where(missing, 0.0, terms), -big, big)
     with np.errstate(invalid="ignore", divide="ignore"):
-        return np.bincount(seg, weights * np.nan_to_num(terms), n_seg) / total
+        return np.bincount(seg, weights * finite, n_seg) / total
 
 
 def typical(x: np.ndarray, seg: np.ndarray, n_seg: int) -> np.ndarray:

@@ -13,7 +13,7 @@ from qcexplore.stats.charts.fit import Estimate, Fit
 from qcexplore.stats.charts.layout import Points, point_labels
 from qcexplore.stats.charts.request import ChartRequest
 from qcexplore.stats.results import ChartResult
-from qcexplore.stats.rules import evaluate_rules
+from qcexplore.stats.rules import fired_rules
 
 
 def two_sided_rate(level: float) -> float:
@@ -30,7 +30,7 @@ class Plotted:
 
     fit: Fit
     signal: np.ndarray  # per point: a rule fired
-    fired: list[tuple[str, ...]]  # per point: the rules that fired
+    fired: np.ndarray  # per point: the tuple of rules that fired (object array)
     beyond: np.ndarray  # per point: outside its own limits
     rules: tuple[str, ...]
     level: float  # limits at this many standard errors (sigma_level, L or h)
@@ -53,7 +53,7 @@ def plotted_by_rules(
     notes: tuple[str, ...] = (),
 ) -> Plotted:  # fmt: skip
     """A chart whose limits are at ``level`` standard errors, its points read by ``rules``."""
-    signal, fired = evaluate_rules(
+    signal, fired = fired_rules(
         fit.stat, fit.center, fit.se, rules, sigma_level=level, segments=segments
     )
     return Plotted(
@@ -80,13 +80,16 @@ def points_table(req: ChartRequest, plotted: Plotted, n: np.ndarray, est: Estima
             "center": fit.center,
             "lcl": fit.lcl,
             "ucl": fit.ucl,
-            "n": n,
+            "n": np.array(n),
             "signal": np.asarray(plotted.signal, dtype=bool),
-            "rules": pd.Series(plotted.fired, dtype=object),
+            "rules": plotted.fired,
             "se": fit.se,
             "excluded": req.user_out | est.dropped,
             "beyond": np.asarray(plotted.beyond, dtype=bool),
-        }
+        },
+        # The columns are this table's own arrays (n is shared with the spread chart, hence
+        # its copy): taken as they are, not consolidated into blocks, a copy of each.
+        copy=False,
     )
     if req.start is not None:
         table["start"] = req.start

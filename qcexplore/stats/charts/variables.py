@@ -115,7 +115,7 @@ class SigmaBase:
     def method_words(self, m: GroupMoments, mine: np.ndarray, sigma: float) -> str:
         """The formula and numbers of the within sigma of the points ``mine``."""
         sizes = np.array([2]) if self.moving else m.n[mine & (m.n >= 2)]
-        if np.unique(sizes).size == 1:
+        if sizes.size and sizes.min() == sizes.max():
             size = int(sizes[0])
             factor = self.mean_factor(size)
             return (
@@ -191,7 +191,7 @@ def means_of(req: ChartRequest) -> Means:
     if req.size is not None:
         raise QCDataError(f"size= is for p, np and u charts, not kind={req.kind!r}.")
     points = req.points
-    m = group_moments(req.values, points.row_point, points.sub.size)
+    m = group_moments(req.values, points.row_point, points.sub.size, counts=req.rows)
     if req.kind == "imr" and np.any(m.n > 1):
         worst = np.flatnonzero(m.n > 1)[:5]
         raise QCDataError(

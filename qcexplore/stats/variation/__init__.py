@@ -1,12 +1,16 @@
 """Sources of variation: which factor moves the value, tested with the right error term.
 
-The design decides the test. A factor that changes inside a subgroup (a nozzle, a
-position) is crossed with time: it is tested against the within-subgroup residual with
-the subgroup as a block. A factor that is constant inside each subgroup (the crew on
-shift, the raw-material lot) can only be compared through subgroup means, so its error
-term is the subgroup-to-subgroup variation within its levels; testing it against single
-values would count every value as independent evidence (pseudo-replication). Two factors
-whose levels fix each other cannot be separated at all, and the result says so.
+The design decides the test. The subgroups are random (another hour, another day). A
+factor that changes inside a subgroup (a nozzle, a position) is crossed with time: it is
+compared within subgroups (the subgroup as a block) and tested against the subgroup x
+factor interaction, so values repeated inside one subgroup x level cell do not count as
+independent evidence. A factor that is constant inside each subgroup (the crew on shift,
+the raw-material lot) can only be compared through subgroup means, so its error term is
+the subgroup-to-subgroup variation within its levels; testing either against single values
+would be pseudo-replication. A factor nested in another, or in the subgroups, is estimated
+hierarchically. Two factors whose levels fix each other cannot be separated at all, and a
+level that goes with a period of time cannot be told from a change in time: the results
+say so.
 
 Everything is computed from per-group sufficient statistics (counts, weighted sums,
 within-group sums of squares) so that 200,000 rows take a fraction of a second. One module
@@ -21,6 +25,8 @@ per job:
 ``distributions``         the ANOM and studentized-range distributions they use
 ``offsets``               measurement offsets and the values with them taken off
 ``multivari``             the multi-vari table
+``nesting``               nested factors, and labels that are probably nested
+``timeline``              factor levels against changes in time; offsets safe for a step search
 ``analysis``              :func:`variation`, the entry point
 ========================  ==========================================================
 """
@@ -32,6 +38,7 @@ from qcexplore.stats.variation.comparisons import ASSOCIATION_NOTE_V
 from qcexplore.stats.variation.multivari import multivari_table
 from qcexplore.stats.variation.offsets import adjusted_values, measurement_offsets
 from qcexplore.stats.variation.structure import CONFOUNDING_THRESHOLD, design_structure
+from qcexplore.stats.variation.timeline import step_safe_offsets, time_confounding
 
 __all__ = [
     "ASSOCIATION_NOTE_V",
@@ -40,5 +47,7 @@ __all__ = [
     "design_structure",
     "measurement_offsets",
     "multivari_table",
+    "step_safe_offsets",
+    "time_confounding",
     "variation",
 ]

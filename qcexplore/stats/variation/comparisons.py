@@ -2,8 +2,9 @@
 Kruskal-Wallis, and the equality of spread between levels.
 
 A factor constant inside subgroups is compared through the subgroup means; any other factor
-through values centred on their subgroup mean (the subgroup as a block). Each factor is
-compared on its own, so associated factors get a note (:func:`marginal_note`).
+through its subgroup x level cell means centred on their subgroup (the subgroup as a block;
+the cells are what its effect is replicated over). Each factor is compared on its own, so
+associated factors get a note (:func:`marginal_note`).
 
 Checked against scipy ``tukey_hsd``, ``kruskal`` and ``levene``, R's InsectSprays
 Kruskal-Wallis, Nelson's ANOM table and simulation (tests/test_variation.py).
@@ -23,7 +24,7 @@ from qcexplore.stats.variation.distributions import (
     studentized_range_sf,
     tukey_critical,
 )
-from qcexplore.stats.variation.factors import Factor, crosstab
+from qcexplore.stats.variation.factors import Factor, cell_codes, crosstab
 from qcexplore.stats.variation.structure import Design, association
 
 #: Cramer's V at or above which two factors count as associated for the note on level
@@ -31,6 +32,10 @@ from qcexplore.stats.variation.structure import Design, association
 ASSOCIATION_NOTE_V = 0.1
 #: Exact ANOM critical values up to this many levels (Sidak beyond).
 ANOM_MAX_LEVELS = 100
+#: Values a level needs before its spread enters an equal-spread test: with two values the
+#: absolute deviations from their centre are equal, so the test's within-level variation is
+#: zero and any difference between levels looks infinitely significant.
+SPREAD_MIN_VALUES = 3
 
 #: ``signal``: an analysis-of-means level whose mean lies outside its decision limits
 #: (False on the rows of the other tests).
@@ -40,14 +45,24 @@ COMPARISON_COLUMNS = [
 
 
 def level_data(d: Design, f: Factor) -> tuple[np.ndarray, np.ndarray, int]:
-    """Values and level codes to compare, and the error degrees of freedom already used:
-    subgroup means for a factor constant inside subgroups; otherwise values centred on
-    their subgroup mean (the subgroup as a block, which uses one df per subgroup but one).
+    """Values and level codes to compare, and the error degrees of freedom already used.
+
+    A factor constant inside subgroups is compared through the subgroup means. Any other
+    factor through its subgroup x level cell means, each centred on the mean of its
+    subgroup's cells (the subgroup as a block, which uses one df per subgroup but one): the
+    cell, not the value, is the unit that the factor's effect is replicated over when the
+    subgroups are random, so repeated values in a cell do not count as independent
+    evidence. With one value per cell these are the values centred on their subgroup mean.
     """
     per_subgroup = constant_within(f.codes, d.subgroup.codes, d.k)
     if np.all(per_subgroup >= 0):
         return d.means, per_subgroup, 0
-    return d.y - d.means[d.subgroup.codes] + d.y.mean(), f.codes, d.k - 1
+    cells = cell_codes(d.subgroup.codes, [f])
+    cm = group_moments(d.y, cells)
+    cell_sg = constant_within(d.subgroup.codes, cells, cm.n.size)
+    cell_level = constant_within(f.codes, cells, cm.n.size)
+    sg_mean = group_moments(cm.mean, cell_sg, d.k).mean
+    return cm.mean - sg_mean[cell_sg] + cm.mean.mean(), cell_level, d.k - 1
 
 
 def _row(
@@ -135,22 +150,33 @@ def level_comparisons(
     return pd.DataFrame(rows, columns=COMPARISON_COLUMNS)
 
 
-def spread_table(d: Design, factors: list[Factor]) -> pd.DataFrame:
+def spread_table(d: Design, factors: list[Factor]) -> tuple[pd.DataFrame, list[str]]:
     """Levene and Brown-Forsythe tests of equal spread between the levels of each factor, on
-    deviations from the subgroup mean (or on single values)."""
+    deviations from the subgroup mean (or on single values), and notes on the tests left
+    out. A level enters with at least ``SPREAD_MIN_VALUES`` values; a factor with fewer than
+    two such levels is not tested (NaN)."""
     residual = d.y if d.single else d.y - d.means[d.subgroup.codes]
-    rows = []
+    rows, notes = [], []
     for f in factors:
         order = np.argsort(f.codes, kind="stable")
         counts = np.bincount(f.codes, minlength=f.n_levels)
-        groups = [g for g in np.split(residual[order], np.cumsum(counts)[:-1]) if g.size > 1]
+        groups = [
+            g
+            for g in np.split(residual[order], np.cumsum(counts)[:-1])
+            if g.size >= SPREAD_MIN_VALUES
+        ]
+        if len(groups) < 2 and f.n_levels > 1:
+            notes.append(
+                f"equal-spread tests of {f.name!r} need at least {SPREAD_MIN_VALUES} values in "
+                f"two or more levels (its levels hold at most {int(counts.max())}): not tested."
+            )
         for test, center in (("levene", "mean"), ("brown_forsythe", "median")):
             stat = p = float("nan")
             if len(groups) > 1:
                 with np.errstate(invalid="ignore", divide="ignore"):
                     stat, p = stats.levene(*groups, center=center)
             rows.append({"factor": f.name, "test": test, "statistic": float(stat), "p": float(p)})
-    return pd.DataFrame(rows, columns=["factor", "test", "statistic", "p"])
+    return pd.DataFrame(rows, columns=["factor", "test", "statistic", "p"]), notes
 
 
 def marginal_note(d: Design) -> list[str]:

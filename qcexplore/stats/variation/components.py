@@ -1,7 +1,9 @@
 """Variance components of an additive random model: every factor and the subgroup random.
 
-The subgroup x factor interaction is pooled into the residual; negative estimates are set to
-zero with a note.
+The subgroup x factor interaction is pooled into the residual (a factor inside the subgroups
+is still estimated against its interaction, as it is tested); a factor nested in another or
+in the subgroups is a random factor whose levels are read per level of its parent (the
+nested model); negative estimates are set to zero with a note.
 
 * Expected mean squares for balanced data (the classical equations); for unbalanced data the
   same equations with the effective group size n0 of each term (moment estimates), with
@@ -16,12 +18,15 @@ Checked against Bates' lme4 book values for Dyestuff and Pastes and statsmodels 
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 from scipy import optimize, sparse, stats
+from threadpoolctl import threadpool_limits
 
+from qcexplore.stats.variation.anova import Anova
 from qcexplore.stats.variation.factors import Factor, cell_codes
 from qcexplore.stats.variation.structure import Design
 
@@ -38,13 +43,26 @@ def _balanced(d: Design) -> bool:
     return True
 
 
-def _interval(coefs: list[tuple[float, float, float]], level: float) -> tuple[float, float]:
-    """Satterthwaite interval for sum(c * ms) from (c, ms, df) triples (chi-square if one)."""
+#: Satterthwaite intervals need at least this many effective degrees of freedom: below one,
+#: the chi-square quantile of the upper limit goes to zero and the limit to astronomical
+#: values (1e17 for an estimate just above zero) that say nothing.
+INTERVAL_MIN_DF = 1.0
+
+
+def satterthwaite_df(coefs: list[tuple[float, float, float]]) -> float:
+    """Effective df of sum(c * ms) from (c, ms, df) triples (Satterthwaite, 1946)."""
     estimate = sum(c * ms for c, ms, _ in coefs)
     if estimate <= 0 or any(df <= 0 for _, _, df in coefs):
-        return float("nan"), float("nan")
-    df = estimate**2 / sum((c * ms) ** 2 / df for c, ms, df in coefs)
-    if df < 0.1:  # too few effective degrees of freedom for a usable interval
+        return float("nan")
+    return estimate**2 / sum((c * ms) ** 2 / df for c, ms, df in coefs)
+
+
+def _interval(coefs: list[tuple[float, float, float]], level: float) -> tuple[float, float]:
+    """Satterthwaite interval for sum(c * ms) from (c, ms, df) triples (chi-square if one);
+    NaN below ``INTERVAL_MIN_DF`` effective degrees of freedom."""
+    estimate = sum(c * ms for c, ms, _ in coefs)
+    df = satterthwaite_df(coefs)
+    if not df >= INTERVAL_MIN_DF:
         return float("nan"), float("nan")
     tail = (1 - level) / 2
     return (
@@ -53,49 +71,53 @@ def _interval(coefs: list[tuple[float, float, float]], level: float) -> tuple[fl
     )
 
 
-def _moment_components(d: Design, anova: pd.DataFrame, level: float) -> tuple[list[dict], str]:
+def _n0(counts: np.ndarray) -> float:
+    """Effective group size (N - sum(m^2)/N) / (L - 1) of groups of ``counts`` values."""
+    counts = counts[counts > 0]
+    if counts.size < 2:  # one level: no variance between levels to estimate
+        return float("nan")
+    return (counts.sum() - np.sum(counts**2) / counts.sum()) / (counts.size - 1)
+
+
+def _moment_components(d: Design, anova: Anova, level: float) -> tuple[list[dict], str]:
     """Expected-mean-square estimates of an additive random model.
 
-    Balanced data: the classical expected mean squares. Unbalanced data: the same
-    equations with the effective group size n0 = (N - sum(m^2)/N) / (L - 1) of each term.
+    Each term's component is (MS - MS of its error term) / n0, its error term the one its
+    F test uses (the subgroup x factor interaction for a factor inside the subgroups, its
+    children for a parent of nested factors). Balanced data: the classical expected mean
+    squares. Unbalanced data: the same equations with the effective group size
+    n0 = (N - sum(m^2)/N) / (L - 1) of each term (for one random factor the estimate is
+    unbiased; Searle, Casella and McCulloch, Variance Components, ch. 3; from memory).
     """
-    table = anova.set_index("source")
-    ms = table["ms"].to_dict()
-    dfs = table["df"].to_dict()
-    rows = []
-    interaction = [s for s in table.index if s.startswith("subgroup x ")]
-    if d.single:
-        e_ms, e_df = ms["residual"], dfs["residual"]
-    else:
-        pooled = ["residual", *interaction]
-        e_df = sum(dfs[s] for s in pooled)
-        e_ms = sum(table.loc[s, "ss"] for s in pooled) / e_df if e_df > 0 else float("nan")
-
-    def n0(counts: np.ndarray) -> float:
-        counts = counts[counts > 0]
-        if counts.size < 2:  # one level: no variance between levels to estimate
-            return float("nan")
-        return (counts.sum() - np.sum(counts**2) / counts.sum()) / (counts.size - 1)
-
-    sg_ms, sg_df = (ms["subgroup"], dfs["subgroup"]) if "subgroup" in ms else (e_ms, e_df)
-    n_sg = n0(d.sizes) if not d.single else 1.0
-    for f in d.between:
-        rows_per_level = np.bincount(f.codes, weights=d.sizes, minlength=f.n_levels)
-        c = 1.0 / n0(rows_per_level)
-        coefs = [(c, ms[f.name], dfs[f.name]), (-c, sg_ms, sg_df)]
-        rows.append((f.name, coefs))
+    table = anova.table.set_index("source")
+    ms, dfs = table["ms"].to_dict(), table["df"].to_dict()
+    pooled = [s for s in table.index if s == "residual" or s.startswith("subgroup x ")]
+    e_df = sum(dfs[s] for s in pooled)
+    e_ms = sum(table.loc[s, "ss"] for s in pooled) / e_df if e_df > 0 else float("nan")
+    terms = [(f.name, np.bincount(f.codes, weights=d.sizes, minlength=f.n_levels))
+             for f in d.between]  # fmt: skip
     if not d.single:
-        rows.append(("subgroup", [(1 / n_sg, sg_ms, sg_df), (-1 / n_sg, e_ms, e_df)]))
-    for f in d.within:
-        c = 1.0 / n0(np.bincount(f.codes, minlength=f.n_levels))
-        rows.append((f.name, [(c, ms[f.name], dfs[f.name]), (-c, e_ms, e_df)]))
+        terms.append(("subgroup", d.sizes.astype(float)))
+    terms += [(f.name, np.bincount(f.codes, minlength=f.n_levels)) for f in d.within]
     out = []
-    for name, coefs in rows:
-        estimate = sum(c * m for c, m, _ in coefs)
+    for name, counts in terms:
+        if name not in ms:  # a row without degrees of freedom: nothing to estimate
+            continue
+        error = anova.errors[name]
+        c = 1.0 / _n0(counts.astype(float))
+        coefs = [(c, ms[name], dfs[name]), (-c, error.ms, error.df)]
+        estimate = sum(k * m for k, m, _ in coefs)
         low, high = _interval(coefs, level)
-        out.append({"source": name, "variance": estimate, "lower": low, "upper": high})
+        out.append(
+            {
+                "source": name, "variance": estimate, "lower": low, "upper": high,
+                "interval_df": satterthwaite_df(coefs),
+            }
+        )  # fmt: skip
     low, high = _interval([(1.0, e_ms, e_df)], level)
-    out.append({"source": "residual", "variance": e_ms, "lower": low, "upper": high})
+    out.append(
+        {"source": "residual", "variance": e_ms, "lower": low, "upper": high, "interval_df": e_df}
+    )
     method = "expected mean squares" if _balanced(d) else "moment estimates (effective n0)"
     return out, method
 
@@ -176,6 +198,39 @@ def _reml_profile(s: _RemlStats, ratios: np.ndarray) -> tuple[float, float]:
     return (s.n - 1) * np.log(max(sigma2, 1e-300)) + logdet, sigma2
 
 
+#: Upper bound of a component's sd relative to the residual sd.
+_THETA_MAX = 1e3
+
+
+def _reml_maximum(objective: Callable[[np.ndarray], float], x0: np.ndarray) -> np.ndarray:
+    """The relative sds theta (>= 0) that minimise ``objective`` (minus twice the profiled
+    REML log likelihood).
+
+    Parametrised by theta = sigma_j / sigma (lme4's choice; Bates et al., J. Stat. Softw.
+    67(1), 2015; from memory) the likelihood is smooth up to and at the boundary theta = 0,
+    so a bounded quasi-Newton search reaches a zero component instead of creeping towards
+    it. Each component left near zero is then tried at zero, and the search restarted from
+    the better point, until nothing improves: the result is never below what a nearby
+    boundary point gives.
+    """
+    bounds = [(0.0, _THETA_MAX)] * x0.size
+    options = {"ftol": 1e-15, "gtol": 1e-10, "maxiter": 2000}
+    theta = optimize.minimize(objective, x0, method="L-BFGS-B", bounds=bounds, options=options).x
+    for _ in range(x0.size):
+        value, moved = objective(theta), False
+        for i in np.flatnonzero((theta > 0) & (theta < 1e-2)):
+            trial = theta.copy()
+            trial[i] = 0.0
+            if objective(trial) <= value:
+                theta, value, moved = trial, objective(trial), True
+        if not moved:
+            break
+        theta = optimize.minimize(
+            objective, theta, method="L-BFGS-B", bounds=bounds, options=options
+        ).x
+    return theta
+
+
 def _reml_components(d: Design, start: dict[str, float]) -> list[dict]:
     """REML estimates of the additive random model (every factor and the subgroup random,
     the mean fixed) from sufficient statistics: the work per likelihood evaluation does
@@ -191,15 +246,11 @@ def _reml_components(d: Design, start: dict[str, float]) -> list[dict]:
     ratios = np.zeros(len(order))
     if s.yy > 0 and order:
         e0 = max(start.get("residual", 0.0), 1e-6 * s.yy / s.n)
-        x0 = np.log([max(start.get(name, 0.0) / e0, 0.05) for name in order])
-        floor = np.log(1e-9)
-        best = optimize.minimize(
-            lambda t: _reml_profile(s, np.exp(t))[0],
-            x0,
-            method="L-BFGS-B",
-            bounds=[(floor, np.log(1e6))] * len(order),
-        )
-        ratios = np.where(best.x > floor + np.log(1e3), np.exp(best.x), 0.0)
+        x0 = np.sqrt([max(start.get(name, 0.0) / e0, 0.05) for name in order])
+        # The matrices are small (one row per level): threads of a parallel BLAS cost more in
+        # start-up than they save, several times over on a busy machine.
+        with threadpool_limits(limits=1):
+            ratios = _reml_maximum(lambda theta: _reml_profile(s, theta * theta)[0], x0) ** 2
     sigma2 = _reml_profile(s, ratios)[1] if s.yy > 0 else 0.0
     variance = dict(zip(order, ratios * sigma2, strict=True))
     shown = [f.name for f in d.between] + ([] if d.single else ["subgroup"])
@@ -222,7 +273,7 @@ def _reml_feasible(d: Design) -> bool:
 
 
 def components_table(
-    d: Design, anova: pd.DataFrame, method: str, level: float
+    d: Design, anova: Anova, method: str, level: float
 ) -> tuple[pd.DataFrame, str, list[str]]:
     notes: list[str] = []
     balanced = _balanced(d)
@@ -237,6 +288,13 @@ def components_table(
             "effective group sizes (n0), approximate."
         )
     table = pd.DataFrame(rows)
+    if "interval_df" in table:
+        thin = table[(table["variance"] > 0) & ~(table["interval_df"] >= INTERVAL_MIN_DF)]
+        for name, df in zip(thin["source"], thin["interval_df"], strict=True):
+            notes.append(
+                f"the interval for {name!r} would rest on {df:.2g} effective degrees of "
+                f"freedom (Satterthwaite), under {INTERVAL_MIN_DF:g}: it is not given."
+            )
     negative = table["variance"] < 0
     for name in table.loc[negative, "source"]:
         notes.append(f"the estimate for {name!r} came out negative and is set to zero.")

@@ -6,7 +6,7 @@ Checked against statsmodels OLS with ``C(factor, Sum)`` coding (tests/test_varia
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -14,24 +14,36 @@ from scipy import stats
 
 from qcexplore.data.validate import finite_column, require_columns
 from qcexplore.errors import QCDataError
-from qcexplore.stats.variation.anova import Gram, coding, gram, solve
+from qcexplore.stats.variation.anova import Error, Gram, anova_table, coding, gram, solve
 from qcexplore.stats.variation.factors import Factor
 from qcexplore.stats.variation.structure import Design, design
 
 OFFSET_COLUMNS = ["factor", "level", "offset", "se", "lower", "upper", "p", "note"]
 
 
-def _sum_coded_effects(
-    g: Gram, factors: list[Factor], keep: list[int], resid_df: float, level: float
+def sum_coded_effects(
+    g: Gram,
+    factors: list[Factor],
+    keep: list[int],
+    resid_df: float,
+    level: float,
+    errors: Mapping[str, Error],
 ) -> list[dict]:
+    """Sum-coded effects of the factors ``keep``; each factor's standard errors come from the
+    error term its F test uses (``errors``; the model's residual when absent)."""
     t = coding(g.sizes, list(range(len(g.sizes))), "sum")
     coef, rss, rank, inv = solve(g, t)
-    df = resid_df - rank
-    sigma2 = rss / df if df > 0 else float("nan")
+    df_model = resid_df - rank
     rows = []
     col = 0
     for index, f in enumerate(factors):
         width = f.n_levels - 1 if f.n_levels > 1 else 0
+        error = errors.get(f.name)
+        sigma2, df = (
+            (error.ms, error.df)
+            if error is not None
+            else (rss / df_model if df_model > 0 else float("nan"), df_model)
+        )
         if index in keep and width:
             # map sum-coded coefficients to one effect per level
             m = np.vstack([np.eye(width), -np.ones((1, width))])
@@ -74,18 +86,30 @@ def confounding_notes(d: Design, measured_by: Sequence[str]) -> dict[str, str]:
     return out
 
 
-def offsets_table(d: Design, measured_by: Sequence[str], level: float) -> pd.DataFrame:
-    """The offsets of the measured_by factors of design ``d`` (see :func:`measurement_offsets`)."""
+def offsets_table(
+    d: Design,
+    measured_by: Sequence[str],
+    level: float,
+    errors: Mapping[str, Error],
+    periods: Sequence[Factor] = (),
+) -> pd.DataFrame:
+    """The offsets of the measured_by factors of design ``d`` (see :func:`measurement_offsets`);
+    ``errors``: the error term of each within-subgroup factor's test (``anova_table``);
+    ``periods``: two-level factors per subgroup (before/after a point in time) that the
+    between-subgroup offsets are adjusted for."""
+    between = [*d.between, *periods]
     sides = (  # between subgroups: on the subgroup means; within: the subgroup as a block
-        (d.between, lambda: gram(d.means, d.sizes.astype(float), np.zeros(d.k, np.intp), 1,
-                                 d.between), d.k - 1),
+        (between, lambda: gram(d.means, d.sizes.astype(float), np.zeros(d.k, np.intp), 1,
+                               between), d.k - 1),
         (d.within, lambda: gram(d.y, np.ones(d.n), d.subgroup.codes, d.k, d.within), d.n - d.k),
     )  # fmt: skip
     rows: list[dict] = []
+    within = {f.name: errors[f.name] for f in d.within if f.name in errors}
     for factors, fitted, resid_df in sides:
         keep = [i for i, f in enumerate(factors) if f.name in measured_by]
         if keep:
-            rows += _sum_coded_effects(fitted(), factors, keep, resid_df, level)
+            own = within if factors is d.within else {}  # between: the model's residual
+            rows += sum_coded_effects(fitted(), factors, keep, resid_df, level, own)
     table = pd.DataFrame(rows, columns=OFFSET_COLUMNS[:-1])
     notes = confounding_notes(d, measured_by)
     table["note"] = [notes.get(name, "") for name in table["factor"]]
@@ -111,9 +135,11 @@ def measurement_offsets(
     from the subgroup means (weighted by subgroup size) together with the other
     between-subgroup factors, with the subgroup-to-subgroup variation as its error.
     ``se`` is the standard error, ``lower``/``upper`` a ``level`` t interval and ``p``
-    the t test of a zero offset. The measured_by factors enter the joint model first, so
-    a factor confounded with one of them is left out; the offsets then carry both effects
-    and ``note`` says so (it is empty otherwise).
+    the t test of a zero offset; for a factor inside the subgroups they rest on the error
+    term of its F test (the subgroup x factor interaction, see ``variation``), so repeated
+    values in a subgroup x level cell do not narrow them. The measured_by factors enter the
+    joint model first, so a factor confounded with one of them is left out; the offsets
+    then carry both effects and ``note`` says so (it is empty otherwise).
 
     Checked against statsmodels OLS with ``C(factor, Sum)`` coding (tests/test_variation.py).
 
@@ -128,7 +154,7 @@ def measurement_offsets(
     """
     measured_by = (measured_by,) if isinstance(measured_by, str) else tuple(measured_by)
     d = offsets_design(frame, value, subgroup, measured_by, factors)
-    return offsets_table(d, measured_by, level)
+    return offsets_table(d, measured_by, level, anova_table(d).errors)
 
 
 def offsets_design(
@@ -138,6 +164,7 @@ def offsets_design(
     measured_by: Sequence[str],
     factors: Sequence[str],
     reuse: Design | None = None,
+    nested: Mapping[str, str] | None = None,
 ) -> Design:
     """The design with the measured_by factors first (``reuse`` when it already keeps all
     of them)."""
@@ -145,7 +172,8 @@ def offsets_design(
         kept = {f.name for f in [*reuse.between, *reuse.within]}
         if all(m in kept for m in measured_by):
             return reuse
-    return design(frame, value, subgroup, list(dict.fromkeys([*measured_by, *factors])))
+    order = list(dict.fromkeys([*measured_by, *factors]))
+    return design(frame, value, subgroup, order, nested)
 
 
 def adjusted_values(frame: pd.DataFrame, *, value: str, offsets: pd.DataFrame) -> np.ndarray:

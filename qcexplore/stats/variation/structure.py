@@ -8,13 +8,14 @@ through subgroup means; two factors whose levels fix each other cannot be separa
 
 from __future__ import annotations
 
-from collections.abc import Sequence
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
 from qcexplore.data.validate import require_columns
+from qcexplore.errors import QCDataError
 from qcexplore.stats.subgroups import constant_within, group_moments
 from qcexplore.stats.variation.factors import Factor, crosstab, factor, prepare
 
@@ -54,6 +55,11 @@ def _subgroup_relation(
     if not np.all(first >= 0):
         share = float(np.mean(first < 0))
         note = f"varies inside {share:.0%} of subgroups; the subgroup is used as a block"
+        if nested_in_subgroups(f, subgroup):
+            note += (
+                "; each of its levels occurs in one subgroup only, so it is nested in the "
+                "subgroups (estimated as a nested component)"
+            )
         return "within_subgroup", note, None
     if single:
         return "between_subgroups", "single values: each value is its own subgroup", first
@@ -68,6 +74,13 @@ def _subgroup_relation(
         "constant inside each subgroup; compared through subgroup means",
         first,
     )
+
+
+def nested_in_subgroups(f: Factor, subgroup: Factor) -> bool:
+    """Whether ``f`` changes inside subgroups while each of its levels lies in one subgroup."""
+    home = constant_within(subgroup.codes, f.codes, f.n_levels)
+    inside = constant_within(f.codes, subgroup.codes, subgroup.n_levels)
+    return bool(np.all(home >= 0) and np.any(inside < 0))
 
 
 def _confounded_pair_rows(a: Factor, b: Factor, threshold: float) -> list[dict[str, object]]:
@@ -98,11 +111,23 @@ def _confounded_pair_rows(a: Factor, b: Factor, threshold: float) -> list[dict[s
     ]
 
 
+def _nested_note(name: str, nested: Mapping[str, str]) -> str:
+    if name not in nested:
+        return ""
+    parent = nested[name]
+    return f"; nested in {parent!r}: its labels are read per level of {parent!r} ({parent}/{name})"
+
+
 def structure_rows(
-    subgroup: Factor, factors: list[Factor], threshold: float
+    subgroup: Factor,
+    factors: list[Factor],
+    threshold: float,
+    nested: Mapping[str, str] | None = None,
 ) -> tuple[pd.DataFrame, dict[str, str], dict[str, np.ndarray]]:
     """Structure table, relation of each factor, and per-subgroup level codes of the
-    factors that are constant within subgroups."""
+    factors that are constant within subgroups. A factor ``nested`` in another (child ->
+    parent) fixes its parent by construction: that pair is not reported as confounded."""
+    nested = dict(nested or {})
     single = bool(np.all(np.bincount(subgroup.codes, minlength=subgroup.n_levels) == 1))
     rows: list[dict[str, object]] = []
     relation: dict[str, str] = {}
@@ -116,12 +141,14 @@ def structure_rows(
                 "factor": f.name,
                 "relation": relation[f.name],
                 "with_": subgroup.name,
-                "note": note,
+                "note": note + _nested_note(f.name, nested),
                 "association": float("nan"),
             }
         )
     for i, a in enumerate(factors):
         for b in factors[i + 1 :]:
+            if nested.get(a.name) == b.name or nested.get(b.name) == a.name:
+                continue
             rows += _confounded_pair_rows(a, b, threshold)
     return pd.DataFrame(rows, columns=_STRUCTURE_COLUMNS), relation, per_subgroup
 
@@ -173,6 +200,10 @@ class Design:
     factors: list[Factor]  # every factor asked for, codes per row
     structure: pd.DataFrame
     notes: tuple[str, ...]
+    #: child -> parent: factors nested in another factor or (parent = the subgroup column)
+    #: in the subgroups, estimated hierarchically (a parent is not adjusted for its children
+    #: and is tested against them)
+    nested: dict[str, str] = field(default_factory=dict)
 
     @property
     def n(self) -> int:
@@ -185,6 +216,10 @@ class Design:
     @property
     def single(self) -> bool:
         return bool(np.all(self.sizes == 1))
+
+    def children(self, name: str) -> list[str]:
+        """The factors nested in ``name`` (the subgroup's column name for the subgroups)."""
+        return [child for child, parent in self.nested.items() if parent == name]
 
 
 def _left_out(
@@ -217,11 +252,49 @@ def _left_out(
     return dropped, notes
 
 
-def design(frame: pd.DataFrame, value: str, subgroup: str, factors: Sequence[str]) -> Design:
+def _nested_factors(fs: list[Factor], subgroup: Factor, nested: Mapping[str, str]) -> list[Factor]:
+    """The factors with each nested child relabelled per level of its parent (parent/child)."""
+    by_name = {f.name: f for f in fs}
+    for child, parent in nested.items():
+        if child not in by_name or (parent not in by_name and parent != subgroup.name):
+            raise QCDataError(
+                f"nested={{{child!r}: {parent!r}}}: name a factor and the factor (or the "
+                f"subgroup column {subgroup.name!r}) it is nested in; factors are "
+                f"{list(by_name)}."
+            )
+        if parent == child or parent in nested:
+            raise QCDataError(
+                f"nested={{{child!r}: {parent!r}}}: a factor is nested in another one, one "
+                "level deep; relabel deeper hierarchies into one column first."
+            )
+    out = []
+    for f in fs:
+        if f.name not in nested:
+            out.append(f)
+            continue
+        parent = by_name.get(nested[f.name], subgroup)
+        pair = parent.codes.astype(np.int64) * f.n_levels + f.codes
+        kept, codes = np.unique(pair, return_inverse=True)
+        labels = [f"{parent.levels[c // f.n_levels]}/{f.levels[c % f.n_levels]}" for c in kept]
+        out.append(Factor(f.name, codes.astype(np.intp), pd.Index(labels)))
+    return out
+
+
+def design(
+    frame: pd.DataFrame,
+    value: str,
+    subgroup: str,
+    factors: Sequence[str],
+    nested: Mapping[str, str] | None = None,
+) -> Design:
     """The design of ``value`` by ``subgroup`` and ``factors``; the first of two confounded
-    factors is kept."""
+    factors is kept. ``nested`` (child -> parent) relabels each child per level of its
+    parent; a factor that changes inside subgroups while each of its levels lies in one
+    subgroup is nested in the subgroups without being asked."""
     y, sg, fs = prepare(frame, value, subgroup, factors)
-    structure, relation, per_subgroup = structure_rows(sg, fs, CONFOUNDING_THRESHOLD)
+    nested = dict(nested or {})
+    fs = _nested_factors(fs, sg, nested)
+    structure, relation, per_subgroup = structure_rows(sg, fs, CONFOUNDING_THRESHOLD, nested)
     dropped, notes = _left_out(fs, structure, relation)
     m = group_moments(y, sg.codes, sg.n_levels)
     between = [
@@ -230,4 +303,9 @@ def design(frame: pd.DataFrame, value: str, subgroup: str, factors: Sequence[str
         if relation[f.name] == "between_subgroups" and f.name not in dropped
     ]
     within = [f for f in fs if relation[f.name] == "within_subgroup" and f.name not in dropped]
-    return Design(y, sg, m.n, m.mean, between, within, fs, structure, tuple(notes))
+    kept = {f.name for f in [*between, *within]}
+    nested = {c: p for c, p in nested.items() if c in kept and (p in kept or p == sg.name)}
+    for f in within:
+        if f.name not in nested and nested_in_subgroups(f, sg):
+            nested[f.name] = sg.name
+    return Design(y, sg, m.n, m.mean, between, within, fs, structure, tuple(notes), nested)
