@@ -8,7 +8,8 @@ test                what it tests
 ``anova``           a factor's F test in ``variation().anova`` (its own error term)
 ``brown_forsythe``  a factor's equality of spread in ``variation().spread``
 ``step``            each step in ``time_structure().shifts`` (CUSUM, binary segmentation)
-``ar1``             the AR(1) coefficient: z = phi / se(phi), two-sided (``TimeResult.ar1``)
+``ar1``             autocorrelation of the residuals about the level the data support: the
+                    likelihood-ratio test (``TimeResult.autocorrelation_p``)
 ``beyond_limits``   points beyond the chart's limits against the rate 2 P(Z > L) of a
                     stable normal process (one-sided binomial test)
 ==================  ======================================================================
@@ -140,8 +141,8 @@ def gate_tests(
                 rows.append(("brown_forsythe", row.factor, None, row.p))
     if time is not None:
         rows += [("step", None, row.position, row.p) for row in time.shifts.itertuples()]
-        if np.isfinite(time.ar1.p):
-            rows.append(("ar1", None, None, time.ar1.p))
+        if np.isfinite(time.autocorrelation_p):
+            rows.append(("ar1", None, None, time.autocorrelation_p))
     if beyond.points:
         rows.append(("beyond_limits", None, None, beyond.p))
     table = pd.DataFrame(rows, columns=_GATE_COLUMNS).astype(
