@@ -17,6 +17,7 @@ from qcexplore.app.serve import TOKEN_ENV
 from qcexplore.demo import ROLES as DEMO_ROLES
 from qcexplore.demo import TITLE as DEMO_TITLE
 from qcexplore.errors import QCDataError
+from qcexplore.investigation import open_study
 from qcexplore.study import Study
 
 _EXAMPLES = """\
@@ -323,7 +324,7 @@ def load_study(data: str, roles: dict[str, Any], **reading: Any) -> tuple[Study,
     from qcexplore.data.io import describe_reading, read
 
     frame = read(data, progress=_progress(Path(data).name), **reading)
-    return Study(frame, **roles), describe_reading(frame)
+    return open_study(frame, roles), describe_reading(frame)
 
 
 def _say_reading(found: str) -> None:
@@ -332,7 +333,7 @@ def _say_reading(found: str) -> None:
 
 
 def _run_app(args: argparse.Namespace) -> int:
-    from qcexplore.app.logs import LogFolder
+    from qcexplore.app.logfolder import LogFolder
     from qcexplore.app.serve import (
         AppSettings,
         demo_study,
@@ -361,10 +362,11 @@ def _run_app(args: argparse.Namespace) -> int:
         title = Path(args.data).name
     log = None
     if args.log is not None:
-        from qcexplore.app.explorer import Explorer
+        from qcexplore import views
+        from qcexplore.investigation_file import open_log
 
-        # Opened as each page will open it, so a log that a page would refuse stops here.
-        Explorer(study).load(args.log)
+        # Checked as each page will open it, so a log that a page would refuse stops here.
+        open_log(args.log, study, views.VIEWS)
         log = str(Path(args.log).resolve())
     folder = LogFolder(args.log_folder)
     settings = AppSettings(title=title, log=log, log_folder=str(folder.root))

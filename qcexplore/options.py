@@ -272,6 +272,11 @@ class SpecOptions(Options):
             return None
         return Spec(lsl=self.lsl, usl=self.usl, target=self.target)
 
+    def limits(self) -> dict[str, float | None] | None:
+        """The specification as plain data, as ``Study.roles()`` gives it (None: no limit)."""
+        spec = self.spec()
+        return None if spec is None else spec.to_dict()
+
     @classmethod
     def of(cls, spec: Spec | None, units: str | None) -> SpecOptions:
         """The options that stand for a study's specification and units."""

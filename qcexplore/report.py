@@ -23,8 +23,11 @@ from bokeh.resources import Resources
 
 from qcexplore import views
 from qcexplore.caution import caution
+from qcexplore.files import write_atomic
+from qcexplore.investigation import Investigation, study_for
+from qcexplore.investigation_file import open_log
+from qcexplore.study import Study
 from qcexplore.views.base import Card, View
-from qcexplore.views.log import ExplorerState, load_log
 from qcexplore.views.text import log_html, table_html
 
 _STYLE = """
@@ -96,7 +99,7 @@ class _Page:
         )
 
 
-def _roles(study: Any) -> str:
+def _roles(study: Study) -> str:
     roles = study.roles()
     rows = [
         ("measured value", roles["value"]),
@@ -123,7 +126,7 @@ def _card(page: _Page, card: Card) -> str:
     return f"<article class='qcx-card'>{card.html}{figure}{card.details}</article>"
 
 
-def _view_section(page: _Page, study: Any, view: View, state: ExplorerState) -> str:
+def _view_section(page: _Page, study: Study, view: View, state: Investigation) -> str:
     """One view as the report prints it: every choice of the result, then its variants."""
     why_not = view.available(study)
     if why_not:
@@ -149,10 +152,10 @@ def _view_section(page: _Page, study: Any, view: View, state: ExplorerState) -> 
 
 
 def write_report(
-    study: Any,
+    study: Study,
     path: str | Path,
     *,
-    log: ExplorerState | str | Path | None = None,
+    log: Investigation | str | Path | None = None,
     title: str | None = None,
 ) -> Path:
     """Write one self-contained HTML report of a Study and return its path.
@@ -165,8 +168,9 @@ def write_report(
     ----------
     study : the Study
     path : the HTML file to write
-    log : an explorer state, or the path of a saved investigation log (refused when
-        it was saved on other data)
+    log : an investigation, or the path of a saved investigation log (refused when it was
+        saved on other data): the report shows what the explorer showed with it (the same
+        window, specification, options and exclusions)
     title : the report's title (default: the value and the date)
 
     Examples
@@ -180,15 +184,16 @@ def write_report(
     '.html'
     """
     if isinstance(log, (str, Path)):
-        data_id = study.fingerprint
-        log = load_log(log, data_id=data_id, option_types=views.option_types())
-    state = log or ExplorerState(value=study.value, subgroup=study.subgroup, time=study.time)
+        log = open_log(log, study, views.VIEWS)
+    state = log or Investigation.of(study)
+    # The Study the investigation looks at, built as the explorer builds it: the same window,
+    # specification, options and exclusions.
+    study = study_for(study, state)
     title = title or (f"Investigation of {study.value} ({datetime.now(timezone.utc):%Y-%m-%d})")
     page = _Page()
     for view in views.VIEWS:
         page.section(view.name, view.title, lambda v=view: _view_section(page, study, v, state))
     page.section("roles", "The study", lambda: _roles(study))
     page.section("log", "Investigation log", lambda: log_html(state.exclusions, state.notes))
-    path = Path(path)
-    path.write_text(page.render(title, caution(study.units, study.spec)), encoding="utf-8")
-    return path
+    content = page.render(title, caution(study.units, study.spec)).encode("utf-8")
+    return write_atomic(Path(path), content)

@@ -94,3 +94,7 @@ class Spec:
         return tuple(
             side for side, limit in (("lower", self.lsl), ("upper", self.usl)) if limit is not None
         )
+
+    def to_dict(self) -> dict[str, float | None]:
+        """The limits and target as plain data (what ``Study.roles()`` and a log hold)."""
+        return {"lsl": self.lsl, "usl": self.usl, "target": self.target}

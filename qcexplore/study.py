@@ -315,9 +315,7 @@ class Study:
             "factors": list(self._factors),
             "measured_by": list(self._measured_by),
             "shifts": self.shifts,
-            "spec": None
-            if spec is None
-            else {"lsl": spec.lsl, "usl": spec.usl, "target": spec.target},
+            "spec": None if spec is None else spec.to_dict(),
             "units": self._units,
         }
 

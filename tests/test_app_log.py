@@ -27,21 +27,21 @@ from hypothesis import strategies as st
 
 from qcexplore import views
 from qcexplore.app.explorer import Explorer
-from qcexplore.app.logs import AUTOSAVE_PREFIX, LogExists, LogFolder, sanitise_name
+from qcexplore.app.logfolder import AUTOSAVE_PREFIX, LogExists, LogFolder, sanitise_name
 from qcexplore.demo import ROLES, filling_line
 from qcexplore.errors import QCDataError
-from qcexplore.study import Study
-from qcexplore.views.log import (
+from qcexplore.investigation import Investigation
+from qcexplore.investigation_file import (
     LOG_FORMAT,
     LOG_SIZE_LIMIT,
     DataSummary,
-    ExplorerState,
     LogMismatch,
     log_content,
     parse_log,
     read_log_file,
     save_log,
 )
+from qcexplore.study import Study
 
 REPO = Path(__file__).resolve().parents[1]
 DAYS = 3
@@ -128,8 +128,8 @@ def test_the_page_names_no_path_and_the_folder_keeps_to_itself(tmp_path: Path) -
 
 def test_the_folder_replaces_a_log_only_when_told(tmp_path: Path) -> None:
     folder = LogFolder(tmp_path)
-    first = log_content(ExplorerState(value="net_g"), DataSummary("a"))
-    second = log_content(ExplorerState(value="net_g").note("later"), DataSummary("a"))
+    first = log_content(Investigation(value="net_g"), DataSummary("a"))
+    second = log_content(Investigation(value="net_g").note("later"), DataSummary("a"))
     folder.write("week 12", first)
     with pytest.raises(LogExists):
         folder.write("week 12.json", second)
@@ -150,7 +150,7 @@ def test_the_folder_replaces_a_log_only_when_told(tmp_path: Path) -> None:
 
 def test_only_regular_files_of_a_capped_size_are_read(tmp_path: Path) -> None:
     folder = LogFolder(tmp_path / "logs")
-    good = log_content(ExplorerState(value="net_g"), DataSummary("a"))
+    good = log_content(Investigation(value="net_g"), DataSummary("a"))
     (tmp_path / "outside.json").write_bytes(good)
     os.symlink(tmp_path / "outside.json", folder.root / "link.json")
     os.symlink("/dev/zero", folder.root / "zero.json")
@@ -184,10 +184,11 @@ def test_only_regular_files_of_a_capped_size_are_read(tmp_path: Path) -> None:
 FULL_DISK = """
 import resource, sys
 from pathlib import Path
-from qcexplore.views.log import DataSummary, ExplorerState, save_log
-from qcexplore.app.logs import LogFolder
+from qcexplore.investigation import Investigation
+from qcexplore.investigation_file import DataSummary, save_log
+from qcexplore.app.logfolder import LogFolder
 from qcexplore.errors import QCDataError
-state = ExplorerState(value="net_g")
+state = Investigation(value="net_g")
 for i in range(400):
     state = state.note("a long note " * 40 + str(i))
 limit = int(sys.argv[2])
@@ -204,7 +205,7 @@ except QCDataError as error:
 
 
 def test_a_save_on_a_full_disk_leaves_the_good_log_as_it_was(tmp_path: Path) -> None:
-    good = save_log(tmp_path / "good.json", ExplorerState(value="net_g").note("kept"),
+    good = save_log(tmp_path / "good.json", Investigation(value="net_g").note("kept"),
                     DataSummary("abc"))  # fmt: skip
     before = good.read_bytes()
     limit = 64 * 1024
@@ -299,7 +300,7 @@ def test_nested_huge_and_binary_files_are_refused(content: bytes) -> None:
 def test_a_crafted_state_with_the_right_fingerprint_changes_nothing_or_loads(state: dict) -> None:
     """Finding 10 under crafted input: a refused load leaves everything on show as it was."""
     ex, payload = base()
-    ex.load(ExplorerState.from_dict(payload["state"], views.option_types()))
+    ex.load(Investigation.from_dict(payload["state"], views.option_types()))
     before = seen(ex)
     content = json.dumps({**payload, "state": state}, default=str).encode()
     try:
@@ -307,7 +308,7 @@ def test_a_crafted_state_with_the_right_fingerprint_changes_nothing_or_loads(sta
     except QCDataError:
         assert seen(ex) == before
         return
-    loaded = ExplorerState.from_dict(state, views.option_types())
+    loaded = Investigation.from_dict(state, views.option_types())
     assert ex.state == loaded and hash(ex.state) is not None
 
 
@@ -335,7 +336,7 @@ def test_a_failed_load_keeps_the_work_on_show(
         assert "Nothing was changed" in ex.actions.log_status.value
         assert seen(ex) == before, name
     # A log the view on show cannot draw is refused before anything changes.
-    other = ExplorerState(value="net_g", subgroup="round", time="taken_at").note("other")
+    other = Investigation(value="net_g", subgroup="round", time="taken_at").note("other")
 
     def broken(self: Any, *args: Any, **kwargs: Any) -> Any:
         raise RuntimeError("cannot draw")
@@ -371,7 +372,7 @@ def test_a_log_of_changed_data_says_what_differs_and_applies_what_fits(tmp_path:
         assert "Applied what fits these data" in ex.status.value
     # Other data: what they lack is left out and said; the notes are kept.
     shorter = explorer(Study(frame().iloc[: len(frame()) // 2], **ROLES))
-    late = ExplorerState(value="net_g", subgroup="round", time="taken_at").exclude(
+    late = Investigation(value="net_g", subgroup="round", time="taken_at").exclude(
         [labels(then, 1)[0], "no such subgroup"], "checked"
     ).note("kept")  # fmt: skip
     content = log_content(late, then.logbook.data)

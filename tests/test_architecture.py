@@ -24,6 +24,7 @@ PACKAGE = Path(qcexplore.__file__).parent
 #: draw, app and report) may not import each other.
 LAYERS: list[tuple[str, ...]] = [
     ("qcexplore.errors",),
+    ("qcexplore.words", "qcexplore.files"),
     ("qcexplore.caution", "qcexplore.demo"),
     ("qcexplore.data",),
     ("qcexplore.spec",),
@@ -32,6 +33,8 @@ LAYERS: list[tuple[str, ...]] = [
     ("qcexplore.story",),
     ("qcexplore.findings", "qcexplore.draw"),
     ("qcexplore.study",),
+    ("qcexplore.investigation",),
+    ("qcexplore.investigation_file",),
     ("qcexplore.views",),
     ("qcexplore.app", "qcexplore.report"),
     ("qcexplore.cli",),

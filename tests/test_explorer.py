@@ -25,10 +25,10 @@ from qcexplore.app import resources
 from qcexplore.app.explorer import PAGE_ROWS, Explorer
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
+from qcexplore.investigation import Investigation
 from qcexplore.options import ChartOptions
 from qcexplore.spec import Spec
 from qcexplore.study import Study
-from qcexplore.views.log import ExplorerState
 from qcexplore.views.text import WORDS
 
 FACTORS = ["crew", "shift", "nozzle"]
@@ -339,10 +339,10 @@ def test_log_against_other_data_is_refused(ex: Explorer, tmp_path) -> None:
 )
 def test_state_json_round_trip(by, level, method, notes) -> None:
     chart = ChartOptions(by=by, sigma_level=level, sigma_method=method)
-    state = ExplorerState(value="net_g", subgroup="round").with_options("chart", chart)
+    state = Investigation(value="net_g", subgroup="round").with_options("chart", chart)
     for text in notes:
         state = state.note(text)
-    back = ExplorerState.from_dict(json.loads(json.dumps(state.to_dict())), views.option_types())
+    back = Investigation.from_dict(json.loads(json.dumps(state.to_dict())), views.option_types())
     assert back == state
 
 

@@ -16,10 +16,10 @@ import pytest
 from qcexplore.caution import GENERAL, NET_CONTENT, caution
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
+from qcexplore.investigation import Investigation
 from qcexplore.report import write_report
 from qcexplore.spec import Spec
 from qcexplore.study import Study
-from qcexplore.views.log import ExplorerState
 
 EVIL_COLUMN = "<script>alert(1)</script>"
 EVIL_LEVEL = "<b>A</b>"
@@ -82,7 +82,7 @@ def study() -> Study:
 @pytest.fixture(scope="module")
 def report(study: Study, tmp_path_factory: pytest.TempPathFactory) -> Path:
     state = (
-        ExplorerState(value="net_g", subgroup="round", time="taken_at")
+        Investigation(value="net_g", subgroup="round", time="taken_at")
         .exclude([str(study.subgroups["subgroup"].iloc[0])], "jar <dropped> & refilled")
         .note("Crew <b>B</b> reads high")
     )
@@ -191,3 +191,41 @@ def test_the_demo_report_stays_small_and_carries_bokehjs_once(tmp_path: Path) ->
     # The core bundle sets bokeh.__bokeh__ once; each further copy would set it again.
     assert raw.count("bokeh.__bokeh__ = true") == 1
     assert "bokeh-mathjax" not in raw  # the typesetting bundle (and its CDN loader) left out
+
+
+def test_the_report_shows_what_the_explorer_showed(tmp_path: Path) -> None:
+    """A saved investigation (a window, a typed specification, an exclusion with its reason,
+    a split) prints the explorer's Study and chart: one function builds both Studies."""
+    from qcexplore.app.explorer import Explorer
+    from qcexplore.demo import ROLES
+    from qcexplore.views.text import table_html
+
+    study = Study(filling_line(days=5)[0], **ROLES)
+    explorer = Explorer(study)
+    explorer.set(start="2026-09-08", end="2026-09-09", by="crew", lsl=495.0, units="g")
+    first = str(explorer.study_for().levels(study.subgroup_column)[0])
+    explorer.exclude([first], "scale dropped")
+    log = explorer.save(tmp_path / "log.json")
+    shown = explorer.study_for()
+    assert len(shown.subgroups) == 48 < len(study.subgroups)  # the window: two days of hours
+    assert shown.spec == Spec(lsl=495.0) != study.spec  # typed in the explorer
+
+    page = write_report(study, tmp_path / "r.html", log=log).read_text(encoding="utf-8")
+    limits = explorer.chart().limits
+    assert explorer.chart().by == "crew" and list(map(str, explorer.chart().excluded)) == [first]
+    assert table_html(limits, "Limits") in page
+    visible = parse(tmp_path / "r.html").visible
+    assert "lsl 495" in visible and "scale dropped" in visible
+    assert re.search(r"subgroups\s+48\b", visible)
+    assert "lsl 500" not in visible
+
+
+def test_an_exclusion_needs_its_reason_in_the_explorer() -> None:
+    from qcexplore.app.explorer import Explorer
+    from qcexplore.demo import ROLES
+
+    explorer = Explorer(Study(filling_line(days=2)[0], **ROLES))
+    with pytest.raises(QCDataError, match="reason"):
+        explorer.set(exclude=["1"])
+    with pytest.raises(QCDataError, match="reason"):
+        explorer.state.with_options("chart", explorer.options("chart").replace(exclude=(1,)))

@@ -16,8 +16,8 @@ import ipywidgets as widgets
 import pandas as pd
 
 from qcexplore.errors import QCDataError
+from qcexplore.investigation import Investigation
 from qcexplore.options import Control, Options, controls_of
-from qcexplore.views.log import ExplorerState
 
 #: Dropdown value standing for "none" (ipywidgets treats a None value as no selection).
 NONE = ""
@@ -97,7 +97,7 @@ class _Muted:
 class RoleControls(_Muted):
     """The roles of the columns and the date window, mapped to and from the state."""
 
-    def __init__(self, frame: pd.DataFrame, state: ExplorerState) -> None:
+    def __init__(self, frame: pd.DataFrame, state: Investigation) -> None:
         super().__init__()
         roles = role_options(frame)
         self.value = _dropdown("Measured value", "value", roles["value"], state.value)
@@ -116,7 +116,7 @@ class RoleControls(_Muted):
             widget.observe(self._changed(name), names="value")
         self.box = styled(widgets.VBox(list(self.fields.values())), "roles")
 
-    def write(self, state: ExplorerState) -> None:
+    def write(self, state: Investigation) -> None:
         """Show ``state`` in the widgets without firing callbacks."""
         self.muted = True
         try:

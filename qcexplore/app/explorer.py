@@ -5,7 +5,7 @@ Layout: the roles and date window on top, then one tab per view of ``qcexplore.v
 then the notes and the investigation log, and a status line at the bottom. Nothing here knows
 a particular analysis: a new view shows up as a new tab.
 
-Flow: a control change makes a new :class:`~qcexplore.views.log.ExplorerState`; the visible
+Flow: a control change makes a new :class:`~qcexplore.investigation.Investigation`; the visible
 view is brought up to date and the others are computed when their tab is first shown. A view
 is recomputed only when what it depends on changed (the Study caches results by options).
 Existing figures get new data in place through ``draw.refresh`` and are rebuilt only when
@@ -31,10 +31,8 @@ from qcexplore.app.logbook import Logbook
 from qcexplore.app.panels import FigureSlot, Panel
 from qcexplore.app.resources import load_bokehjs
 from qcexplore.errors import QCDataError
-from qcexplore.study import Study
-from qcexplore.views.base import View
-from qcexplore.views.log import (
-    ExplorerState,
+from qcexplore.investigation import Investigation, study_for
+from qcexplore.investigation_file import (
     LogMismatch,
     SavedLog,
     fit_state,
@@ -42,8 +40,12 @@ from qcexplore.views.log import (
     read_log_file,
     save_log,
 )
+from qcexplore.study import Study
+from qcexplore.views.base import View
 from qcexplore.views.text import log_html, table_html
 
+#: Settings of ``Explorer.set`` that are the investigation's roles and date window.
+ROLE_SETTINGS = ("value", "subgroup", "time", "start", "end")
 #: Rows of the selection table per page: never the whole data set in the page.
 PAGE_ROWS = 20
 #: The page's own rules. Tab titles are our view names in plain words: they take the width they
@@ -73,7 +75,7 @@ class Explorer(widgets.VBox):
     ----------
     study : the Study to explore; changing the value, subgroup or time control
         builds a new Study from ``study.data`` with the new roles
-    state : an ExplorerState to start from (default: the study's roles, default options)
+    state : an Investigation to start from (default: the study's roles, default options)
     log : path of an investigation log to load (refused for other data)
 
     Examples
@@ -91,17 +93,13 @@ class Explorer(widgets.VBox):
         self,
         study: Study,
         *,
-        state: ExplorerState | None = None,
+        state: Investigation | None = None,
         log: str | Path | None = None,
     ) -> None:
         self.study = study
-        self.data_id = study.fingerprint
-        self._frame = study.data
         self._studies: dict[tuple, Study] = {}
-        self.state = state or ExplorerState(
-            value=study.value, subgroup=study.subgroup, time=study.time
-        )
-        self.roles = RoleControls(self._frame, self.state)
+        self.state = state or Investigation.of(study)
+        self.roles = RoleControls(study.data, self.state)
         self.actions = Actions()
         self.status = styled(widgets.HTML(value=""), "status")
         self.views = list(views.VIEWS)
@@ -207,7 +205,7 @@ class Explorer(widgets.VBox):
         self.status.value = f"<span class='qcx-ok'>{html.escape(text)}</span>"
 
     # ---- state -------------------------------------------------------------------
-    def options(self, view: str, state: ExplorerState | None = None) -> Any:
+    def options(self, view: str, state: Investigation | None = None) -> Any:
         """The options a view computes with now (None for a view without options)."""
         state = state or self.state
         return views.view_named(view).options_for(self.study_for(state), state)
@@ -219,9 +217,13 @@ class Explorer(widgets.VBox):
         Returns nothing, so that a cell ending in ``explorer.set(...)`` does not show
         the explorer a second time.
         """
-        state = self.state
-        roles = {k: v for k, v in changes.items() if k in ExplorerState.__dataclass_fields__}
-        rest = {k: v for k, v in changes.items() if k not in roles}
+        if "exclude" in changes:
+            raise QCDataError(
+                "An exclusion needs its reason: use explorer.exclude(labels, reason) to leave "
+                "subgroups out of the limits."
+            )
+        rest = dict(changes)
+        state = self.state.replace(**{k: rest.pop(k) for k in ROLE_SETTINGS if k in rest})
         for view in self.views:
             if view.options_type is None or not rest:
                 continue
@@ -229,11 +231,16 @@ class Explorer(widgets.VBox):
                 k: rest.pop(k) for k in list(rest) if k in view.options_type.__dataclass_fields__
             }
             if own:
-                current = state.options_for(view.name, view.options_type)
+                current = view.settings(self.study_for(state), state)
+                assert current is not None
                 state = state.with_options(view.name, current.replace(**own))
         if rest:
             raise QCDataError(f"The explorer has no setting {', '.join(sorted(rest))}.")
-        self._apply(state.replace(**roles))
+        self._apply(state)
+
+    def exclude(self, labels: list[str], reason: str) -> None:
+        """Leave these subgroups (their text labels) out of the limits, with the reason."""
+        self._apply(self.state.exclude(list(labels), reason))
 
     def _from_roles(self) -> None:
         self._apply(self.state.replace(**self.roles.read()))
@@ -241,7 +248,7 @@ class Explorer(widgets.VBox):
     def _from_options(self, name: str) -> None:
         panel = self.panels[name]
         assert panel.controls is not None and panel.view.options_type is not None
-        current = self.state.options_for(name, panel.view.options_type)
+        current = panel.view.settings(self.study_for(), self.state)
         try:
             options = panel.controls.read(current)
         except QCDataError as error:
@@ -255,7 +262,7 @@ class Explorer(widgets.VBox):
         assert choice is not None
         self._apply(self.state.with_choice(name, choice.value or None))
 
-    def _apply(self, state: ExplorerState) -> None:
+    def _apply(self, state: Investigation) -> None:
         """Make ``state`` the current one, show it in the controls, update the view."""
         try:
             study = self.study_for(state)
@@ -283,7 +290,7 @@ class Explorer(widgets.VBox):
             f"<span class='qcx-error' style='color:#b00020'>{html.escape(text)}</span>"
         )
 
-    def _write_controls(self, state: ExplorerState) -> None:
+    def _write_controls(self, state: Investigation) -> None:
         study = self.study_for(state)
         self.roles.write(state)
         for view in self.views:
@@ -293,57 +300,12 @@ class Explorer(widgets.VBox):
                 live = view.live_choices(study, options)
                 controls.write(options, live, view.inactive(study, options))
 
-    def _roles_set_by_views(self, state: ExplorerState) -> dict[str, Any]:
-        """Roles of the Study that views' options set (the specification and the units)."""
-        stored = dict(state.options)
-        roles: dict[str, Any] = {}
-        for view in self.views:
-            if view.name in stored:
-                roles.update(view.study_roles(stored[view.name]))
-        return roles
-
-    def _study_key(self, state: ExplorerState) -> tuple:
-        """What decides the Study: roles, date window and the roles that views set."""
-        extra = self._roles_set_by_views(state)
-        return (state.roles_key, tuple(sorted(extra.items(), key=lambda kv: kv[0])))
-
-    def study_for(self, state: ExplorerState | None = None) -> Study:
-        """The Study for a state's roles and date window (built once, then reused)."""
+    def study_for(self, state: Investigation | None = None) -> Study:
+        """The Study of an investigation (``investigation.study_for``, built once, then reused)."""
         state = state or self.state
-        set_by_views = self._roles_set_by_views(state)
-        key = self._study_key(state)
+        key = state.study_key
         if key not in self._studies:
-            base = self.study
-            same_roles = (state.value, state.subgroup, state.time) == (
-                base.value,
-                base.subgroup,
-                base.time,
-            )
-            if same_roles and all(getattr(base, k) == v for k, v in set_by_views.items()):
-                study = base
-            elif same_roles:
-                study = Study(self._frame, **{**base.roles(), **set_by_views})
-            else:
-                taken = {state.value, state.subgroup, state.time}
-                factors = [f for f in base.factors if f not in taken]
-                study = Study(
-                    self._frame,
-                    value=state.value,
-                    subgroup=state.subgroup,
-                    time=state.time,
-                    factors=factors,
-                    measured_by=[m for m in base.measured_by if m in factors],
-                    shifts=base.shifts,
-                    spec=base.spec if state.value == base.value else None,
-                    units=base.units if state.value == base.value else None,
-                    **set_by_views,
-                )
-            if state.start is not None or state.end is not None:
-                end = None
-                if state.end is not None:
-                    end = pd.Timestamp(state.end) + pd.Timedelta(days=1) - pd.Timedelta(1, "ns")
-                study = study.restrict(state.start, end)
-            self._studies[key] = study
+            self._studies[key] = study_for(self.study, state)
         return self._studies[key]
 
     def chart(self) -> Any:
@@ -361,7 +323,7 @@ class Explorer(widgets.VBox):
     def _view_key(self, view: View) -> tuple:
         """What decides what a view shows: roles, its options, its choice, the exclusions."""
         return (
-            self._study_key(self.state),
+            self.state.study_key,
             self.options(view.name),
             self.state.choice_for(view.name),
             self.state.excluded if view.uses_exclusions else (),
@@ -443,7 +405,8 @@ class Explorer(widgets.VBox):
         if "choice" in values:
             state = state.with_choice(name, values.pop("choice"))
         if values and view.options_type is not None:
-            current = state.options_for(name, view.options_type)
+            current = view.settings(self.study_for(state), state)
+            assert current is not None
             state = state.with_options(name, current.replace(**values))
         self._apply(state)
         self.show_view(name)
@@ -549,7 +512,7 @@ class Explorer(widgets.VBox):
         """Leave the selected subgroups out of the limits, with the reason typed."""
         if not self._selected:
             raise QCDataError("Select the subgroups on the chart first, then exclude them.")
-        self._apply(self.state.exclude(list(self._selected), self.actions.reason.value))
+        self.exclude(list(self._selected), self.actions.reason.value)
         self.actions.reason.value = ""
 
     def restore_selected(self) -> None:
@@ -581,16 +544,16 @@ class Explorer(widgets.VBox):
         return written
 
     def load(
-        self, source: str | Path | bytes | SavedLog | ExplorerState, *, fit: bool = False
+        self, source: str | Path | bytes | SavedLog | Investigation, *, fit: bool = False
     ) -> None:
         """Load an investigation log: a file's path, its content, a log read already, or a state.
 
-        A log made on other data is refused with what differs (``views.log.LogMismatch``);
-        ``fit=True`` applies what still fits these data instead (``views.log.fit_state``).
+        A log made on other data is refused with what differs (``investigation_file.LogMismatch``);
+        ``fit=True`` applies what still fits these data instead (``investigation_file.fit_state``).
         A log that cannot be applied raises a QCDataError and changes nothing.
         """
         left_out: tuple[str, ...] | None = None  # None: made on these data
-        if isinstance(source, ExplorerState):
+        if isinstance(source, Investigation):
             state, origin = source, "the given state"
         else:
             if isinstance(source, SavedLog):

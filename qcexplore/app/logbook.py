@@ -24,17 +24,11 @@ from collections.abc import Callable
 from datetime import datetime
 from typing import Any
 
-from qcexplore.app.logs import LogExists, LogFolder, sanitise_name
+from qcexplore.app.logfolder import LogExists, LogFolder, sanitise_name
 from qcexplore.errors import QCDataError
-from qcexplore.views.log import (
-    DataSummary,
-    ExplorerState,
-    LogMismatch,
-    SavedLog,
-    log_content,
-    parse_log,
-)
-from qcexplore.views.text import plural
+from qcexplore.investigation import Investigation
+from qcexplore.investigation_file import DataSummary, LogMismatch, SavedLog, log_content, parse_log
+from qcexplore.words import plural
 
 
 def download_link(content: bytes, name: str) -> str:
@@ -68,8 +62,8 @@ class Logbook:
         self.folder: LogFolder | None = None
         self.autosave: str | None = None
         self._data: DataSummary | None = None
-        self._start: ExplorerState | None = None
-        self._saved: ExplorerState | None = None
+        self._start: Investigation | None = None
+        self._saved: Investigation | None = None
         self._pending: Callable[[], None] | None = None
         self._message = ""
         self._autosaved = ""
@@ -104,7 +98,7 @@ class Logbook:
         self._show()
 
     # ---- called by the explorer ----------------------------------------------------------
-    def changed(self, state: ExplorerState) -> None:
+    def changed(self, state: Investigation) -> None:
         """A new state is on show: refresh the download link and the autosave."""
         if self._saved is None:
             self._start = self._saved = state
@@ -128,7 +122,7 @@ class Logbook:
             )
         self._show()
 
-    def saved(self, state: ExplorerState) -> None:
+    def saved(self, state: Investigation) -> None:
         """``state`` was saved under a name or opened: nothing on show is unsaved now."""
         self._saved = state
         self._show()
@@ -170,7 +164,7 @@ class Logbook:
     def start_over(self) -> None:
         """Go back to the study as it was given: no exclusions, notes or settings."""
         study = self.explorer.study
-        fresh = ExplorerState(value=study.value, subgroup=study.subgroup, time=study.time)
+        fresh = Investigation(value=study.value, subgroup=study.subgroup, time=study.time)
 
         def reset() -> None:
             self.explorer.load(fresh)

@@ -42,6 +42,7 @@ from qcexplore.demo import ROLES as DEMO_ROLES
 from qcexplore.demo import TITLE as DEMO_TITLE
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
+from qcexplore.investigation import open_study
 from qcexplore.study import Study
 
 #: Environment variable naming the JSON file that tells the notebook what to show.
@@ -254,7 +255,7 @@ def demo_study(seed: int = 0, **roles: Any) -> Study:
     >>> demo_study().measured_by
     ('crew',)
     """
-    return Study(filling_line(seed=seed)[0], **{**DEMO_ROLES, **roles})
+    return open_study(filling_line(seed=seed)[0], {**DEMO_ROLES, **roles})
 
 
 def load_app_study(config: str | os.PathLike | None = None) -> tuple[Study, AppSettings]:
@@ -299,7 +300,7 @@ def app_view(config: str | os.PathLike | None = None) -> Any:
     """
     import ipywidgets as widgets
 
-    from qcexplore.app.logs import LogFolder
+    from qcexplore.app.logfolder import LogFolder
     from qcexplore.app.resources import in_kernel, load_bokehjs
 
     study, settings = load_app_study(config)

@@ -14,8 +14,9 @@ from typing import Any, ClassVar
 
 from bokeh.models import LayoutDOM
 
+from qcexplore.investigation import Investigation
 from qcexplore.options import Options
-from qcexplore.views.log import ExplorerState
+from qcexplore.study import Study
 
 
 @dataclass(frozen=True)
@@ -71,44 +72,47 @@ class View:
     #: Depends on the exclusions (they change the limits): recompute when they change.
     uses_exclusions: ClassVar[bool] = False
 
-    def options_for(self, study: Any, state: ExplorerState) -> Options | None:
-        """The options this view computes with, for a study and an investigation state."""
+    def settings(self, study: Study, state: Investigation) -> Options | None:
+        """The options as the investigation keeps them: what the controls show and change."""
         if self.options_type is None:
             return None
         return state.options_for(self.name, self.options_type)
 
-    def study_roles(self, options: Options) -> dict[str, Any]:
-        """Roles of the Study that this view's options set (e.g. the specification)."""
-        return {}
+    def options_for(self, study: Study, state: Investigation) -> Options | None:
+        """The options this view computes with, for a study and an investigation (its settings
+        made to fit the study)."""
+        return self.settings(study, state)
 
-    def live_choices(self, study: Any, options: Options | None) -> Mapping[str, Mapping[Any, str]]:
+    def live_choices(
+        self, study: Study, options: Options | None
+    ) -> Mapping[str, Mapping[Any, str]]:
         """Choices of option fields that depend on the study (e.g. the factors to split by)."""
         return {}
 
-    def inactive(self, study: Any, options: Options | None) -> Mapping[str, str]:
+    def inactive(self, study: Study, options: Options | None) -> Mapping[str, str]:
         """Option fields that would do nothing now, each with the reason in words."""
         return {}
 
-    def compute(self, study: Any, options: Options | None) -> Any:
+    def compute(self, study: Study, options: Options | None) -> Any:
         """The result of the analysis (from the Study, which caches it)."""
         raise NotImplementedError
 
-    def available(self, study: Any) -> str:
+    def available(self, study: Study) -> str:
         """Empty when the view can be computed for this study, else why not (in words)."""
         return ""
 
-    def choices(self, study: Any, result: Any) -> tuple[str, ...]:
+    def choices(self, study: Study, result: Any) -> tuple[str, ...]:
         """What can be picked to show of the result (empty: nothing to pick)."""
         return ()
 
-    def show(self, study: Any, result: Any) -> Shown:
+    def show(self, study: Study, result: Any) -> Shown:
         """The figures and HTML of a result."""
         raise NotImplementedError
 
-    def show_choice(self, study: Any, result: Any, choice: str) -> Shown:
+    def show_choice(self, study: Study, result: Any, choice: str) -> Shown:
         """What is shown of the result for one of :meth:`choices` (besides :meth:`show`)."""
         return Shown()
 
-    def report_variants(self, study: Any, options: Options | None) -> list[tuple[str, Options]]:
+    def report_variants(self, study: Study, options: Options | None) -> list[tuple[str, Options]]:
         """More settings the report prints figures for (e.g. the chart split by each factor)."""
         return []

@@ -5,10 +5,12 @@ from __future__ import annotations
 from typing import Any
 
 from qcexplore import draw
+from qcexplore.investigation import Investigation
 from qcexplore.options import Options, SpecOptions
+from qcexplore.study import Study
 from qcexplore.views.base import Figure, Shown, View
-from qcexplore.views.log import ExplorerState
-from qcexplore.views.text import notes_html, plural, table_html
+from qcexplore.views.text import notes_html, table_html
+from qcexplore.words import plural
 
 
 class CapabilityView(View):
@@ -18,15 +20,12 @@ class CapabilityView(View):
     title = "Against the specification"
     options_type = SpecOptions
 
-    def options_for(self, study: Any, state: ExplorerState) -> SpecOptions:
-        stored = dict(state.options).get(self.name)
-        return stored if stored is not None else SpecOptions.of(study.spec, study.units)
+    def settings(self, study: Study, state: Investigation) -> SpecOptions:
+        # The specification is a role of the Study, which study_for built from the
+        # investigation: it is read from there, never kept twice.
+        return SpecOptions.of(study.spec, study.units)
 
-    def study_roles(self, options: SpecOptions) -> dict[str, Any]:
-        """The Study's roles these options set: the specification and the units."""
-        return {"spec": options.spec(), "units": options.units}
-
-    def available(self, study: Any) -> str:
+    def available(self, study: Study) -> str:
         if study.spec is None:
             return (
                 "No specification was given, so capability is not computed: type the lower "
@@ -34,10 +33,10 @@ class CapabilityView(View):
             )
         return ""
 
-    def compute(self, study: Any, options: Options | None) -> Any:
+    def compute(self, study: Study, options: Options | None) -> Any:
         return study.capability()
 
-    def show(self, study: Any, result: Any) -> Shown:
+    def show(self, study: Study, result: Any) -> Shown:
         return Shown(
             figures=(Figure("capability", lambda: draw.capability_figure(result), result),),
             html=table_html(result.indices, "Capability indices")

@@ -14,11 +14,13 @@ from typing import Any
 import pandas as pd
 
 from qcexplore import draw
+from qcexplore.investigation import Investigation
 from qcexplore.options import KIND_LABELS, ChartOptions, Options
 from qcexplore.stats.results import ChartResult
+from qcexplore.study import Study
 from qcexplore.views.base import Figure, Shown, View
-from qcexplore.views.log import ExplorerState
-from qcexplore.views.text import notes_html, plural, table_html
+from qcexplore.views.text import notes_html, table_html
+from qcexplore.words import plural
 
 #: The report prints the chart split by a factor when it has at most this many levels.
 SPLIT_LEVELS = 12
@@ -35,7 +37,7 @@ class Charts:
     highlight: str | None = None
 
 
-def varies_within_subgroups(study: Any, factor: str) -> bool:
+def varies_within_subgroups(study: Study, factor: str) -> bool:
     """Whether a factor changes inside subgroups (it is then no column of ``study.subgroups``,
     which lists the factors constant within every subgroup)."""
     return study.subgroup is not None and factor not in study.subgroups.columns
@@ -49,7 +51,7 @@ class ChartView(View):
     options_type = ChartOptions
     uses_exclusions = True
 
-    def options_for(self, study: Any, state: ExplorerState) -> ChartOptions:
+    def options_for(self, study: Study, state: Investigation) -> ChartOptions:
         options = state.options_for(self.name, ChartOptions)
         changes: dict[str, Any] = {}
         if options.by is not None and options.by not in study.available_factors:
@@ -68,7 +70,9 @@ class ChartView(View):
         changes["exclude"] = tuple(categories[i] for i in position if i >= 0)
         return options.replace(**changes)  # type: ignore[return-value]
 
-    def live_choices(self, study: Any, options: Options | None) -> Mapping[str, Mapping[Any, str]]:
+    def live_choices(
+        self, study: Study, options: Options | None
+    ) -> Mapping[str, Mapping[Any, str]]:
         assert isinstance(options, ChartOptions)
         choices: dict[str, Mapping[Any, str]] = {
             "by": {factor: factor for factor in study.available_factors},
@@ -79,7 +83,7 @@ class ChartView(View):
         return choices
 
     @staticmethod
-    def _auto_words(study: Any, options: ChartOptions) -> str:
+    def _auto_words(study: Study, options: ChartOptions) -> str:
         """The automatic choice names what it draws (the kind chosen by subgroup size)."""
         if options.kind != "auto":
             return KIND_LABELS["auto"]
@@ -89,7 +93,7 @@ class ChartView(View):
             return KIND_LABELS["auto"]
         return f"{KIND_LABELS['auto']}: {KIND_LABELS[drawn]}"
 
-    def inactive(self, study: Any, options: Options | None) -> Mapping[str, str]:
+    def inactive(self, study: Study, options: Options | None) -> Mapping[str, str]:
         idle = {}
         by = getattr(options, "by", None)
         if by is None:
@@ -100,7 +104,7 @@ class ChartView(View):
             idle["adjust_for"] = "no measured_by factor"
         return idle
 
-    def compute(self, study: Any, options: Options | None) -> Charts:
+    def compute(self, study: Study, options: Options | None) -> Charts:
         assert isinstance(options, ChartOptions)
         if options.by is not None and varies_within_subgroups(study, options.by):
             main = study.chart_of(options.replace(by=None, limits="pooled", highlight=None))
@@ -108,7 +112,7 @@ class ChartView(View):
             return Charts(main, levels, options.highlight)
         return Charts(study.chart_of(options), None, options.highlight)
 
-    def show(self, study: Any, result: Charts) -> Shown:
+    def show(self, study: Study, result: Charts) -> Shown:
         main, levels, chosen = result.main, result.levels, result.highlight
         signals = int(main.points["signal"].sum())
         figures = [
@@ -139,7 +143,7 @@ class ChartView(View):
             f"{plural(signals, 'signal')}",
         )
 
-    def report_variants(self, study: Any, options: Options | None) -> list[tuple[str, Options]]:
+    def report_variants(self, study: Study, options: Options | None) -> list[tuple[str, Options]]:
         assert isinstance(options, ChartOptions)
         return [
             (f"Split by {factor}", options.replace(by=factor))

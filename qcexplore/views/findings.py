@@ -12,7 +12,6 @@ import html
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
 
 from bokeh.models import LayoutDOM
 
@@ -20,8 +19,10 @@ from qcexplore import draw
 from qcexplore.caution import caution
 from qcexplore.options import Options
 from qcexplore.stats.results import Evidence, Finding
+from qcexplore.study import Study
 from qcexplore.views.base import Card, Figure, Shown, View
-from qcexplore.views.text import p_words, plural
+from qcexplore.views.text import p_words
+from qcexplore.words import plural
 
 
 @dataclass(frozen=True)
@@ -104,10 +105,10 @@ class FindingsView(View):
     name = "findings"
     title = "What the data say"
 
-    def compute(self, study: Any, options: Options | None) -> Board:
+    def compute(self, study: Study, options: Options | None) -> Board:
         return Board(tuple(study.findings()), study.evidence())
 
-    def show(self, study: Any, result: Board) -> Shown:
+    def show(self, study: Study, result: Board) -> Shown:
         cards = tuple(card(result.evidence, f, i) for i, f in enumerate(result.findings))
         empty = "" if cards else "<p>No findings: nothing stands out beyond chance.</p>"
         cautioned = html.escape(caution(study.units, study.spec))

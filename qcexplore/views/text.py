@@ -12,18 +12,6 @@ from typing import Any
 
 import pandas as pd
 
-
-def plural(count: int, word: str, words: str | None = None) -> str:
-    """``count`` and the word in the right number.
-
-    Examples
-    --------
-    >>> plural(1, "finding"), plural(3, "finding"), plural(2, "index", "indices")
-    ('1 finding', '3 findings', '2 indices')
-    """
-    return f"{count} {word if count == 1 else (words or word + 's')}"
-
-
 #: Code values of result tables in the words people read (others: underscores as spaces).
 WORDS = {
     "between_subgroups": "between subgroups",

@@ -9,8 +9,10 @@ import pandas as pd
 
 from qcexplore import draw
 from qcexplore.options import Options, TimeOptions
+from qcexplore.study import Study
 from qcexplore.views.base import Figure, Shown, View
-from qcexplore.views.text import notes_html, plural, table_html
+from qcexplore.views.text import notes_html, table_html
+from qcexplore.words import plural
 
 
 class TimeView(View):
@@ -20,10 +22,10 @@ class TimeView(View):
     title = "Over time"
     options_type = TimeOptions
 
-    def compute(self, study: Any, options: Options | None) -> Any:
+    def compute(self, study: Study, options: Options | None) -> Any:
         return study.time_structure_of(options)
 
-    def show(self, study: Any, result: Any) -> Shown:
+    def show(self, study: Study, result: Any) -> Shown:
         figures = [
             Figure("acf", lambda: draw.acf_figure(result), result),
             Figure("shifts", lambda: draw.shifts_figure(result), result),

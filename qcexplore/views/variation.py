@@ -7,8 +7,10 @@ from typing import Any
 
 from qcexplore import draw
 from qcexplore.options import Options, VariationOptions
+from qcexplore.study import Study
 from qcexplore.views.base import Figure, Shown, View
-from qcexplore.views.text import notes_html, p_words, plural, table_html
+from qcexplore.views.text import notes_html, p_words, table_html
+from qcexplore.words import plural
 
 
 class VariationView(View):
@@ -19,13 +21,13 @@ class VariationView(View):
     options_type = VariationOptions
     choice_label = "Compare levels of"
 
-    def compute(self, study: Any, options: Options | None) -> Any:
+    def compute(self, study: Study, options: Options | None) -> Any:
         return study.variation_of(options)
 
-    def choices(self, study: Any, result: Any) -> tuple[str, ...]:
+    def choices(self, study: Study, result: Any) -> tuple[str, ...]:
         return tuple(result.comparisons)
 
-    def show(self, study: Any, result: Any) -> Shown:
+    def show(self, study: Study, result: Any) -> Shown:
         tables = [
             table_html(result.structure, "How the factors relate to the subgroups"),
             table_html(result.anova, "Analysis of variance (with the error term each test uses)"),
@@ -45,7 +47,7 @@ class VariationView(View):
             summary=plural(len(result.components), "variance component"),
         )
 
-    def show_choice(self, study: Any, result: Any, choice: str) -> Shown:
+    def show_choice(self, study: Study, result: Any, choice: str) -> Shown:
         return Shown(
             figures=(Figure("anom", lambda: draw.anom_figure(result, choice), result, (choice,)),),
             html=_agreement(result, choice)

@@ -4,7 +4,7 @@ The folder is fixed when the server starts; a page names a log, never a path. Na
 sanitised to letters, digits, spaces, dots, dashes and underscores (no separators, no hidden
 names) and end in ``.json``. Only regular files are listed and read (no links, pipes or
 devices), at most ``LOG_SIZE_LIMIT`` bytes; a write never replaces a log unless asked to
-(the page asks the person first) and is atomic (``views.log.write_atomic``). Each page view
+(the page asks the person first) and is atomic (``files.write_atomic``). Each page view
 autosaves to a name of its own (:meth:`LogFolder.autosave_name`), so that viewers never write
 over each other's work and a reloaded page can open what the last one did.
 """
@@ -19,7 +19,8 @@ from datetime import datetime
 from pathlib import Path
 
 from qcexplore.errors import QCDataError
-from qcexplore.views.log import read_log_file, write_atomic
+from qcexplore.files import write_atomic
+from qcexplore.investigation_file import read_log_file
 
 #: Log names are at most this long (without ``.json``).
 NAME_LENGTH = 80
@@ -62,9 +63,10 @@ class LogFolder:
     Examples
     --------
     >>> import tempfile
-    >>> from qcexplore.views.log import DataSummary, ExplorerState, log_content
+    >>> from qcexplore.investigation import Investigation
+    >>> from qcexplore.investigation_file import DataSummary, log_content
     >>> folder = LogFolder(tempfile.mkdtemp())
-    >>> content = log_content(ExplorerState(value="w"), DataSummary("abc"))
+    >>> content = log_content(Investigation(value="w"), DataSummary("abc"))
     >>> folder.write("week 12", content).name
     'week 12.json'
     >>> folder.names(), folder.read("week 12.json") == content
@@ -72,7 +74,7 @@ class LogFolder:
     >>> folder.write("week 12", content)  # doctest: +ELLIPSIS
     Traceback (most recent call last):
     ...
-    qcexplore.app.logs.LogExists: A log named 'week 12.json' exists already: ...
+    qcexplore.app.logfolder.LogExists: A log named 'week 12.json' exists already: ...
     """
 
     def __init__(self, root: str | os.PathLike) -> None:
