@@ -210,3 +210,34 @@ def test_a_chart_option_is_refused_in_the_same_words_everywhere() -> None:
             attempt()
         messages.add(str(error.value))
     assert len(messages) == 1 and "lam" in messages.pop()
+
+
+#: The hosts: they build Studies only through ``qcexplore.investigation`` (``study_for`` for an
+#: investigation, ``open_study`` for a table as given), so the report, the command line and the
+#: explorer cannot disagree about what an investigation looks at.
+HOSTS = ("views", "app", "report.py", "cli.py")
+
+
+def test_hosts_build_studies_only_through_the_investigation() -> None:
+    found = []
+    for host in HOSTS:
+        place = PACKAGE / host
+        for path in sorted(place.rglob("*.py") if place.is_dir() else [place]):
+            for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+                called = getattr(node, "func", None)
+                name = getattr(called, "id", None) or getattr(called, "attr", None)
+                if isinstance(node, ast.Call) and name in ("Study", "restrict"):
+                    found.append(f"{path.relative_to(PACKAGE)}:{node.lineno} calls {name}")
+    assert not found, "\n".join(found)
+
+
+def test_findings_read_results_only() -> None:
+    """Findings are worded from the evidence bundle: no data table, no Study, no tests of their
+    own (the sample sizes of a next step come from stats.plans)."""
+    allowed = (
+        "qcexplore.stats.results", "qcexplore.stats.plans", "qcexplore.story",
+        "qcexplore.errors", "qcexplore.words", "qcexplore.caution", "qcexplore.data.coding",
+    )  # fmt: skip
+    for path in (PACKAGE / "findings.py", PACKAGE / "story.py"):
+        for _function, target in _imports(path):
+            assert target.startswith(allowed), f"{path.name} imports {target}"
