@@ -3,7 +3,7 @@
 An options object is a frozen dataclass validated on construction, so a bad argument is refused
 in one place whether it came from ``Study.chart(...)``, an explorer control or a saved
 investigation log. Options are hashable: the Study caches results by them. The explorer builds
-its controls from the fields' metadata (:func:`controls_of`), and the log stores
+its controls from each type's ``CONTROLS`` (:func:`controls_of`), and the log stores
 :meth:`Options.to_dict`.
 
 The valid values of a choice are the constants of the stats module that implements them; the
@@ -13,28 +13,15 @@ labels here are the words people read.
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Hashable, Mapping, Sequence
+from collections.abc import Hashable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
 from qcexplore.data.validate import column_names
 from qcexplore.errors import QCDataError
 from qcexplore.spec import Spec
-from qcexplore.stats.charts import check_chart_arguments
-from qcexplore.stats.rules import resolve_rules
+from qcexplore.stats.charts import KIND_LABELS, ChartSettings
 
-KIND_LABELS = {
-    "auto": "chosen by subgroup size",
-    "xbar_r": "means with ranges (X-bar and R)",
-    "xbar_s": "means with standard deviations (X-bar and S)",
-    "imr": "single values with moving ranges (I-MR)",
-    "ewma": "EWMA of the means",
-    "cusum": "CUSUM of the means",
-    "p": "share defective (p)",
-    "np": "number defective (np)",
-    "c": "defects per subgroup (c)",
-    "u": "defects per unit (u)",
-}
 LIMIT_LABELS = {"pooled": "one set for all strata", "per_stratum": "separate for each stratum"}
 SIGMA_LABELS = {
     "within": "within subgroups",
@@ -49,8 +36,7 @@ class Control:
     """How one option is offered to people: its label, its choices (value -> words), its range.
 
     ``kind``: ``"choice"``, ``"number"`` (bounded), ``"optional_number"`` (empty for none),
-    ``"text"`` (empty for none), ``"switch"``, or ``"hidden"`` (set by the program, e.g.
-    from a selection on the chart).
+    ``"text"`` (empty for none) or ``"switch"``.
     """
 
     label: str
@@ -63,16 +49,14 @@ class Control:
     css: str = ""
 
 
-def option(default: Any, control: Control) -> Any:
-    """A dataclass field with its control description in the field's metadata."""
-    return field(default=default, metadata={"control": control})
-
-
 class Options:
     """Shared behaviour of options objects: replace, plain data, and their controls."""
 
     #: What the analysis is called in messages ("chart", "variation").
     analysis: ClassVar[str] = ""
+    #: How the fields people set are offered, in the order shown; fields not listed are set
+    #: by the program (from a selection on the chart, say) or from Python only.
+    CONTROLS: ClassVar[Mapping[str, Control]] = {}
 
     def replace(self, **changes: Any) -> Options:
         """A copy with some fields changed (validated again)."""
@@ -106,109 +90,59 @@ def _plain(value: Any) -> Any:
 
 
 def controls_of(options: type[Options] | Options) -> dict[str, Control]:
-    """The shown options of an options type, in field order, with their controls.
+    """The shown options of an options type, in the order shown, with their controls.
 
     Examples
     --------
     >>> list(controls_of(ChartOptions))[:3]
     ['kind', 'by', 'highlight']
     """
-    return {
-        f.name: f.metadata["control"]
-        for f in dataclasses.fields(options)  # type: ignore[arg-type]
-        if f.metadata.get("control") and f.metadata["control"].kind != "hidden"
-    }
-
-
-def _labels_tuple(name: str, labels: Any) -> tuple[Hashable, ...]:
-    items = (
-        [labels] if isinstance(labels, (str, bytes)) or not isinstance(labels, Sequence) else labels
-    )
-    for item in items:
-        try:
-            hash(item)
-        except TypeError:
-            raise QCDataError(
-                f"{name}: {item!r} is not a single label; give subgroup labels such as "
-                "dates, hours or lot names."
-            ) from None
-    return tuple(items)
+    return dict(options.CONTROLS)
 
 
 @dataclass(frozen=True)
-class ChartOptions(Options):
-    """Every option of a control chart (see ``qcexplore.stats.charts.control_chart``).
+class ChartOptions(ChartSettings, Options):
+    """Every option of a control chart: the chart's settings (``stats.charts.ChartSettings``,
+    which checks them) and the options of the picture (``highlight``) and of the data charted
+    (``adjust_for``).
 
     Examples
     --------
-    >>> ChartOptions(kind="xbar_s").kind
-    'xbar_s'
-    >>> ChartOptions(kind="pie")  # doctest: +ELLIPSIS
-    Traceback (most recent call last):
-    ...
-    qcexplore.errors.QCDataError: kind='pie': use one of 'auto', ...
+    >>> ChartOptions(by="crew", adjust_for=None).adjust_for
+    False
     """
 
     analysis: ClassVar[str] = "The chart"
+    CONTROLS: ClassVar[Mapping[str, Control]] = {
+        "kind": Control("Chart", choices=KIND_LABELS),
+        "by": Control("Split by", none_label="no split", css="split-by"),
+        "highlight": Control("Coloured level", none_label="the first", css="highlight"),
+        "limits": Control("Limits", choices=LIMIT_LABELS),
+        "sigma_level": Control("Limits at ± sigma", "number", bounds=(1, 6), step=0.5),
+        "sigma_method": Control("Sigma from", choices=SIGMA_LABELS),
+        "rules": Control("Run tests", choices=RULE_LABELS),
+        "center": Control(
+            "Centre line at", "optional_number", none_label="estimated from the data"
+        ),
+        "adjust_for": Control("Remove the sampling offsets", "switch"),
+    }
 
-    kind: str = option("auto", Control("Chart", choices=KIND_LABELS))
-    by: str | None = option(None, Control("Split by", none_label="no split", css="split-by"))
-    highlight: str | None = option(
-        None, Control("Coloured level", none_label="the first", css="highlight")
-    )
-    limits: str = option("pooled", Control("Limits", choices=LIMIT_LABELS))
-    sigma_level: float = option(
-        3.0, Control("Limits at ± sigma", "number", bounds=(1, 6), step=0.5)
-    )
-    sigma_method: str = option("within", Control("Sigma from", choices=SIGMA_LABELS))
-    rules: str | tuple[str, ...] = option("nelson", Control("Run tests", choices=RULE_LABELS))
-    center: float | None = option(
-        None, Control("Centre line at", "optional_number", none_label="estimated from the data")
-    )
-    sigma: float | None = option(None, Control("Known sigma", "hidden"))
-    adjust_for: tuple[str, ...] | bool = option(
-        False, Control("Remove the sampling offsets", "switch")
-    )
-    exclude: tuple[Hashable, ...] = option((), Control("Left out of the limits", "hidden"))
-    iterate: bool = option(False, Control("Re-estimate without points beyond", "hidden"))
-    size: str | None = option(None, Control("Number inspected", "hidden"))
-    laney: bool = option(False, Control("Laney limits for over-dispersion", "hidden"))
-    lam: float = option(0.2, Control("EWMA weight", "hidden"))
-    L: float = option(3.0, Control("EWMA limit width", "hidden"))
-    k: float = option(0.5, Control("CUSUM reference value", "hidden"))
-    h: float = option(5.0, Control("CUSUM decision interval", "hidden"))
+    highlight: str | None = None
+    #: The measured_by factors whose offsets are removed before charting (True: all of them).
+    adjust_for: tuple[str, ...] | bool = False
 
     def __post_init__(self) -> None:
-        # Sequences become tuples (the options are a cache key); the values are checked by the
-        # chart's own check, so Study.chart, a control and a log are refused in the same words.
-        if not isinstance(self.rules, str):
-            object.__setattr__(self, "rules", resolve_rules(self.rules))
-        object.__setattr__(self, "exclude", _labels_tuple("exclude", self.exclude))
-        if not isinstance(self.adjust_for, bool):
+        super().__post_init__()
+        if self.adjust_for is None:
+            object.__setattr__(self, "adjust_for", False)
+        elif not isinstance(self.adjust_for, bool):
             object.__setattr__(self, "adjust_for", column_names(self.adjust_for, "adjust_for"))
-        for name in ("iterate", "laney"):
-            if not isinstance(getattr(self, name), bool):
-                raise QCDataError(f"{name}={getattr(self, name)!r}: give True or False.")
-        if self.by is not None and not isinstance(self.by, str):
-            raise QCDataError(f"by={self.by!r}: name one factor of the study, or None.")
         if self.highlight is not None and not isinstance(self.highlight, str):
             raise QCDataError(f"highlight={self.highlight!r}: name one level of the split.")
-        if self.size is not None and not isinstance(self.size, str):
-            raise QCDataError(f"size={self.size!r}: name the column with the number inspected.")
-        resolve_rules(self.rules)
-        check_chart_arguments(**self.chart_arguments())
-
-    #: Options of the picture only: they change no number of the chart.
-    DISPLAY_ONLY: ClassVar[tuple[str, ...]] = ("highlight",)
 
     def chart_arguments(self) -> dict[str, Any]:
-        """The keyword arguments of ``stats.charts.control_chart`` (all but the offsets and
-        the options of the picture)."""
-        return {
-            f.name: getattr(self, f.name)
-            for f in dataclasses.fields(self)
-            if f.name not in ("adjust_for", *self.DISPLAY_ONLY)
-        }
+        """The keyword arguments of ``stats.charts.control_chart``: the chart's settings."""
+        return self.settings()
 
 
 @dataclass(frozen=True)
@@ -217,7 +151,7 @@ class VariationOptions(Options):
 
     analysis: ClassVar[str] = "The variation analysis"
 
-    factors: tuple[str, ...] | None = option(None, Control("Factors", "hidden"))
+    factors: tuple[str, ...] | None = None
 
     def __post_init__(self) -> None:
         if self.factors is not None:
@@ -230,7 +164,7 @@ class TimeOptions(Options):
 
     analysis: ClassVar[str] = "The time-structure analysis"
 
-    max_lag: int | None = option(None, Control("Largest lag", "hidden"))
+    max_lag: int | None = None
 
     def __post_init__(self) -> None:
         lag = self.max_lag
@@ -252,10 +186,17 @@ class SpecOptions(Options):
 
     analysis: ClassVar[str] = "The specification"
 
-    lsl: float | None = option(None, Control("Lower limit", "optional_number", none_label="none"))
-    usl: float | None = option(None, Control("Upper limit", "optional_number", none_label="none"))
-    target: float | None = option(None, Control("Target", "optional_number", none_label="none"))
-    units: str | None = option(None, Control("Units", "text", none_label="none"))
+    CONTROLS: ClassVar[Mapping[str, Control]] = {
+        "lsl": Control("Lower limit", "optional_number", none_label="none"),
+        "usl": Control("Upper limit", "optional_number", none_label="none"),
+        "target": Control("Target", "optional_number", none_label="none"),
+        "units": Control("Units", "text", none_label="none"),
+    }
+
+    lsl: float | None = None
+    usl: float | None = None
+    target: float | None = None
+    units: str | None = None
 
     def __post_init__(self) -> None:
         if self.units is not None and not isinstance(self.units, str):

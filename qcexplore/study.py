@@ -418,29 +418,15 @@ class Study:
             )
         return chosen
 
-    def chart(
-        self,
-        kind: str = "auto",
-        *,
-        by: str | None = None,
-        limits: str = "pooled",
-        sigma_level: float = 3.0,
-        sigma_method: str = "within",
-        center: float | None = None,
-        sigma: float | None = None,
-        rules: str | Sequence[str] = "nelson",
-        exclude: Sequence[Any] = (),
-        adjust_for: Sequence[str] | bool | None = None,
-        iterate: bool = False,
-        **params: Any,
-    ) -> ChartResult:
+    def chart(self, kind: str = "auto", **options: Any) -> ChartResult:
         """A control chart of the subgroups (see ``qcexplore.stats.charts.control_chart``).
 
-        ``adjust_for`` charts the value with the named measured_by offsets removed
-        (``True`` for all of them), so the process can be seen without the
-        sampling effect. ``params``: ``lam``, ``L`` (EWMA), ``k``, ``h`` (CUSUM),
-        ``size`` (the number inspected, for p, np and u charts), ``laney``.
-        The arguments are checked by :class:`~qcexplore.options.ChartOptions`.
+        ``options`` are the fields of :class:`~qcexplore.options.ChartOptions`, which checks
+        them: the chart's settings (``by``, ``limits``, ``sigma_level``, ``sigma_method``,
+        ``center``, ``sigma``, ``rules``, ``exclude``, ``iterate``; ``lam``, ``L`` for EWMA;
+        ``k``, ``h`` for CUSUM; ``size``, ``laney`` for attribute charts) and ``adjust_for``,
+        which charts the value with the named measured_by offsets removed (``True`` for all of
+        them), so the process can be seen without the sampling effect.
 
         Examples
         --------
@@ -449,19 +435,7 @@ class Study:
         >>> s.chart().kind
         'xbar_r'
         """
-        unknown = sorted(set(params) - set(ChartOptions.__dataclass_fields__))
-        if unknown:
-            raise QCDataError(
-                f"chart() has no option {', '.join(unknown)}; the chart's other options are "
-                "lam, L (EWMA), k, h (CUSUM), size and laney (attribute charts)."
-            )
-        options = ChartOptions(
-            kind=kind, by=by, limits=limits, sigma_level=sigma_level, sigma_method=sigma_method,
-            center=center, sigma=sigma, rules=rules, exclude=exclude,
-            adjust_for=bool(adjust_for) if adjust_for in (None, True, False) else adjust_for,
-            iterate=iterate, **params,
-        )  # fmt: skip
-        return self.chart_of(options)
+        return self.chart_of(ChartOptions.from_dict({"kind": kind, **options}))
 
     def chart_of(self, options: ChartOptions) -> ChartResult:
         """The control chart for an options object (cached by the options)."""
@@ -510,17 +484,6 @@ class Study:
                 measured_by=tuple(m for m in self._measured_by if m in chosen),
             ),
         )
-
-    def series(self, adjust_for: Sequence[str] | bool | None = None) -> pd.DataFrame:
-        """The plotted series: ``subgroup, start, mean, n`` in time order."""
-        chosen = self._adjust_factors(adjust_for)
-        table = subgroup_table(
-            self._adjusted(chosen),
-            value=self._value,
-            subgroup=self.subgroup_column,
-            time=self._time,
-        )
-        return table[["subgroup", "start", "mean", "n"]]
 
     def time_structure_of(self, options: TimeOptions) -> TimeResult:
         """The time structure for an options object."""

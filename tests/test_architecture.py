@@ -188,9 +188,9 @@ def test_a_registered_view_appears_in_the_explorer_and_the_report(
 
 def test_every_choice_has_words_and_every_word_a_choice() -> None:
     from qcexplore.options import KIND_LABELS, LIMIT_LABELS, SIGMA_LABELS
-    from qcexplore.stats.charts import KINDS, LIMIT_MODES, SIGMA_METHODS
+    from qcexplore.stats.charts import AUTO, LIMIT_MODES, SIGMA_METHODS, chart_kinds
 
-    assert tuple(KIND_LABELS) == KINDS
+    assert tuple(KIND_LABELS) == (AUTO, *chart_kinds())
     assert tuple(LIMIT_LABELS) == LIMIT_MODES
     assert tuple(SIGMA_LABELS) == SIGMA_METHODS
 
@@ -241,3 +241,39 @@ def test_findings_read_results_only() -> None:
     for path in (PACKAGE / "findings.py", PACKAGE / "story.py"):
         for _function, target in _imports(path):
             assert target.startswith(allowed), f"{path.name} imports {target}"
+
+
+def test_a_new_chart_kind_is_one_family_and_one_registry_entry(tmp_path: Path) -> None:
+    """Registered once, a kind is offered by the options and the explorer's control, computed
+    by the Study, drawn with its words and printed by the report."""
+    import dataclasses
+
+    from qcexplore.investigation import Investigation
+    from qcexplore.options import KIND_LABELS, ChartOptions
+    from qcexplore.stats.charts import ChartKind, register_kind, unregister_kind
+    from qcexplore.stats.charts.variables import variables_chart
+
+    def doubled_means(request):  # a family of its own: the X-bar/R chart under another name
+        chart = variables_chart(dataclasses.replace(request, kind="xbar_r"))
+        return dataclasses.replace(chart, kind="doubled")
+
+    register_kind(
+        ChartKind("doubled", "means, once more", "Means once more (test kind)", "Mean again",
+                  doubled_means, secondary="r")
+    )  # fmt: skip
+    try:
+        assert KIND_LABELS["doubled"] == "means, once more"
+        study = Study(filling_line(days=2)[0], **ROLES)
+        assert study.chart("doubled").kind == "doubled"
+        explorer = Explorer(study)
+        explorer.set(kind="doubled")
+        explorer.show_view("chart")
+        assert "means, once more" in explorer.panels["chart"].controls.widgets["kind"].options[-1]
+        chart = explorer.slots["chart"].layout
+        assert chart.select_one({"name": "chart"}).yaxis[0].axis_label == "Mean again"
+        state = Investigation.of(study).with_options("chart", ChartOptions(kind="doubled"))
+        page = study.report(tmp_path / "r.html", log=state).read_text(encoding="utf-8")
+        assert "Mean again" in page
+    finally:
+        unregister_kind("doubled")
+    assert "doubled" not in KIND_LABELS

@@ -73,6 +73,7 @@ from bokeh.transform import transform
 
 from qcexplore.draw import encode, palette, parts
 from qcexplore.errors import QCDataError
+from qcexplore.stats.charts.kinds import CHART_KINDS
 from qcexplore.stats.results import ChartResult
 
 #: Meaning of the ``role_code`` column of the limits sources.
@@ -82,26 +83,6 @@ ROLES = ("center", "limit")
 class _Words(NamedTuple):
     title: str  # what is plotted, for a result without a title of its own
     axis: str  # the y axis label and the start of each small multiple's title
-
-
-_KIND_WORDS = {
-    "xbar_r": _Words("Subgroup means (X-bar chart, R-based)", "Subgroup mean"),
-    "xbar_s": _Words("Subgroup means (X-bar chart, S-based)", "Subgroup mean"),
-    "imr": _Words("Single values (individuals chart)", "Single value"),
-    "ewma": _Words("EWMA of the plotted values", "Exponentially weighted moving average"),
-    "ewma_center": _Words("Subgroup means with a moving centre line (EWMA)", "Subgroup mean"),
-    "cusum": _Words(
-        "Upper and lower cumulative sums (CUSUM)",
-        "Cumulative sums (\u25b2 upper C+, \u25bc lower C\u2212)",
-    ),
-    "p": _Words("Proportion nonconforming (p chart)", "Proportion nonconforming"),
-    "np": _Words("Number nonconforming (np chart)", "Number nonconforming"),
-    "c": _Words("Defects per unit inspected (c chart)", "Defects per subgroup"),
-    "u": _Words("Defects per unit (u chart)", "Defects per unit"),
-    "r": _Words("Subgroup ranges (R chart)", "Subgroup range"),
-    "s": _Words("Subgroup standard deviations (S chart)", "Subgroup standard deviation"),
-    "mr": _Words("Moving ranges (MR chart)", "Moving range"),
-}
 
 
 class _Sum(NamedTuple):
@@ -119,9 +100,10 @@ _SUMS = (
 
 
 def _words(result: ChartResult) -> _Words:
-    return _KIND_WORDS.get(
-        result.kind, _Words(f"{result.kind} chart of the {result.statistic}", result.statistic)
-    )
+    kind = CHART_KINDS.get(result.kind)
+    if kind is None:
+        return _Words(f"{result.kind} chart of the {result.statistic}", result.statistic)
+    return _Words(kind.title, kind.axis)
 
 
 def _stratum(points: pd.DataFrame) -> pd.Series:

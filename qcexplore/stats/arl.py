@@ -28,10 +28,10 @@ from scipy.sparse import linalg as sparse_linalg
 
 from qcexplore.data.coding import is_real_number
 from qcexplore.errors import QCDataError
+from qcexplore.stats.charts.kinds import chart_kinds
 from qcexplore.stats.results import ArlResult
 from qcexplore.stats.rules import evaluate_rows, resolve_rules
 
-KINDS = ("xbar_r", "xbar_s", "imr", "ewma", "cusum")
 _LIMIT_RULES = frozenset({"N1", "WE1"})
 # Rules decided by the zone of each point alone, so a chain over zone history is exact.
 _ZONE_RULES = frozenset({"WE1", "WE2", "WE3", "WE4", "N1", "N2", "N5", "N6", "N7", "N8"})
@@ -241,8 +241,9 @@ def arl_detail(
     >>> round(r.value, 2), r.method
     (91.75, 'markov_chain')
     """
-    if kind not in KINDS:
-        raise _bad("kind", kind, f"unknown chart kind; use one of {', '.join(KINDS)}.")
+    kinds = chart_kinds(arl=True)
+    if kind not in kinds:
+        raise _bad("kind", kind, f"unknown chart kind; use one of {', '.join(kinds)}.")
     if not is_real_number(shift, finite=False):
         raise _bad("shift", shift, "must be a number of process standard deviations.")
     if not math.isfinite(float(shift)):

@@ -3,7 +3,9 @@
 One module per job:
 
 ==============  ===============================================================
-``chart``       :func:`control_chart`: checks the arguments, picks the family
+``kinds``       the registry of chart kinds: family, words, secondary chart, ARL
+``settings``    every setting of a chart with its default, checked on construction
+``chart``       :func:`control_chart`: the settings, the points, the family
 ``request``     the rows reduced to points, with the options (what families read)
 ``layout``      point and segment codes and per-segment reductions
 ``fit``         points with limits; the estimate that leaves out points beyond them
@@ -17,26 +19,30 @@ One module per job:
 
 from __future__ import annotations
 
-from qcexplore.stats.charts.chart import (
-    ATTRIBUTE_KINDS,
-    FAMILIES,
-    KINDS,
-    LIMIT_MODES,
-    SIGMA_METHODS,
-    VARIABLE_KINDS,
-    check_chart_arguments,
-    control_chart,
-)
+from qcexplore.stats.charts.chart import control_chart
 from qcexplore.stats.charts.fit import MAX_PASSES
+from qcexplore.stats.charts.kinds import (
+    AUTO,
+    CHART_KINDS,
+    KIND_LABELS,
+    ChartKind,
+    chart_kinds,
+    register_kind,
+    unregister_kind,
+)
+from qcexplore.stats.charts.settings import LIMIT_MODES, SIGMA_METHODS, ChartSettings
 
 __all__ = [
-    "ATTRIBUTE_KINDS",
-    "FAMILIES",
-    "KINDS",
+    "AUTO",
+    "CHART_KINDS",
+    "KIND_LABELS",
     "LIMIT_MODES",
     "MAX_PASSES",
     "SIGMA_METHODS",
-    "VARIABLE_KINDS",
-    "check_chart_arguments",
+    "ChartKind",
+    "ChartSettings",
+    "chart_kinds",
     "control_chart",
+    "register_kind",
+    "unregister_kind",
 ]

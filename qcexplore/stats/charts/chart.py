@@ -11,89 +11,49 @@ Each family says how it estimates its limits beside the estimator (``variables``
 
 from __future__ import annotations
 
-from collections.abc import Callable, Hashable, Sequence
+from typing import Any
 
 import pandas as pd
 
-from qcexplore.data.coding import is_real_number, real_number
-from qcexplore.errors import QCDataError
-from qcexplore.stats.charts.attributes import MODELS, attribute_chart
+from qcexplore.stats.charts.attributes import attribute_chart
 from qcexplore.stats.charts.cusum import cusum_chart
 from qcexplore.stats.charts.ewma import ewma_chart
-from qcexplore.stats.charts.request import ChartRequest, chart_request
+from qcexplore.stats.charts.kinds import CHART_KINDS, ChartKind, register_kind
+from qcexplore.stats.charts.request import chart_request
+from qcexplore.stats.charts.settings import ChartSettings
 from qcexplore.stats.charts.variables import variables_chart
 from qcexplore.stats.results import ChartResult
 
-#: Which function draws up each kind of chart.
-FAMILIES: dict[str, Callable[[ChartRequest], ChartResult]] = {
-    "xbar_r": variables_chart,
-    "xbar_s": variables_chart,
-    "imr": variables_chart,
-    "ewma": ewma_chart,
-    "cusum": cusum_chart,
-    **dict.fromkeys(MODELS, attribute_chart),
-}
-ATTRIBUTE_KINDS = tuple(MODELS)
-VARIABLE_KINDS = tuple(kind for kind in FAMILIES if kind not in MODELS)
-KINDS = ("auto", *FAMILIES)
-SIGMA_METHODS = ("within", "between_means", "overall")
-LIMIT_MODES = ("pooled", "per_stratum")
-#: Charts whose successive points are correlated: read by their limits alone, never iterated.
-SMOOTHED_KINDS = ("ewma", "cusum")
-#: Charts with Laney's over-dispersion correction.
-LANEY_KINDS = ("p", "u")
-
-
-def _check_choices(kind: str, limits: str, by: str | None, sigma_method: str) -> None:
-    for name, given, allowed in (
-        ("kind", kind, KINDS), ("limits", limits, LIMIT_MODES),
-        ("sigma_method", sigma_method, SIGMA_METHODS),
-    ):  # fmt: skip
-        if given not in allowed:
-            raise QCDataError(f"{name}={given!r}: use one of {', '.join(map(repr, allowed))}.")
-    if limits == "per_stratum" and by is None:
-        raise QCDataError(
-            "limits='per_stratum' needs by= (the factor whose levels get their own limits)."
-        )
-
-
-def _check_numbers(
-    sigma_level: float, center: float | None, sigma: float | None, lam: float, L: float,
-    k: float, h: float,
-) -> None:  # fmt: skip
-    for name, x in (("sigma_level", sigma_level), ("L", L), ("h", h)):
-        real_number(name, x, lower=0, inclusive=False)
-    if not (is_real_number(lam) and 0 < lam <= 1):
-        raise QCDataError(f"lam={lam!r}: the EWMA weight must lie in (0, 1], e.g. 0.2.")
-    real_number("k", k, lower=0)
-    if center is not None:
-        real_number("center", center)
-    if sigma is not None:
-        real_number("sigma", sigma, lower=0, inclusive=False)
-
-
-def _check_family_options(kind: str, laney: bool, iterate: bool) -> None:
-    if laney and kind not in LANEY_KINDS:
-        raise QCDataError(f"laney=True is for p and u charts (Laney p' and u'), not kind={kind!r}.")
-    if iterate and kind in SMOOTHED_KINDS:
-        raise QCDataError(
-            f"iterate=True is for Shewhart and attribute charts, not kind={kind!r}; "
-            "estimate the limits on a clean period with exclude= instead."
-        )
-
-
-def check_chart_arguments(
-    *, kind: str, by: str | None, limits: str, sigma_level: float, sigma_method: str,
-    center: float | None, sigma: float | None, laney: bool, iterate: bool, lam: float,
-    L: float, k: float, h: float, **_others: object,
-) -> None:  # fmt: skip
-    """Refuse a chart that cannot be drawn, in words: the one check of the chart's options.
-
-    ``control_chart`` and ``qcexplore.options.ChartOptions`` both call it.
-    """
-    _check_choices(kind, limits, by, sigma_method)
-    _check_numbers(sigma_level, center, sigma, lam, L, k, h)
-    _check_family_options(kind, laney, iterate)
+for _kind in (
+    ChartKind("xbar_r", "means with ranges (X-bar and R)", "Subgroup means (X-bar chart, R-based)",
+              "Subgroup mean", variables_chart, secondary="r", arl=True),
+    ChartKind("xbar_s", "means with standard deviations (X-bar and S)",
+              "Subgroup means (X-bar chart, S-based)", "Subgroup mean", variables_chart,
+              secondary="s", arl=True),
+    ChartKind("imr", "single values with moving ranges (I-MR)",
+              "Single values (individuals chart)", "Single value", variables_chart,
+              secondary="mr", arl=True),
+    ChartKind("ewma", "EWMA of the means", "EWMA of the plotted values",
+              "Exponentially weighted moving average", ewma_chart, smoothed=True, arl=True),
+    ChartKind("cusum", "CUSUM of the means", "Upper and lower cumulative sums (CUSUM)",
+              "Cumulative sums (\u25b2 upper C+, \u25bc lower C\u2212)", cusum_chart,
+              smoothed=True, arl=True),
+    ChartKind("p", "share defective (p)", "Proportion nonconforming (p chart)",
+              "Proportion nonconforming", attribute_chart, attributes=True, laney=True),
+    ChartKind("np", "number defective (np)", "Number nonconforming (np chart)",
+              "Number nonconforming", attribute_chart, attributes=True),
+    ChartKind("c", "defects per subgroup (c)", "Defects per unit inspected (c chart)",
+              "Defects per subgroup", attribute_chart, attributes=True),
+    ChartKind("u", "defects per unit (u)", "Defects per unit (u chart)", "Defects per unit",
+              attribute_chart, attributes=True, laney=True),
+    ChartKind("r", "ranges", "Subgroup ranges (R chart)", "Subgroup range"),
+    ChartKind("s", "standard deviations", "Subgroup standard deviations (S chart)",
+              "Subgroup standard deviation"),
+    ChartKind("mr", "moving ranges", "Moving ranges (MR chart)", "Moving range"),
+    ChartKind("ewma_center", "means with a moving centre line",
+              "Subgroup means with a moving centre line (EWMA)", "Subgroup mean"),
+):  # fmt: skip
+    register_kind(_kind)
 
 
 def control_chart(
@@ -102,24 +62,12 @@ def control_chart(
     value: str,
     subgroup: str,
     time: str | None = None,
-    kind: str = "auto",
-    by: str | None = None,
-    limits: str = "pooled",
-    sigma_level: float = 3.0,
-    sigma_method: str = "within",
-    center: float | None = None,
-    sigma: float | None = None,
-    rules: str | Sequence[str] = "nelson",
-    exclude: Sequence[Hashable] = (),
-    iterate: bool = False,
-    size: str | None = None,
-    laney: bool = False,
-    lam: float = 0.2,
-    L: float = 3.0,
-    k: float = 0.5,
-    h: float = 5.0,
+    **settings: Any,
 ) -> ChartResult:
     """A control chart of ``value`` by ``subgroup``, optionally split ``by`` a factor.
+
+    The settings are the fields of :class:`~qcexplore.stats.charts.settings.ChartSettings`
+    (checked there); the kinds are those of ``kinds.CHART_KINDS``.
 
     Parameters
     ----------
@@ -205,14 +153,8 @@ def control_chart(
     >>> r.kind, len(r.points), r.secondary.kind
     ('xbar_r', 20, 'r')
     """
-    check_chart_arguments(
-        kind=kind, by=by, limits=limits, sigma_level=sigma_level, sigma_method=sigma_method,
-        center=center, sigma=sigma, laney=laney, iterate=iterate, lam=lam, L=L, k=k, h=h,
-    )  # fmt: skip
-    request = chart_request(
-        frame, value=value, subgroup=subgroup, time=time, kind=kind, by=by, limits=limits,
-        rules=rules, exclude=exclude, sigma_level=sigma_level, sigma_method=sigma_method,
-        center=center, sigma=sigma, iterate=iterate, size=size, laney=laney, lam=lam, L=L,
-        k=k, h=h,
-    )  # fmt: skip
-    return FAMILIES[request.kind](request)
+    chosen = ChartSettings(**settings)
+    request = chart_request(frame, value=value, subgroup=subgroup, time=time, settings=chosen)
+    family = CHART_KINDS[request.kind].family
+    assert family is not None  # chart_kinds() offers only kinds with a family
+    return family(request)

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from collections.abc import Hashable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -10,6 +9,7 @@ import pandas as pd
 
 from qcexplore.data.validate import finite_column
 from qcexplore.errors import QCDataError
+from qcexplore.stats.charts.kinds import AUTO
 from qcexplore.stats.charts.layout import (
     Points,
     exclude_mask,
@@ -18,40 +18,27 @@ from qcexplore.stats.charts.layout import (
     starts,
     typical_size,
 )
+from qcexplore.stats.charts.settings import ChartSettings
 from qcexplore.stats.rules import resolve_rules
 
 #: Subgroups of up to this typical size are charted with ranges, larger ones with sds.
 RANGE_MAX_SIZE = 9
 
 
-@dataclass(frozen=True)
-class ChartRequest:
-    """A chart asked for: its data as points, and the options as given to ``control_chart``."""
+@dataclass(frozen=True, kw_only=True)
+class ChartRequest(ChartSettings):
+    """A chart asked for: its settings (``kind`` never ``"auto"``: resolved from the subgroup
+    sizes; ``rules`` as rule ids), and its data as points."""
 
     frame: pd.DataFrame
     values: np.ndarray  # per row
     value: str
-    kind: str  # never "auto": resolved from the subgroup sizes
     points: Points
     prev: np.ndarray  # per point: the previous point of its segment
     rows: np.ndarray  # per point: number of rows
     user_out: np.ndarray  # per point: left out of the estimate by request
     user_labels: tuple
     start: pd.Series | None  # per point: first time of its rows
-    rules: tuple[str, ...]
-    by: str | None
-    limits: str
-    sigma_level: float
-    sigma_method: str
-    center: float | None
-    sigma: float | None
-    iterate: bool
-    size: str | None
-    laney: bool
-    lam: float
-    L: float
-    k: float
-    h: float
 
     @property
     def rule_one(self) -> str:
@@ -72,22 +59,22 @@ def auto_kind(rows: np.ndarray) -> str:
 
 
 def chart_request(
-    frame: pd.DataFrame, *, value: str, subgroup: str, time: str | None, kind: str,
-    by: str | None, limits: str, rules: str | Sequence[str], exclude: Sequence[Hashable],
-    **options: object,
-) -> ChartRequest:  # fmt: skip
-    """The points of ``frame`` and the options; ``kind="auto"`` chosen by subgroup size."""
+    frame: pd.DataFrame, *, value: str, subgroup: str, time: str | None, settings: ChartSettings
+) -> ChartRequest:
+    """The points of ``frame`` with the settings; ``kind="auto"`` chosen by subgroup size."""
     if len(frame) == 0:
         raise QCDataError("frame: no rows to chart.")
-    ids = resolve_rules(rules)
     values = finite_column(frame, value, "value")
-    points = point_codes(frame, subgroup, by, limits == "per_stratum")
-    user_out, user_labels = exclude_mask(exclude, points)
+    points = point_codes(frame, subgroup, settings.by, settings.limits == "per_stratum")
+    user_out, user_labels = exclude_mask(settings.exclude, points)
     rows = np.bincount(points.row_point, minlength=points.sub.size)
+    chosen = {
+        **settings.settings(),
+        "kind": auto_kind(rows) if settings.kind == AUTO else settings.kind,
+        "rules": resolve_rules(settings.rules),
+    }
     return ChartRequest(
-        frame=frame, values=values, value=value,
-        kind=auto_kind(rows) if kind == "auto" else kind,
-        points=points, prev=previous(points.seg), rows=rows, user_out=user_out,
-        user_labels=user_labels, start=starts(frame, time, points) if time is not None else None,
-        rules=ids, by=by, limits=limits, **options,  # type: ignore[arg-type]
+        **chosen, frame=frame, values=values, value=value, points=points,
+        prev=previous(points.seg), rows=rows, user_out=user_out, user_labels=user_labels,
+        start=starts(frame, time, points) if time is not None else None,
     )  # fmt: skip
