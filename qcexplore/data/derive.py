@@ -66,25 +66,6 @@ def _shift_slots(
     return shift, days - before_first.astype("timedelta64[D]")
 
 
-def assign_shifts(times: pd.Series, shifts: Mapping[str, str]) -> tuple[pd.Series, pd.Series]:
-    """Shift name and production day of each timestamp.
-
-    Shifts start at local wall-clock times and run to the next start; a shift
-    that runs past midnight belongs to the day it started. Clock times are read
-    in each timestamp's own time zone, so the assignment stays right across a
-    daylight-saving change (a night shift is an hour shorter or longer that night).
-
-    Examples
-    --------
-    >>> t = pd.Series(pd.to_datetime(["2026-03-02 23:00", "2026-03-03 05:59"]))
-    >>> names, days = assign_shifts(t, {"early": "06:00", "late": "14:00", "night": "22:00"})
-    >>> names.tolist(), days.astype(str).tolist()
-    (['night', 'night'], ['2026-03-02', '2026-03-02'])
-    """
-    shift, day = _shift_slots(*_wall_clock(times), shifts)
-    return pd.Series(shift, index=times.index), pd.Series(day, index=times.index).dt.date
-
-
 def _present(codes: np.ndarray, labels: Sequence[Any], index: pd.Index) -> pd.Series:
     """A categorical of ``labels[codes]`` (-1: missing) with only the labels in use, in their
     order."""
@@ -100,9 +81,13 @@ def derive_time_factors(
 ) -> dict[str, pd.Series]:
     """Weekday, hour (and shift and production day when ``shifts`` is given) as categoricals.
 
-    With shifts, the weekday is that of the production day, so the Monday night
-    shift's early-morning samples count as Monday. Each distinct day is named and given
-    its weekday once, whatever the number of rows on it.
+    Shifts start at local wall-clock times and run to the next start; a shift that runs
+    past midnight belongs to the day it started. Clock times are read in each timestamp's
+    own time zone, so the assignment stays right across a daylight-saving change (a night
+    shift is an hour shorter or longer that night). With shifts, the weekday is that of
+    the production day, so the Monday night shift's early-morning samples count as Monday.
+    Each distinct day is named and given its weekday once, whatever the number of rows on
+    it.
 
     Examples
     --------
