@@ -56,13 +56,13 @@ def _wall_clock(times: pd.Series) -> tuple[np.ndarray, np.ndarray]:
 
 def _shift_slots(
     days: np.ndarray, minutes: np.ndarray, shifts: Mapping[str, str]
-) -> tuple[pd.Categorical, np.ndarray]:
+) -> tuple[pd.Categorical[str], np.ndarray]:
     """Shift of each minute of the day, and the production day (the day its shift began)."""
     starts = shift_starts(shifts)
     slot = np.searchsorted(np.array([m for m, _ in starts]), minutes, side="right") - 1
     before_first = slot < 0
     slot = np.where(minutes < 0, -1, np.where(before_first, len(starts) - 1, slot))
-    shift = pd.Categorical.from_codes(slot, categories=[name for _, name in starts])
+    shift = pd.Categorical.from_codes(slot, categories=pd.Index([name for _, name in starts]))
     return shift, days - before_first.astype("timedelta64[D]")
 
 
@@ -73,7 +73,7 @@ def _present(codes: np.ndarray, labels: Sequence[Any], index: pd.Index) -> pd.Se
     # The new code of each old one; the last entry, -1, is what code -1 (missing) reads.
     renumber = np.r_[np.cumsum(used) - 1, -1].astype(np.int8)
     kept = [label for label, keep in zip(labels, used, strict=True) if keep]
-    return pd.Series(pd.Categorical.from_codes(renumber[codes], categories=kept), index=index)
+    return pd.Series(pd.Categorical.from_codes(renumber[codes], pd.Index(kept)), index=index)
 
 
 def derive_time_factors(

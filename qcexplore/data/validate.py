@@ -42,7 +42,7 @@ def row_list(positions: Iterable[int]) -> str:
     return f"row{'s' if len(rows) > 1 else ''} {listed}{more}"
 
 
-def cell_examples(cells: Sequence[object], positions: np.ndarray, count: int = 3) -> str:
+def cell_examples(cells: np.ndarray, positions: np.ndarray, count: int = 3) -> str:
     return ", ".join(shown(cells[int(i)]) for i in positions[:count])
 
 
@@ -116,9 +116,9 @@ e.g. value='weight'.
     """
     if name is None and optional:
         return None
-    whole_number = is_real_number(name) and float(name).is_integer()  # type: ignore[arg-type]
+    whole_number = is_real_number(name) and float(name).is_integer()
     if isinstance(name, str) or whole_number:
-        return name  # type: ignore[return-value]
+        return name
     raise QCDataError(
         f"{role}={shown(name)} is not one column name: give the name as text, e.g. {role}='weight'."
     )
