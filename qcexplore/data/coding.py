@@ -16,7 +16,7 @@ import pandas as pd
 from qcexplore.errors import QCDataError
 
 
-def is_real_number(x: object, *, finite: bool = True) -> TypeGuard[numbers.Real]:
+def is_real_number(x: object, *, finite: bool = True) -> TypeGuard[float]:
     """True for an int or float (numpy's too) that is not a bool, finite unless told otherwise.
 
     Examples
