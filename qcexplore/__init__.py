@@ -7,6 +7,7 @@ use does not import bokeh or ipywidgets: the names that need them load lazily.
 from __future__ import annotations
 
 from importlib import import_module
+from importlib.util import find_spec
 from typing import Any
 
 from qcexplore import demo
@@ -34,8 +35,8 @@ def _show_results_in_notebooks() -> None:
     except ImportError:
         return
     shell = get_ipython()
-    if shell is None or getattr(shell, "kernel", None) is None:
-        return
+    if shell is None or getattr(shell, "kernel", None) is None or find_spec("bokeh") is None:
+        return  # without bokeh (no "explore" extra) results show as text
 
     def bundle(result: Any, include: Any = None, exclude: Any = None) -> dict[str, str]:
         # bokeh is imported when the first result is shown, not with the package.

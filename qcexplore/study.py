@@ -30,7 +30,7 @@ from qcexplore.data.validate import (
     require_text_names,
     row_list,
 )
-from qcexplore.errors import QCDataError
+from qcexplore.errors import QCDataError, explore_extra
 from qcexplore.options import ChartOptions, TimeOptions, VariationOptions
 from qcexplore.spec import Spec
 from qcexplore.stats.results import (
@@ -597,12 +597,14 @@ class Study:
 
     def explore(self, **options: Any) -> Any:
         """The interactive explorer widget for this study."""
-        from qcexplore.app.explorer import Explorer
+        with explore_extra("The explorer"):
+            from qcexplore.app.explorer import Explorer
 
         return Explorer(self, **options)
 
     def report(self, path: str | Path, **options: Any) -> Path:
         """Write one self-contained HTML report and return its path."""
-        from qcexplore.report import write_report
+        with explore_extra("The report"):
+            from qcexplore.report import write_report
 
         return write_report(self, path, **options)

@@ -8,7 +8,7 @@ import pytest
 
 import qcexplore as qx
 from qcexplore import QCDataError
-from qcexplore.data.derive import assign_shifts, derive_time_factors
+from qcexplore.data.derive import derive_time_factors
 
 SHIFTS = {"early": "06:00", "late": "14:00", "night": "22:00"}
 
@@ -20,7 +20,8 @@ def test_night_shift_belongs_to_the_day_it_started() -> None:
              "2026-03-02 21:59", "2026-03-02 22:00", "2026-03-03 00:00", "2026-03-03 05:59"]
         )
     )  # fmt: skip
-    names, days = assign_shifts(times, SHIFTS)
+    out = derive_time_factors(times, SHIFTS)
+    names, days = out["shift"], out["day"]
     assert names.tolist() == ["night", "early", "early", "late", "late", "night", "night", "night"]
     assert [str(d) for d in days] == ["2026-03-01"] + ["2026-03-02"] * 7
 
@@ -36,7 +37,8 @@ def test_shifts_across_daylight_saving_change(first_hour: str, expected_night_ho
         pd.Timestamp(first_hour, tz="Europe/Berlin").tz_convert("UTC"), periods=12, freq="h"
     )
     local = pd.Series(utc.tz_convert("Europe/Berlin"))
-    names, days = assign_shifts(local, SHIFTS)
+    out = derive_time_factors(local, SHIFTS)
+    names, days = out["shift"], out["day"]
     night = names == "night"
     assert int(night.sum()) == expected_night_hours  # the night is an hour shorter or longer
     assert names.iloc[expected_night_hours] == "early"
@@ -74,15 +76,16 @@ def test_study_derives_shift_and_matches_demo_labels() -> None:
 def test_bad_shift_maps(shifts, message) -> None:
     times = pd.Series(pd.to_datetime(["2026-09-08 02:00"]))
     with pytest.raises(QCDataError, match=message):
-        assign_shifts(times, shifts)
+        derive_time_factors(times, shifts)
 
 
 @pytest.mark.parametrize("zone", [None, "Europe/Berlin", "America/New_York"])
 @pytest.mark.parametrize("shifts", [None, SHIFTS])
 def test_derived_factors_equal_a_row_by_row_reference(zone, shifts) -> None:
     # Reference: pandas' own per-row accessors (dt.hour, dt.strftime("%Y-%m-%d"),
-    # dt.day_name()) on every timestamp, the production day moved back a day before the
-    # first shift starts. Two months of random minutes cross a daylight-saving change.
+    # dt.day_name()) on every timestamp, the shift read from the local hour and the
+    # production day moved back a day before the first shift starts. Two months of random
+    # minutes cross a daylight-saving change.
     rng = np.random.default_rng(7)
     minutes = np.sort(rng.integers(0, 60 * 24 * 61, 3000))
     times = pd.Series(pd.Timestamp("2026-03-01", tz="UTC") + pd.to_timedelta(minutes, "min"))
@@ -93,7 +96,9 @@ def test_derived_factors_equal_a_row_by_row_reference(zone, shifts) -> None:
     day = local.dt.normalize()
     if shifts is not None:
         day = day - pd.to_timedelta((local.dt.hour < 6).astype(int), unit="D")
-        assert out["shift"].tolist() == assign_shifts(times, shifts)[0].tolist()
+        # SHIFTS starts early at 06:00, late at 14:00, night at 22:00 (to 06:00)
+        shift = ["night"] * 6 + ["early"] * 8 + ["late"] * 8 + ["night"] * 2
+        assert out["shift"].tolist() == [shift[h] for h in local.dt.hour]
     assert out["day"].astype(str).tolist() == day.dt.strftime("%Y-%m-%d").tolist()
     assert out["weekday"].astype(str).tolist() == day.dt.day_name().tolist()
     days = sorted(set(day.dt.strftime("%Y-%m-%d")))

@@ -13,7 +13,6 @@ from qcexplore.data.numbers import number_cells, numeric_values, read_number_tex
 from qcexplore.data.validate import (
     check_role_names,
     column_names,
-    finite_array,
     finite_column,
     require_columns,
     require_text_names,
@@ -25,8 +24,8 @@ def test_numbers_pass_through_as_float64():
     frame = pd.DataFrame({"w": [500, 501, 499], "f": pd.array([1.5, 2.0, 2.5], dtype="Float64")})
     assert finite_column(frame, "w", "value").dtype == np.float64
     np.testing.assert_array_equal(finite_column(frame, "f", "value"), [1.5, 2.0, 2.5])
-    np.testing.assert_array_equal(finite_array([1, 2.5, np.int8(3)], "values"), [1.0, 2.5, 3.0])
-    np.testing.assert_array_equal(finite_array(np.array([[1, 2], [3, 4]]), "values"), [1, 2, 3, 4])
+    cells = pd.DataFrame({"v": pd.Series([1, 2.5, np.int8(3)], dtype=object)})
+    np.testing.assert_array_equal(finite_column(cells, "v", "value"), [1.0, 2.5, 3.0])
 
 
 @pytest.mark.parametrize(
@@ -43,6 +42,14 @@ def test_numbers_pass_through_as_float64():
         ),  # fmt: skip
         ("mixed", r"Column 'mixed' given as value: cells that are not numbers \('x'\) in row 2;"),
         ("flag", r"Column 'flag' given as value: true/false values, not measurements; choose"),
+        (
+            "flag_cell",
+            r"Column 'flag_cell' given as value: cells that are not numbers \(True\) in row 1;",
+        ),
+        (
+            "list_cell",
+            r"Column 'list_cell' given as value: cells that are not numbers \(\[2, 3\]\) in row 2;",
+        ),
     ],
 )
 def test_column_messages_name_column_rows_and_remedy(column, match):
@@ -54,21 +61,13 @@ def test_column_messages_name_column_rows_and_remedy(column, match):
             "text": ["a", "b", "c", "d"],
             "mixed": pd.Series([1.0, "x", 3.0, None], dtype=object),
             "flag": [True, False, True, True],
+            # As objects each cell keeps its own type: True is not taken for 1.
+            "flag_cell": pd.Series([True, 1, 2, 3], dtype=object),
+            "list_cell": pd.Series([1, [2, 3], 4, 5], dtype=object),
         }
     )
     with pytest.raises(QCDataError, match=match):
         finite_column(frame, column, "value")
-
-
-def test_array_messages_use_positions():
-    with pytest.raises(QCDataError, match=r"^sizes: missing or infinite values in row 2;"):
-        finite_array([1.0, float("nan")], "sizes")
-    with pytest.raises(QCDataError, match=r"^sizes: cells that are not numbers \(True\) in row 1;"):
-        finite_array([True, 1], "sizes")
-    with pytest.raises(QCDataError, match="^sizes: true/false values"):
-        finite_array(np.array([True, False]), "sizes")
-    with pytest.raises(QCDataError, match=r"^sizes: cells that are not numbers \(\[2, 3\]\)"):
-        finite_array([1, [2, 3]], "sizes")
 
 
 _CELLS = st.one_of(
@@ -85,16 +84,12 @@ _CELLS = st.one_of(
 
 
 @settings(max_examples=150, deadline=None)
-@given(cells=st.lists(_CELLS, max_size=8), as_column=st.booleans())
-def test_odd_input_raises_only_qcdataerror(cells, as_column):
+@given(cells=st.lists(_CELLS, max_size=8))
+def test_odd_input_raises_only_qcdataerror(cells):
     # Property: whatever the cells, the result is finite float64 of the same length or a
     # QCDataError; no TypeError, OverflowError or KeyError escapes.
     try:
-        if as_column:
-            frame = pd.DataFrame({"v": pd.Series(cells, dtype=object)})
-            out = finite_column(frame, "v", "value")
-        else:
-            out = finite_array(cells, "values")
+        out = finite_column(pd.DataFrame({"v": pd.Series(cells, dtype=object)}), "v", "value")
     except QCDataError:
         return
     assert out.dtype == np.float64 and out.shape == (len(cells),)
@@ -106,7 +101,6 @@ def test_odd_input_raises_only_qcdataerror(cells, as_column):
 def test_finite_numbers_come_back_unchanged(values):
     frame = pd.DataFrame({"v": values})
     np.testing.assert_array_equal(finite_column(frame, "v", "value"), values)
-    np.testing.assert_array_equal(finite_array(values, "values"), values)
 
 
 # ---- numbers written as text (issue 13) -------------------------------------------------------

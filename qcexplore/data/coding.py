@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 import numbers
-from typing import Any
+from typing import Any, TypeGuard
 
 import numpy as np
 import pandas as pd
@@ -16,7 +16,7 @@ import pandas as pd
 from qcexplore.errors import QCDataError
 
 
-def is_real_number(x: object, *, finite: bool = True) -> bool:
+def is_real_number(x: object, *, finite: bool = True) -> TypeGuard[float]:
     """True for an int or float (numpy's too) that is not a bool, finite unless told otherwise.
 
     Examples
@@ -61,7 +61,7 @@ def real_number(
             f"{name}={shorten(x)} is not {what}: give a single finite number"
             f"{_range(lower, upper, inclusive)}."
         )
-    value = float(x)  # type: ignore[arg-type]
+    value = float(x)
     low_bad = lower is not None and (value < lower or (not inclusive and value == lower))
     high_bad = upper is not None and (value > upper or (not inclusive and value == upper))
     if low_bad or high_bad:

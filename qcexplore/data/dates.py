@@ -95,11 +95,11 @@ def _date_and_clock(cell: str) -> tuple[str, str]:
     return (cell[:cut], cell[cut:]) if cut > 0 else (cell, "")
 
 
-def _date_shape(date: str) -> tuple[str, dict[str, str | None]] | None:
+def _date_shape(date: str) -> tuple[str, dict[str, str]] | None:
     for shape, pattern in _DATE_PATTERNS.items():
         match = pattern.fullmatch(date)
         if match:
-            return shape, match.groupdict()
+            return shape, match.groupdict("")  # every group of _DATES takes part in its match
     return None
 
 
@@ -117,7 +117,7 @@ def looks_like_dates(text: pd.Series, sample: int = 50) -> bool:
     return bool(cells) and all(_parts_of(c) is not None for c in cells[:sample])
 
 
-def _parts_of(cell: str) -> tuple[str, dict[str, str | None], dict[str, str | None]] | None:
+def _parts_of(cell: str) -> tuple[str, dict[str, str], dict[str, str | None]] | None:
     """The shape of a cell's date, its date parts and its clock parts; None if no date."""
     date, clock = _date_and_clock(cell)
     shape = _date_shape(date)
@@ -217,11 +217,11 @@ def read_date_text(
 def _timestamps(text: np.ndarray, date_format: str | None) -> pd.Series:
     """Parsed text; offsets that differ are kept as instants in UTC."""
     cells = pd.Series(text, dtype=object)
-    how = {"format": date_format or "ISO8601", "errors": "coerce"}
+    how = date_format or "ISO8601"
     try:
-        return pd.to_datetime(cells, **how)
+        return pd.to_datetime(cells, format=how, errors="coerce")
     except (ValueError, TypeError):  # several offsets, or offsets with local times
-        return pd.to_datetime(cells, utc=True, **how)
+        return pd.to_datetime(cells, utc=True, format=how, errors="coerce")
 
 
 def _dates_as_iso(
@@ -235,14 +235,12 @@ def _dates_as_iso(
     clocks = {clock: _clock_iso(clock) for clock in {c for _, c in split}}
     order = _numbers_order(list(dates.values()), column, dayfirst)
     date_iso = {date: _date_iso(shape, order) if shape else None for date, shape in dates.items()}
+    pairs = [(date_iso[d], clocks[c]) for d, c in split]
     iso = np.array(
-        [
-            date_iso[d] + clocks[c][0] if date_iso[d] and clocks[c] is not None else ""
-            for d, c in split
-        ],
+        [date + clock[0] if date and clock is not None else "" for date, clock in pairs],
         dtype=object,
     )
-    aware = np.array([clocks[c] is not None and clocks[c][1] for _, c in split], dtype=bool)
+    aware = np.array([clock is not None and clock[1] for _, clock in pairs], dtype=bool)
     shapes = {shape[0] for shape in dates.values() if shape}
     if "numbers" not in shapes:
         order = "year first" if "year first" in shapes or not shapes else "month names"
@@ -250,7 +248,7 @@ def _dates_as_iso(
 
 
 def _numbers_order(
-    found: list[tuple[str, dict[str, str | None]] | None],
+    found: list[tuple[str, dict[str, str]] | None],
     column: object,
     dayfirst: bool | None,
 ) -> str:
@@ -291,22 +289,23 @@ def _numbers_order(
     )
 
 
-def _date_iso(found: tuple[str, dict[str, str | None]], order: str) -> str | None:
+def _date_iso(found: tuple[str, dict[str, str]], order: str) -> str | None:
     """A date's parts as ISO 8601 text (YYYY-MM-DD), or None when they cannot be one."""
     shape, g = found
+    month: str | int | None
     if shape == "numbers":
         one, two = g["one"], g["two"]
         day, month = (one, two) if order.startswith(DAY_FIRST) else (two, one)
     elif shape == "year first":
         day, month = g["day"], g["month"]
     else:
-        day, month = g["day"], _MONTHS.get((g["name"] or "").lower())
+        day, month = g["day"], _MONTHS.get(g["name"].lower())
     if month is None:
         return None
-    year = int(g["year"] or 0)
-    if len(g["year"] or "") == 2:
+    year = int(g["year"])
+    if len(g["year"]) == 2:
         year += 1900 if year >= 69 else 2000
-    return f"{year:04d}-{int(month):02d}-{int(day or 0):02d}"
+    return f"{year:04d}-{int(month):02d}-{int(day):02d}"
 
 
 def _clock_iso(clock: str) -> tuple[str, bool] | None:

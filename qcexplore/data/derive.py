@@ -56,33 +56,14 @@ def _wall_clock(times: pd.Series) -> tuple[np.ndarray, np.ndarray]:
 
 def _shift_slots(
     days: np.ndarray, minutes: np.ndarray, shifts: Mapping[str, str]
-) -> tuple[pd.Categorical, np.ndarray]:
+) -> tuple[pd.Categorical[str], np.ndarray]:
     """Shift of each minute of the day, and the production day (the day its shift began)."""
     starts = shift_starts(shifts)
     slot = np.searchsorted(np.array([m for m, _ in starts]), minutes, side="right") - 1
     before_first = slot < 0
     slot = np.where(minutes < 0, -1, np.where(before_first, len(starts) - 1, slot))
-    shift = pd.Categorical.from_codes(slot, categories=[name for _, name in starts])
+    shift = pd.Categorical.from_codes(slot, categories=pd.Index([name for _, name in starts]))
     return shift, days - before_first.astype("timedelta64[D]")
-
-
-def assign_shifts(times: pd.Series, shifts: Mapping[str, str]) -> tuple[pd.Series, pd.Series]:
-    """Shift name and production day of each timestamp.
-
-    Shifts start at local wall-clock times and run to the next start; a shift
-    that runs past midnight belongs to the day it started. Clock times are read
-    in each timestamp's own time zone, so the assignment stays right across a
-    daylight-saving change (a night shift is an hour shorter or longer that night).
-
-    Examples
-    --------
-    >>> t = pd.Series(pd.to_datetime(["2026-03-02 23:00", "2026-03-03 05:59"]))
-    >>> names, days = assign_shifts(t, {"early": "06:00", "late": "14:00", "night": "22:00"})
-    >>> names.tolist(), days.astype(str).tolist()
-    (['night', 'night'], ['2026-03-02', '2026-03-02'])
-    """
-    shift, day = _shift_slots(*_wall_clock(times), shifts)
-    return pd.Series(shift, index=times.index), pd.Series(day, index=times.index).dt.date
 
 
 def _present(codes: np.ndarray, labels: Sequence[Any], index: pd.Index) -> pd.Series:
@@ -92,7 +73,7 @@ def _present(codes: np.ndarray, labels: Sequence[Any], index: pd.Index) -> pd.Se
     # The new code of each old one; the last entry, -1, is what code -1 (missing) reads.
     renumber = np.r_[np.cumsum(used) - 1, -1].astype(np.int8)
     kept = [label for label, keep in zip(labels, used, strict=True) if keep]
-    return pd.Series(pd.Categorical.from_codes(renumber[codes], categories=kept), index=index)
+    return pd.Series(pd.Categorical.from_codes(renumber[codes], pd.Index(kept)), index=index)
 
 
 def derive_time_factors(
@@ -100,9 +81,13 @@ def derive_time_factors(
 ) -> dict[str, pd.Series]:
     """Weekday, hour (and shift and production day when ``shifts`` is given) as categoricals.
 
-    With shifts, the weekday is that of the production day, so the Monday night
-    shift's early-morning samples count as Monday. Each distinct day is named and given
-    its weekday once, whatever the number of rows on it.
+    Shifts start at local wall-clock times and run to the next start; a shift that runs
+    past midnight belongs to the day it started. Clock times are read in each timestamp's
+    own time zone, so the assignment stays right across a daylight-saving change (a night
+    shift is an hour shorter or longer that night). With shifts, the weekday is that of
+    the production day, so the Monday night shift's early-morning samples count as Monday.
+    Each distinct day is named and given its weekday once, whatever the number of rows on
+    it.
 
     Examples
     --------

@@ -17,7 +17,7 @@ import os
 import re
 from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal, TypedDict
 
 import numpy as np
 import pandas as pd
@@ -122,6 +122,16 @@ def _delimiter(lines: list[str], suffix: str) -> str:
     return best
 
 
+class _CsvOptions(TypedDict):
+    """The arguments of pd.read_csv that every delimited file is read with."""
+
+    sep: str
+    dtype: type[str]
+    skipinitialspace: bool
+    index_col: Literal[False]
+    skiprows: int
+
+
 def _read_delimited(
     path: Path,
     progress: Progress | None,
@@ -143,7 +153,7 @@ def _read_delimited(
             raise QCDataError(f"{path.name} has no header line after 'sep=': export it again.")
     else:
         delimiter = _delimiter(lines, path.suffix.lower())
-    options = dict(
+    options = _CsvOptions(
         sep=delimiter,
         dtype=str,
         skipinitialspace=True,

@@ -8,11 +8,12 @@ a thousand times too large or small.
 from __future__ import annotations
 
 import re
-from collections.abc import Hashable, Mapping, Sequence
+from collections.abc import Hashable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from pandas.api.extensions import ExtensionDtype
 
 from qcexplore.data.coding import is_real_number
 from qcexplore.data.coding import shorten as shown
@@ -134,6 +135,7 @@ def read_number_text(
     kinds = [None if c in MISSING_TEXT else _number_kind(c) for c in cells]
     present = {k for k in kinds if k}
     in_column = tuple(mark for mark, kind in ((".", "point"), (",", "comma")) if kind in present)
+    settle: str | None
     if decimal is not None:
         settle = decimal
     elif in_column:
@@ -195,7 +197,7 @@ def _number_reading(cell: str, kind: str | None, settle: str | None) -> tuple[fl
     return value, used, groups + gaps
 
 
-def is_measurement_dtype(dtype: object) -> bool:
+def is_measurement_dtype(dtype: np.dtype | ExtensionDtype) -> bool:
     """Whether a column's dtype holds real numbers (not true/false, not complex).
 
     Examples
@@ -242,7 +244,7 @@ def number_cells(series: pd.Series) -> NumberText:
     is_text = np.array([isinstance(v, str) for v in cells], dtype=bool)
     missing = ~number & ~is_text & np.array([is_missing_cell(v) for v in cells], dtype=bool)
     odd = ~number & ~is_text & ~missing
-    read = read_number_text(pd.Series(np.where(is_text, cells, None), dtype=object))
+    read = read_number_text(pd.Series(cells, dtype=object).where(is_text, None))
     values = read.values.copy()
     values[number] = [cell_float(v) for v in cells[number]]
     values[odd] = np.nan
@@ -290,7 +292,7 @@ def numeric_values(frame: pd.DataFrame, column: Hashable) -> pd.Series:
     return pd.Series(read.values, index=series.index, name=series.name)
 
 
-def unsettled_message(column: object, read: NumberText, cells: Sequence[object]) -> str:
+def unsettled_message(column: object, read: NumberText, cells: np.ndarray) -> str:
     """The message for cells whose decimal mark is in doubt (see :func:`read_number_text`)."""
     doubt = f"{cell_examples(cells, read.unsettled)} in {row_list(read.unsettled)}"
     marks = "; ".join(

@@ -56,7 +56,7 @@ def to_long(
     else:
         keep = list(column_names(keep, "keep"))
         require_columns(frame, keep, "keep")
-        kept = [frame.columns.get_loc(c) for c in keep]
+        kept = frame.columns.get_indexer(pd.Index(keep)).tolist()
     sample = column_name(sample, "sample")
     value = column_name(value, "value")
     clash = {sample, value} & set(frame.columns[kept])
@@ -71,8 +71,8 @@ def to_long(
     # column named None or NaN cannot be looked up by its name.
     ids = frame.iloc[np.repeat(np.arange(len(frame)), k), kept].reset_index(drop=True)
     positions = np.tile(np.arange(k), len(frame))
-    ids[sample] = pd.Categorical.from_codes(positions, categories=[str(c) for c in sample_columns])
-    block = frame.iloc[:, [frame.columns.get_loc(c) for c in sample_columns]]
+    ids[sample] = pd.Categorical.from_codes(positions, pd.Index([str(c) for c in sample_columns]))
+    block = frame.iloc[:, frame.columns.get_indexer(pd.Index(sample_columns)).tolist()]
     if all(is_measurement_dtype(dtype) for dtype in block.dtypes):
         ids[value] = block.to_numpy(dtype=np.float64, na_value=np.nan).reshape(-1)
         return ids

@@ -42,7 +42,7 @@ def row_list(positions: Iterable[int]) -> str:
     return f"row{'s' if len(rows) > 1 else ''} {listed}{more}"
 
 
-def cell_examples(cells: Sequence[object], positions: np.ndarray, count: int = 3) -> str:
+def cell_examples(cells: np.ndarray, positions: np.ndarray, count: int = 3) -> str:
     return ", ".join(shown(cells[int(i)]) for i in positions[:count])
 
 
@@ -116,9 +116,9 @@ e.g. value='weight'.
     """
     if name is None and optional:
         return None
-    whole_number = is_real_number(name) and float(name).is_integer()  # type: ignore[arg-type]
+    whole_number = is_real_number(name) and float(name).is_integer()
     if isinstance(name, str) or whole_number:
-        return name  # type: ignore[return-value]
+        return name
     raise QCDataError(
         f"{role}={shown(name)} is not one column name: give the name as text, e.g. {role}='weight'."
     )
@@ -302,39 +302,6 @@ def _not_numbers(cells: np.ndarray) -> np.ndarray:
     )
 
 
-def _finite(values: pd.Series | np.ndarray, subject: str) -> np.ndarray:
-    """Shared body of finite_column and finite_array; ``subject`` starts every message."""
-    dtype = values.dtype
-    if pd.api.types.is_bool_dtype(dtype):
-        raise QCDataError(
-            f"{subject}: true/false values, not measurements; "
-            "choose the column with the measured values."
-        )
-    if not (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_complex_dtype(dtype)):
-        cells = np.asarray(values, dtype=object).ravel()
-        odd = _not_numbers(cells)
-        if odd.size:
-            raise QCDataError(
-                f"{subject}: cells that are not numbers ({cell_examples(cells, odd)}) in "
-                f"{row_list(odd)}; convert them to numbers first (for instance with "
-                "pd.to_numeric, or read files with qx.read)."
-            )
-        values = np.array(
-            [np.nan if is_missing_cell(v) else cell_float(v) for v in cells], dtype=np.float64
-        )
-    if isinstance(values, pd.Series):
-        array = values.to_numpy(dtype=np.float64, na_value=np.nan)
-    else:
-        array = np.asarray(values, dtype=np.float64).ravel()
-    bad = np.flatnonzero(~np.isfinite(array))
-    if bad.size:
-        raise QCDataError(
-            f"{subject}: missing or infinite values in {row_list(bad)}; "
-            "drop or fill those rows first."
-        )
-    return array
-
-
 def finite_column(frame: pd.DataFrame, column: str, role: str) -> np.ndarray:
     """A numeric column as a float64 array, or a QCDataError naming what is wrong.
 
@@ -365,46 +332,32 @@ def finite_column(frame: pd.DataFrame, column: str, role: str) -> np.ndarray:
 row 2; drop or fill those rows first.
     """
     require_columns(frame, [column], role)
-    return _finite(frame[column], f"Column {column!r} given as {role}")
-
-
-def finite_array(values: object, role: str) -> np.ndarray:
-    """Numbers passed as an array or list, as a flat float64 array, or a QCDataError.
-
-    The same checks as :func:`finite_column` for functions that take values rather
-    than a table: numbers only (no true/false, no text) and all finite. Rows in
-    messages are 1-based positions in ``values``.
-
-    Parameters
-    ----------
-    values : array, list or Series of numbers
-    role : what the values are (for instance ``"capability values"``), named in messages
-
-    Returns
-    -------
-    numpy.ndarray
-        The values as a 1-d float64 array.
-
-    Examples
-    --------
-    >>> finite_array([1, 2.5], "capability values")
-    array([1. , 2.5])
-    >>> finite_array([1.0, "a"], "capability values")
-    Traceback (most recent call last):
-    ...
-    qcexplore.errors.QCDataError: capability values: cells that are not numbers ('a') in row 2; \
-convert them to numbers first (for instance with pd.to_numeric, or read files with qx.read).
-    """
-    if not isinstance(values, (pd.Series, np.ndarray)):
-        # As objects each cell keeps its own type: [1.0, "a"] or [True, 1] would be cast.
-        values = _object_array(values)
-    return _finite(values, role)
-
-
-def _object_array(values: object) -> np.ndarray:
-    """A flat object array of the given cells (a scalar is one cell)."""
-    if isinstance(values, (str, bytes)) or not np.iterable(values):
-        values = [values]
-    cells = np.empty(len(values), dtype=object)
-    cells[:] = list(values)
-    return cells
+    subject = f"Column {column!r} given as {role}"
+    values = frame[column]
+    dtype = values.dtype
+    if pd.api.types.is_bool_dtype(dtype):
+        raise QCDataError(
+            f"{subject}: true/false values, not measurements; "
+            "choose the column with the measured values."
+        )
+    if pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_complex_dtype(dtype):
+        array = values.to_numpy(dtype=np.float64, na_value=np.nan)
+    else:
+        cells = values.to_numpy(dtype=object)
+        odd = _not_numbers(cells)
+        if odd.size:
+            raise QCDataError(
+                f"{subject}: cells that are not numbers ({cell_examples(cells, odd)}) in "
+                f"{row_list(odd)}; convert them to numbers first (for instance with "
+                "pd.to_numeric, or read files with qx.read)."
+            )
+        array = np.array(
+            [np.nan if is_missing_cell(v) else cell_float(v) for v in cells], dtype=np.float64
+        )
+    bad = np.flatnonzero(~np.isfinite(array))
+    if bad.size:
+        raise QCDataError(
+            f"{subject}: missing or infinite values in {row_list(bad)}; "
+            "drop or fill those rows first."
+        )
+    return array

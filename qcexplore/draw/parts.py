@@ -392,16 +392,14 @@ def increasing(x: np.ndarray) -> bool:
     return bool(np.all(x[1:] > x[:-1]))
 
 
-def steps(
-    x: np.ndarray, lines: Mapping[str, np.ndarray], pad: float, panel: str = "all"
-) -> dict[str, np.ndarray]:
+def steps(x: np.ndarray, lines: Mapping[str, np.ndarray], pad: float) -> dict[str, np.ndarray]:
     """Centre and limit lines as steps: one piece per run of equal values, plus risers.
 
     ``lines`` maps ``"center"`` and any limit names to one value per point. On each line,
     each run of points with equal values becomes one horizontal piece,
     reaching from its first point's left edge to its last point's right edge (see
     :func:`boundaries`); consecutive runs are joined by vertical risers. Returns the
-    columns ``x0, y0, x1, y1, role`` (``"center"`` or ``"limit"``) and ``panel``.
+    columns ``x0, y0, x1, y1, role`` (``"center"`` or ``"limit"``).
 
     Examples
     --------
@@ -426,8 +424,7 @@ def steps(
         parts.append({"x0": rise, "y0": level[:-1], "x1": rise, "y1": level[1:], "role": role})
     for part in parts:
         part["role"] = np.full(part["x0"].size, part["role"], dtype=object)
-        part["panel"] = np.full(part["x0"].size, panel, dtype=object)
-    return concat(parts, ("x0", "y0", "x1", "y1", "role", "panel"))
+    return concat(parts, ("x0", "y0", "x1", "y1", "role"))
 
 
 def line_ends(x: np.ndarray, lines: Mapping[str, np.ndarray], pad: float) -> dict:

@@ -14,7 +14,7 @@ Names (layout / figures / sources and their columns):
 - :func:`anom_figure`: ``"anom_layout"``, figure ``"anom"``; ``"anom_points"``
   (``x, value, level, lower, upper, p, color``), ``"anom_signals"`` (the levels that
   the result's ``signal`` column marks: their mean lies outside its decision limits),
-  ``"anom_limits"`` (``x0, y0, x1, y1, role, panel``: decision limits dashed, their
+  ``"anom_limits"`` (``x0, y0, x1, y1, role``: decision limits dashed, their
   midpoint solid) and ``"anom_limit_values"`` (``x, y, text, anchor``: the values
   written at the right end of those lines). Levels sit at x = 1..L.
 - :func:`components_figure`: ``"components_layout"``, figure ``"components"``;
