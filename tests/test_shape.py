@@ -18,8 +18,8 @@ from scipy import signal
 from qcexplore.demo import filling_line
 from qcexplore.errors import QCDataError
 from qcexplore.stats.onset import ramp_rss
-from qcexplore.stats.shape import CHANGE_COST, change_shape, explains, onset_likelihood
-from qcexplore.stats.streams import level_share, stream_contrast, subgroup_means
+from qcexplore.stats.shape import CHANGE_COST, change_shape, onset_likelihood
+from qcexplore.stats.streams import explains, level_share, stream_contrast, subgroup_means
 
 DAY = pd.Timedelta(days=1)
 

@@ -128,7 +128,7 @@ def _time_axis(times: object, origin: object) -> np.ndarray:
     """Times as floats from ``origin``: days for timestamps, else the times' own unit."""
     stamps = np.asarray(times).ravel()
     if stamps.dtype.kind == "M":  # the common case, without pandas' per-call cost
-        days = (stamps - np.datetime64(origin, "ns")) / np.timedelta64(1, "D")
+        days = (stamps - np.asarray(origin, dtype="datetime64[ns]")) / np.timedelta64(1, "D")
         return np.asarray(days, dtype=np.float64)
     if isinstance(origin, (pd.Timestamp, np.datetime64)):  # time-zone aware: elapsed days
         return np.asarray((pd.DatetimeIndex(stamps) - pd.Timestamp(origin)) / pd.Timedelta(days=1))
@@ -212,17 +212,20 @@ def onset_likelihood(
 class ShapeFit:
     """The shape of the change in one series, chosen among offset, step and drift.
 
-    ``shape`` is ``"offset"`` (a stream: its difference from the other levels is constant),
-    ``"none"`` (the process: its level is constant), ``"step"`` or ``"drift"``. ``onset``
-    is the index of the first point at the new level (step) or of the last flat point,
-    where the ramp starts (drift), ``start`` that point's time and ``start_range`` the
-    earliest and latest onsets whose likelihood ratio to the best is below the 95 % point
-    of chi-square(1) (approximate for a step). ``level`` is the constant (offset, none) or
-    the level before the onset; ``step`` the step size; ``slope`` the ramp's rise per
-    ``slope_unit`` (``"day"`` for timestamps, ``"time unit"`` for numeric times, ``"point"``
-    without times). ``criteria`` holds each shape's criterion, ``margin`` the second-best
-    minus the best; ``phi`` and ``noise_sd`` describe the noise under the chosen shape
-    (``noise_sd`` for a point of weight 1). ``fitted`` is the fitted mean at each point.
+    ``shape`` is ``"offset"`` (a stream: its difference from the other levels is constant;
+    whether that constant differs from zero is the level comparison's question), ``"none"``
+    (the process: its level is constant), ``"step"`` or ``"drift"``. ``onset`` is the
+    index of the first point at the new level (step) or of the last flat point, where the
+    ramp starts (drift), ``start`` that point's time and ``start_range`` the earliest and
+    latest onsets whose likelihood ratio to the best is below the 95 % point of
+    chi-square(1) (approximate: it held the planted onset in 88-100 % of simulated steps
+    and drifts). ``level`` is the constant (offset, none) or the level before the onset;
+    ``step`` the step size; ``slope`` the ramp's rise per ``slope_unit`` (``"day"`` for
+    timestamps, ``"time unit"`` for numeric times, ``"point"`` without times). ``criteria``
+    holds each shape's criterion (``CRITERION``), ``margin`` the second-best minus the
+    best; ``phi`` and ``noise_sd`` describe the noise under the chosen shape (``noise_sd``
+    for a point of weight 1). ``fitted`` is the fitted mean at each point; ``values``,
+    ``times`` and ``weights`` the series as fitted.
     """
 
     of: str
@@ -329,7 +332,8 @@ def change_shape(
     }
     ranked = sorted(SHAPES, key=criteria.__getitem__)
     model = ranked[0]
-    i_phi, onset = np.unravel_index(int(np.argmin(m2ll[model])), m2ll[model].shape)
+    i_phi, at = np.unravel_index(int(np.argmin(m2ll[model])), m2ll[model].shape)
+    onset = int(at)
     phi = float(PHI_GRID[i_phi])
     design = np.ones((n, 1 if model == "offset" else 2))
     if model == "step":
@@ -349,7 +353,7 @@ def change_shape(
     return ShapeFit(
         of=of,
         shape=name,
-        onset=None if model == "offset" else int(onset),
+        onset=None if model == "offset" else onset,
         start=None if model == "offset" else _moment(stamps, onset),
         start_range=start_range,
         level=float(beta[0]),
@@ -380,75 +384,3 @@ def _least_squares(
     beta, *_ = np.linalg.lstsq(big_x, big_y, rcond=None)
     resid = big_y - big_x @ beta
     return beta, float(resid @ resid)
-
-
-@dataclass(frozen=True, eq=False)
-class Explanation:
-    """Whether a stream's change accounts for the process's change.
-
-    ``process`` is the process's own fit, ``remaining`` the same test on the subgroup means
-    less ``removed`` (each subgroup's share of the stream times the stream's fitted
-    difference at that subgroup's time). ``explained``: the process changed, and without
-    the stream it does not.
-    """
-
-    process: ShapeFit
-    remaining: ShapeFit
-    removed: np.ndarray
-    explained: bool
-
-
-def explains(process: ShapeFit, stream: ShapeFit, share: object) -> Explanation:
-    """Remove a stream's fitted difference from the subgroup means and test the process again.
-
-    A subgroup mean is the other levels' mean plus the stream's share of the subgroup times
-    the stream's difference from them, so subtracting ``share * difference`` leaves the
-    process as if the stream ran like the others. A process step or drift that is gone
-    after that is the stream's change seen in the averages, not a finding of its own.
-
-    Parameters
-    ----------
-    process : ``change_shape(..., of="process")`` of the subgroup means
-    stream : ``change_shape(...)`` of the stream's difference, on the same time axis
-    share : the stream's share of each subgroup's values
-        (:func:`qcexplore.stats.streams.level_share`)
-
-    Examples
-    --------
-    >>> t = np.arange(90.0)
-    >>> noise = np.random.default_rng(2).normal(0.0, 0.3, 90)
-    >>> own = change_shape(np.maximum(0.0, t - 40.0) * 0.2 + noise, t)
-    >>> means = change_shape(0.25 * np.maximum(0.0, t - 40.0) * 0.2 + noise / 4, t, of="process")
-    >>> means.shape, explains(means, own, np.full(90, 0.25)).explained
-    ('drift', True)
-    """
-    if process.of != "process" or stream.of != "stream":
-        raise QCDataError(
-            "explains: give the process fit (of='process') first, then the stream's fit."
-        )
-    timed = {fit.slope_unit == "day" for fit in (process, stream)}
-    if len(timed) > 1 or "point" in (process.slope_unit, stream.slope_unit):
-        raise QCDataError(
-            "explains: fit the process and the stream on the same time axis (both with "
-            "timestamps, or both with numeric times such as subgroup positions)."
-        )
-    weight = finite_array(share, "explains share")
-    if weight.size != process.values.size or np.any((weight < 0) | (weight > 1)):
-        raise QCDataError(
-            f"explains: give {process.values.size} shares between 0 and 1, one per subgroup."
-        )
-    removed = weight * stream.value_at(process.times)
-    remaining = change_shape(
-        process.values - removed,
-        process.times,
-        process.weights,
-        of="process",
-        min_points=process.min_points,
-    )
-    removed.setflags(write=False)
-    return Explanation(
-        process=process,
-        remaining=remaining,
-        removed=removed,
-        explained=process.changed and not remaining.changed,
-    )

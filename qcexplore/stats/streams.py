@@ -9,7 +9,8 @@
   block of time that holds several of its levels (the day, when crews rotate by shift).
 * :func:`subgroup_means`: the process, one mean per subgroup.
 * :func:`level_share`: the level's share of each subgroup's values, which weighs how much
-  of a stream's change reaches the subgroup means (:func:`qcexplore.stats.shape.explains`).
+  of a stream's change reaches the subgroup means;
+* :func:`explains`: whether a stream's fitted change accounts for a change of the process.
 
 Blocks are in time order: by their first time when a time column is given, else in the
 order of the block column (the Study's subgroup column is ordered in time).
@@ -23,8 +24,9 @@ import numpy as np
 import pandas as pd
 
 from qcexplore.data.coding import category_codes
-from qcexplore.data.validate import finite_column, require_columns
+from qcexplore.data.validate import finite_array, finite_column, require_columns
 from qcexplore.errors import QCDataError
+from qcexplore.stats.shape import ShapeFit, change_shape
 from qcexplore.stats.subgroups import group_codes, group_moments
 
 
@@ -154,3 +156,75 @@ def level_share(
     mine = _is_level(frame, factor, level)
     k = len(labels)
     return np.bincount(codes[mine], minlength=k) / np.bincount(codes, minlength=k)
+
+
+@dataclass(frozen=True, eq=False)
+class Explanation:
+    """Whether a stream's change accounts for the process's change.
+
+    ``process`` is the process's own fit, ``remaining`` the same test on the subgroup means
+    less ``removed`` (each subgroup's share of the stream times the stream's fitted
+    difference at that subgroup's time). ``explained``: the process changed, and without
+    the stream it does not.
+    """
+
+    process: ShapeFit
+    remaining: ShapeFit
+    removed: np.ndarray
+    explained: bool
+
+
+def explains(process: ShapeFit, stream: ShapeFit, share: object) -> Explanation:
+    """Remove a stream's fitted difference from the subgroup means and test the process again.
+
+    A subgroup mean is the other levels' mean plus the stream's share of the subgroup times
+    the stream's difference from them, so subtracting ``share * difference`` leaves the
+    process as if the stream ran like the others. A process step or drift that is gone
+    after that is the stream's change seen in the averages, not a finding of its own.
+
+    Parameters
+    ----------
+    process : ``change_shape(..., of="process")`` of the subgroup means
+    stream : ``change_shape(...)`` of the stream's difference, on the same time axis
+    share : the stream's share of each subgroup's values
+        (:func:`qcexplore.stats.streams.level_share`)
+
+    Examples
+    --------
+    >>> t = np.arange(90.0)
+    >>> noise = np.random.default_rng(2).normal(0.0, 0.3, 90)
+    >>> own = change_shape(np.maximum(0.0, t - 40.0) * 0.2 + noise, t)
+    >>> means = change_shape(0.25 * np.maximum(0.0, t - 40.0) * 0.2 + noise / 4, t, of="process")
+    >>> means.shape, explains(means, own, np.full(90, 0.25)).explained
+    ('drift', True)
+    """
+    if process.of != "process" or stream.of != "stream":
+        raise QCDataError(
+            "explains: give the process fit (of='process') first, then the stream's fit."
+        )
+    timed = {fit.slope_unit == "day" for fit in (process, stream)}
+    if len(timed) > 1 or "point" in (process.slope_unit, stream.slope_unit):
+        raise QCDataError(
+            "explains: fit the process and the stream on the same time axis (both with "
+            "timestamps, or both with numeric times such as subgroup positions)."
+        )
+    weight = finite_array(share, "explains share")
+    if weight.size != process.values.size or np.any((weight < 0) | (weight > 1)):
+        raise QCDataError(
+            f"explains: give {process.values.size} shares between 0 and 1, one per subgroup."
+        )
+    removed = weight * stream.value_at(process.times)
+    remaining = change_shape(
+        process.values - removed,
+        process.times,
+        process.weights,
+        of="process",
+        min_points=process.min_points,
+    )
+    removed.setflags(write=False)
+    return Explanation(
+        process=process,
+        remaining=remaining,
+        removed=removed,
+        explained=process.changed and not remaining.changed,
+    )
