@@ -302,6 +302,18 @@ def _not_numbers(cells: np.ndarray) -> np.ndarray:
     )
 
 
+def finite_array(values: object, what: str) -> np.ndarray:
+    """Numbers handed over as an array (not a table's column) as float64, checked as
+    :func:`finite_column` checks a column; ``what`` names them in messages.
+
+    Examples
+    --------
+    >>> finite_array([1, 2.5], "weights")
+    array([1. , 2.5])
+    """
+    return finite_column(pd.DataFrame({what: pd.Series(np.asarray(values).ravel())}), what, what)
+
+
 def finite_column(frame: pd.DataFrame, column: str, role: str) -> np.ndarray:
     """A numeric column as a float64 array, or a QCDataError naming what is wrong.
 
