@@ -227,28 +227,43 @@ def test_bad_min_points_raises_qcdataerror(bad):
         )
 
 
-def test_onset_p_is_the_largest_f_against_its_simulated_null(brute_force_null):
-    # Reference: statsmodels OLS residual sums of squares of the constant model and of the
-    # change model at the onset found give F on 2 and n - 3 degrees of freedom (the onset
-    # and the change are the two extra parameters); its p-value is the share of a null of
-    # the largest F simulated by brute force (4,000 series, QR fits at every position) at
-    # or above it. The two Monte-Carlo p-values (2,000 and 4,000 draws) agree within four
-    # standard errors of their difference.
-    rng = np.random.default_rng(11)
+def step_at_35_of_60(size, noise, seed):
+    """The onset found for a step of ``size`` at point 35 of 60, and the F of its fit from
+    statsmodels OLS residual sums of squares of the constant and of the step at the onset
+    found, on 2 and n - 3 degrees of freedom (the onset and the change are the two extra
+    parameters)."""
     n = 60
-    y = np.where(np.arange(n) >= 35, 0.6, 0.0) + rng.normal(0.0, 1.0, n)
+    y = np.where(np.arange(n) >= 35, size, 0.0) + np.random.default_rng(seed).normal(0, noise, n)
     found = stream_onset(two_streams(y), value="w", subgroup="sg", factor="stream", level="a")
     assert found.model == "step"
     rss0 = sm.OLS(y, np.ones(n)).fit().ssr
     design = np.column_stack([np.ones(n), np.arange(n) >= found.position]).astype(float)
     rss = sm.OLS(y, design).fit().ssr
     assert found.rss == pytest.approx(rss, rel=1e-9)
-    f = ((rss0 - rss) / 2) / (rss / (n - 3))
+    return found, ((rss0 - rss) / 2) / (rss / (n - 3))
+
+
+def test_onset_p_is_the_largest_f_against_its_simulated_null(brute_force_null):
+    # Reference: the F of statsmodels OLS fits (step_at_35_of_60); its p-value is the share
+    # of a null of the largest F simulated by brute force (4,000 series, QR fits at every
+    # position) at or above it. The two Monte-Carlo p-values (2,000 and 4,000 draws) agree
+    # within four standard errors of their difference.
+    found, f = step_at_35_of_60(0.6, 1.0, 11)
     reference = (1 + np.sum(brute_force_null >= f)) / (brute_force_null.size + 1)
     assert 0.005 < reference < 0.3  # a p-value the comparison can resolve
     se = np.sqrt(reference * (1 - reference) * (1 / NULL_DRAWS + 1 / brute_force_null.size))
     assert found.p == pytest.approx(reference, abs=4 * se)
     assert (found.factor, found.level) == ("stream", "a")
+
+
+def test_strong_change_keeps_the_bonferroni_p():
+    # Reference: the F of statsmodels OLS fits (step_at_35_of_60) and its tail on 2 and
+    # n - 3 degrees of freedom (scipy.stats.f); far beyond every simulated F, p is the
+    # Bonferroni bound, that tail times the 2 (n - 9) onsets searched, below the
+    # Monte-Carlo floor 1 / 2001.
+    found, f = step_at_35_of_60(1.5, 0.5, 5)
+    assert found.p == pytest.approx(stats.f.sf(f, 2, 57) * 2 * 51, rel=1e-9)
+    assert found.p < 1 / (NULL_DRAWS + 1)
 
 
 def _p_values(series, times=None):

@@ -18,7 +18,10 @@ step and the ramp searched together, so its null distribution is simulated: the 
 search on ``NULL_DRAWS`` series of independent normal values (the statistic does not
 depend on their mean or scale), seeded and cached per length and search range. The
 p-value is the Monte-Carlo one, (1 + #{simulated F >= F}) / (draws + 1) (Davison and
-Hinkley, Bootstrap Methods and their Application, 1997, ch. 4; from memory).
+Hinkley, Bootstrap Methods and their Application, 1997, ch. 4; from memory), which cannot
+go below 1 / (draws + 1). Far out, the Bonferroni bound (F's tail on 2 and n - 3 degrees of
+freedom times the onsets searched), an upper bound on the p-value at every F, is smaller and
+is quoted instead, so that a strong change keeps a p-value that says how strong it is.
 The simulated series are equally spaced: where subgroups are missing (nights,
 weekends) the ramp sees other times, which moves the size by a few thousandths at most
 (checked by simulation in tests/test_onset.py).
@@ -30,6 +33,7 @@ from functools import lru_cache
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from qcexplore.data.coding import category_codes
 from qcexplore.data.validate import finite_column, require_columns
@@ -94,14 +98,19 @@ def ramp_rss(t: np.ndarray, y: np.ndarray) -> np.ndarray:
         return np.where(sxx > 0, syy - sxy**2 / sxx, np.inf)
 
 
+def _searched(n: int, min_points: int) -> tuple[np.ndarray, np.ndarray]:
+    """Which step positions 1..n-1 and ramp hinges 1..n-2 keep ``min_points`` a side."""
+    step_at, hinge_at = np.arange(1, n), np.arange(1, n - 1)
+    return (
+        (step_at >= min_points) & (step_at <= n - min_points),
+        (hinge_at >= min_points) & (hinge_at <= n - min_points),
+    )
+
+
 def _change_rss(t: np.ndarray, y: np.ndarray, min_points: int) -> tuple[np.ndarray, np.ndarray]:
     """Residual sums of squares of the step at positions 1..n-1 and of the ramp at hinges
-    1..n-2 (along the last axis of ``y``), infinite where a side keeps fewer than
-    ``min_points`` points."""
-    n = y.shape[-1]
-    step_at, hinge_at = np.arange(1, n), np.arange(1, n - 1)
-    step_ok = (step_at >= min_points) & (step_at <= n - min_points)
-    ramp_ok = (hinge_at >= min_points) & (hinge_at <= n - min_points)
+    1..n-2 (along the last axis of ``y``), infinite where not searched."""
+    step_ok, ramp_ok = _searched(y.shape[-1], min_points)
     return np.where(step_ok, _step_rss(y), np.inf), np.where(ramp_ok, ramp_rss(t, y), np.inf)
 
 
@@ -127,16 +136,20 @@ def _null_ratios(n: int, min_points: int) -> np.ndarray:
 
 
 def change_p(ratio: float, n: int, min_points: int) -> float:
-    """Monte-Carlo p-value of the best change model's RSS / RSS0 (the largest F over the
-    onsets searched) for a contrast of ``n`` points, ``min_points`` on each side.
+    """The p-value of the best change model's RSS / RSS0 (the largest F over the onsets
+    searched) for a contrast of ``n`` points, ``min_points`` on each side: Monte-Carlo, or
+    the Bonferroni bound where that is smaller (see the module notes).
 
     Examples
     --------
-    >>> change_p(1.0, 60, 5), change_p(0.0, 60, 5) == 1 / (NULL_DRAWS + 1)
+    >>> change_p(1.0, 60, 5), change_p(0.5, 60, 5) < 1 / (NULL_DRAWS + 1)
     (1.0, True)
     """
     null = _null_ratios(n, min_points)
-    return float((1 + np.searchsorted(null, ratio, side="right")) / (null.size + 1))
+    simulated = float((1 + np.searchsorted(null, ratio, side="right")) / (null.size + 1))
+    searched = sum(int(ok.sum()) for ok in _searched(n, min_points))
+    f = ((1.0 - ratio) / 2.0) / (ratio / (n - 3)) if ratio > 0 else np.inf
+    return min(simulated, float(stats.f.sf(f, 2, n - 3)) * searched)
 
 
 def stream_onset(

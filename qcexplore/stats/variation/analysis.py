@@ -10,12 +10,7 @@ from qcexplore.data.coding import real_number
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import VariationResult
 from qcexplore.stats.variation.anova import anova_table
-from qcexplore.stats.variation.comparisons import (
-    level_comparisons,
-    level_data,
-    marginal_note,
-    spread_table,
-)
+from qcexplore.stats.variation.comparisons import compare_levels, marginal_note, spread_table
 from qcexplore.stats.variation.components import components_table
 from qcexplore.stats.variation.multivari import multivari_rows
 from qcexplore.stats.variation.nesting import nesting_table
@@ -156,11 +151,7 @@ def variation(
     d = design(frame, value, subgroup, factors, nested)
     anova = anova_table(d, pool_above)
     comps, method, comp_notes = components_table(d, anova, components, level)
-    comparisons = (
-        {f.name: level_comparisons(*level_data(d, f), f.levels, alpha) for f in d.factors}
-        if compare
-        else {}
-    )
+    comparisons, compare_notes = compare_levels(d, alpha) if compare else ({}, [])
     spread, spread_notes = spread_table(d, d.factors if compare else [])
     offsets = pd.DataFrame(columns=OFFSET_COLUMNS)
     if measured_by:
@@ -170,7 +161,7 @@ def variation(
     nesting = nesting_table(d, anova)
     notes = [
         *d.notes, *anova.notes, *comp_notes, *_design_notes(d, measured_by, compare),
-        *spread_notes, *nesting.loc[nesting["kind"] == "probably_nested", "note"],
+        *compare_notes, *spread_notes, *nesting.loc[nesting["kind"] == "probably_nested", "note"],
     ]  # fmt: skip
     return VariationResult(
         structure=d.structure,
