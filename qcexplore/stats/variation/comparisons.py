@@ -127,7 +127,8 @@ class LevelFit:
 def level_fit(units: Units, levels: pd.Index) -> LevelFit:
     """Fit unit = block + level by least squares with the blocks absorbed: a levels x levels
     system from counts, whatever the number of blocks."""
-    kept, codes = np.unique(units.codes, return_inverse=True)
+    held = np.bincount(units.codes) > 0
+    kept, codes = np.flatnonzero(held), (np.cumsum(held) - 1)[units.codes]
     k = kept.size
     g = gram(
         units.y, np.ones(units.y.size), units.blocks, units.n_blocks,
