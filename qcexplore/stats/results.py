@@ -345,8 +345,9 @@ class ArlResult:
 class Onset:
     """The fitted onset of a change in one level's contrast with the other levels.
 
-    ``p`` tests the change model against a constant difference (F test, Bonferroni over
-    the onsets searched); NaN when the contrast is too short to test or fits exactly.
+    ``p`` tests the change model against a constant difference (the largest F over the
+    onsets searched, against its simulated null distribution); NaN when the contrast is too
+    short to test or fits exactly.
     """
 
     factor: str

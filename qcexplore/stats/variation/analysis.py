@@ -10,12 +10,7 @@ from qcexplore.data.coding import real_number
 from qcexplore.errors import QCDataError
 from qcexplore.stats.results import VariationResult
 from qcexplore.stats.variation.anova import anova_table
-from qcexplore.stats.variation.comparisons import (
-    level_comparisons,
-    level_data,
-    marginal_note,
-    spread_table,
-)
+from qcexplore.stats.variation.comparisons import compare_levels, marginal_note, spread_table
 from qcexplore.stats.variation.components import components_table
 from qcexplore.stats.variation.multivari import multivari_rows
 from qcexplore.stats.variation.nesting import nesting_table
@@ -101,20 +96,26 @@ def variation(
         subgroup x factor interaction pooled into the residual; negative estimates set to
         zero with a note; ``lower``/``upper`` are Satterthwaite intervals, chi-square for
         the residual, NaN for REML); per-factor
-        ``comparisons`` (``tukey`` pairs (Tukey-Kramer, ``statistic`` the studentized
-        range q); ``effect`` rows: level mean minus the size-weighted overall mean with its
-        ``se`` and t test; ``anom`` rows: level mean, ``lower``/``upper`` the decision
-        limits of the analysis of means, grand mean +- h * se, ``signal`` True where the
-        level mean lies outside them (False on the other rows), and ``p`` the matching
-        adjusted p-value: for equal group sizes (up to 100 levels) h is the exact critical
-        value h(alpha; k, df) of max |mean_i - grand| / se for independent normal means
-        (see ``distributions.anom_cdf``); for unequal sizes the Sidak value
+        ``comparisons``, from the least-squares fit value = block + level: on subgroup
+        means in one block (the one-way analysis) for between-subgroup factors, on
+        subgroup x level cell means with the subgroup as the block otherwise, so that a
+        level missing from some subgroups is compared fairly (the level means are then
+        least-squares means, the fitted level averaged over the subgroups, and
+        ``notes`` says so); ``tukey`` pairs (Tukey-Kramer on those means, each pair with
+        the standard error of its own difference, ``statistic`` the studentized range q);
+        ``effect`` rows: level mean minus the size-weighted average of the level means
+        (size: subgroups or cells of the level) with its ``se`` and t test; ``anom``
+        rows: level mean, ``lower``/``upper`` the decision limits of the analysis of
+        means, that average +- h * se, ``signal`` True where the level mean lies outside
+        them (False on the other rows), and ``p`` the matching adjusted p-value: when the
+        effects are correlated as k equal groups' (equal sizes, every subgroup holding
+        every level; up to 100 levels) h is the exact critical value h(alpha; k, df) of
+        max |mean_i - grand| / se for independent normal means (see
+        ``distributions.anom_cdf``); otherwise the Sidak value
         t(1 - (1 - (1 - alpha)^(1/k)) / 2, df), a documented approximation that is
-        slightly conservative, with Sidak-adjusted p;
-        ``kruskal_wallis``) on subgroup means for between-subgroup
-        factors and on subgroup x level cell means centred on their subgroup otherwise
-        (error df reduced by the number of subgroups less one); each factor's comparisons
-        ignore the other
+        slightly conservative, with Sidak-adjusted p; ``kruskal_wallis`` on the units less
+        their subgroup's fitted effect); no comparisons for levels that never meet in a
+        subgroup (a note says so); each factor's comparisons ignore the other
         factors, and ``notes`` says so when two factors go together (Cramer's V at
         least ``ASSOCIATION_NOTE_V``); ``spread`` (Levene and
         Brown-Forsythe on deviations from the subgroup mean, or on single values; levels
@@ -128,8 +129,9 @@ def variation(
 
     Checked against R's documented examples (PlantGrowth one-way F, InsectSprays
     Kruskal-Wallis), Bates' lme4 book values for Dyestuff and Pastes, statsmodels
-    ``anova_lm`` (Type II) and MixedLM (REML), scipy ``tukey_hsd`` and ``levene``, Nelson's
-    ANOM table and simulation; see tests/test_variation.py.
+    ``anova_lm`` (Type II), MixedLM (REML) and OLS (the comparisons with empty subgroup x
+    level cells), scipy ``tukey_hsd`` and ``levene``, Nelson's ANOM table and simulation;
+    see tests/test_variation.py and tests/test_level_fit.py.
 
     Examples
     --------
@@ -156,11 +158,7 @@ def variation(
     d = design(frame, value, subgroup, factors, nested)
     anova = anova_table(d, pool_above)
     comps, method, comp_notes = components_table(d, anova, components, level)
-    comparisons = (
-        {f.name: level_comparisons(*level_data(d, f), f.levels, alpha) for f in d.factors}
-        if compare
-        else {}
-    )
+    comparisons, compare_notes = compare_levels(d, alpha) if compare else ({}, [])
     spread, spread_notes = spread_table(d, d.factors if compare else [])
     offsets = pd.DataFrame(columns=OFFSET_COLUMNS)
     if measured_by:
@@ -170,7 +168,7 @@ def variation(
     nesting = nesting_table(d, anova)
     notes = [
         *d.notes, *anova.notes, *comp_notes, *_design_notes(d, measured_by, compare),
-        *spread_notes, *nesting.loc[nesting["kind"] == "probably_nested", "note"],
+        *compare_notes, *spread_notes, *nesting.loc[nesting["kind"] == "probably_nested", "note"],
     ]  # fmt: skip
     return VariationResult(
         structure=d.structure,

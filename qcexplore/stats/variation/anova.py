@@ -354,10 +354,11 @@ def anova_table(d: Design, pool_above: float | None = None) -> Anova:
             errors[f.name] = _pooled([w_parts[k] for k in kids], " and ".join(kids))
         elif f.name in inter:
             index = d.within.index(f)
-            ratio = _interaction_coefficients(d, gw, index, w_parts[f.name][1], inter[f.name][1])
-            ratio = ratio[0] / ratio[1]
+            c_f, c_int = _interaction_coefficients(
+                d, gw, index, w_parts[f.name][1], inter[f.name][1]
+            )
             errors[f.name] = _within_error(
-                f.name, inter[f.name], ratio, residual, res_ss, pool_above
+                f.name, inter[f.name], c_f / c_int, residual, res_ss, pool_above
             )
         elif f in crossed and not alone:
             errors[f.name] = Error(

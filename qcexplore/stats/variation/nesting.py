@@ -62,8 +62,9 @@ def _suspect_row(d: Design, f: Factor, anova: Anova) -> dict[str, object] | None
         return None
     present = crosstab(d.subgroup, f) > 0
     coverage = float(present.mean(axis=0).min())
-    ms_f, ms_int, ms_res = (float(table.loc[s, "ms"]) for s in (f.name, name, "residual"))
-    df_int, df_res = float(table.loc[name, "df"]), float(table.loc["residual", "df"])
+    ms, df = table["ms"].astype(float), table["df"].astype(float)
+    ms_f, ms_int, ms_res = (float(ms[s]) for s in (f.name, name, "residual"))
+    df_int, df_res = float(df[name]), float(df["residual"])
     if not (coverage >= NESTED_COVERAGE and df_res > 0 and ms_res > 0):
         return None
     per_cell = d.n / present.sum()

@@ -230,10 +230,11 @@ def _left_out(
     dropped: set[str] = set()
     order = [f.name for f in fs]
     for row in structure[structure["relation"] == "confounded"].itertuples():
-        if row.with_ not in order or row.factor in dropped or row.with_ in dropped:
+        name, other = str(row.factor), str(row.with_)
+        if other not in order or name in dropped or other in dropped:
             continue  # confounded with the subgroup itself: handled below
-        later = max(row.factor, row.with_, key=order.index)
-        earlier = min(row.factor, row.with_, key=order.index)
+        later = max(name, other, key=order.index)
+        earlier = min(name, other, key=order.index)
         dropped.add(later)
         notes.append(
             f"{later!r} is confounded with {earlier!r}: their effects cannot be told apart; "
@@ -272,10 +273,10 @@ def _nested_factors(fs: list[Factor], subgroup: Factor, nested: Mapping[str, str
         if f.name not in nested:
             out.append(f)
             continue
-        parent = by_name.get(nested[f.name], subgroup)
-        pair = parent.codes.astype(np.int64) * f.n_levels + f.codes
+        home = by_name.get(nested[f.name], subgroup)
+        pair = home.codes.astype(np.int64) * f.n_levels + f.codes
         kept, codes = np.unique(pair, return_inverse=True)
-        labels = [f"{parent.levels[c // f.n_levels]}/{f.levels[c % f.n_levels]}" for c in kept]
+        labels = [f"{home.levels[c // f.n_levels]}/{f.levels[c % f.n_levels]}" for c in kept]
         out.append(Factor(f.name, codes.astype(np.intp), pd.Index(labels)))
     return out
 
