@@ -65,9 +65,11 @@ import pandas as pd
 
 from qcexplore.caution import caution
 from qcexplore.data.coding import real_number
+from qcexplore.stats.changes import shape_words
 from qcexplore.stats.results import Evidence, Finding, Onset
 from qcexplore.stats.results import p_text as _p
-from qcexplore.story import told
+from qcexplore.stats.shape import ShapeFit
+from qcexplore.story import rank_group, told
 
 __all__ = ["KINDS", "Finding", "findings", "findings_frame"]
 
@@ -111,7 +113,9 @@ def _num(x: float, digits: int = 3) -> str:
 
 
 def _plural(name: str) -> str:
-    return name if name.endswith("s") else f"{name}s"
+    """The other levels of a factor named without inventing a plural of its name (a column
+    may be called Prüfer or Linie)."""
+    return f"{name.replace('_', ' ')} levels"
 
 
 def _label(factor: str, level: str) -> str:
@@ -244,11 +248,15 @@ def _time_words(ctx: _Context, factor: str, level: str) -> tuple[str, str, bool]
     when = _when(start, "subgroup")
     label = _label(factor, level)
     side = "after" if row["share_after"] >= 0.5 else "before"
+    if np.isfinite(row["offset_joint_se"]) and np.isfinite(row["step_joint_se"]):
+        offset_se = f"se {_num(row['offset_joint_se'], 2)}; "
+        step_se = f" (se {_num(row['step_joint_se'], 2)}, p = {_p(float(row['p_step_joint']))})"
+    else:  # as many parameters as subgroups: nothing is left to estimate the noise
+        offset_se, step_se = "", " (too few subgroups for a standard error)"
     fit = (
         f"estimated together with a step there, its offset is {row['offset_joint']:+.3g}"
-        f"{ctx.unit} (se {_num(row['offset_joint_se'], 2)}; {row['offset_alone']:+.3g}"
-        f"{ctx.unit} on its own) and the step {row['step_joint']:+.3g}{ctx.unit} (se "
-        f"{_num(row['step_joint_se'], 2)}, p = {_p(float(row['p_step_joint']))})"
+        f"{ctx.unit} ({offset_se}{row['offset_alone']:+.3g}{ctx.unit} on its own) and the "
+        f"step {row['step_joint']:+.3g}{ctx.unit}{step_se}"
     )
     if row["confounded"]:
         return (
@@ -298,6 +306,33 @@ def _onset_words(ctx: _Context, found: Onset | None) -> tuple[str, Any]:
     )
 
 
+def _shape_told(ctx: _Context, fit: ShapeFit | None) -> tuple[str, Any, float | None, str]:
+    """How a level's difference changes over time: a title tail for a step or a drift, its
+    start and slope, and the words behind the choice of shape (``stats.changes``)."""
+    if fit is None:
+        return "", None, None, ""
+    behind = " " + " ".join(shape_words(fit, ctx.unit))
+    if fit.shape == "drift" and fit.slope is not None:
+        word = "up" if fit.slope > 0 else "down"
+        per = "day" if fit.slope_unit == "day" else "subgroup"
+        return (
+            f"drifts {word} by {abs(fit.slope):.2g}{ctx.unit} a {per} from around "
+            f"{_when(fit.start)}",
+            fit.start,
+            fit.slope,
+            behind,
+        )
+    if fit.shape == "step" and fit.step is not None:
+        word = "up" if fit.step > 0 else "down"
+        return (
+            f"stepped {word} by {abs(fit.step):.3g}{ctx.unit} around {_when(fit.start)}",
+            fit.start,
+            None,
+            behind,
+        )
+    return "", None, None, behind
+
+
 def _level_finding(
     ctx: _Context,
     factor: str,
@@ -323,8 +358,15 @@ def _level_finding(
         f"other {plural}, {effect_sd:+.2f} within-subgroup sigma"
     )
     time_tail, time_sentence, in_time = _time_words(ctx, factor, level)
+    fit = ctx.evidence.shapes.of(factor, level) if ctx.evidence.shapes is not None else None
+    changing, start, slope, shape_detail = _shape_told(ctx, fit)
     if measured:
-        title = f"{_cap(label)}'s readings are {ctx.amount(effect)} {word} than the other {plural}'"
+        title = (
+            f"{_cap(label)}'s readings {changing}"
+            if changing
+            else f"{_cap(label)}'s readings are {ctx.amount(effect)} {word} than those of the "
+            f"other {plural}"
+        )
         twins = ctx.v.confounded_with(factor)
         if twins:
             # The data cannot say whether the sampling or the confounded factor moved the
@@ -340,17 +382,21 @@ def _level_finding(
                 else " A measurement offset moves the readings, not the product."
             )
         )
-        start, onset = None, ""
+        onset = ""
     else:
-        title = f"{_cap(label)} runs {ctx.amount(effect)} {word} than the other {plural}"
+        title = (
+            f"{_cap(label)} {changing}"
+            if changing
+            else f"{_cap(label)} runs {ctx.amount(effect)} {word} than the other {plural}"
+        )
         evidence += f"; its effect against the overall mean is {estimate:+.3g}{ctx.unit}."
-        onset, start = "", None
-        if ctx.v.relation(factor) == "within_subgroup":
+        onset = ""
+        if fit is None and ctx.v.relation(factor) == "within_subgroup":
             onset, start = _onset_words(ctx, ctx.evidence.onset(factor, level))
-        if start is not None:
-            title += f", from around {_when(start)}"
+            if start is not None:
+                title += f", from around {_when(start)}"
     title += time_tail
-    parts = [evidence + onset] + ([time_sentence] if time_sentence else [])
+    parts = [evidence + onset + shape_detail] + ([time_sentence] if time_sentence else [])
     if np.isfinite(share):
         parts.append(f"{_cap(factor)} accounts for {share:.0%} of the total variance.")
     parts.append(
@@ -373,6 +419,8 @@ def _level_finding(
         strength=abs(effect_sd),
         start=start,
         caveat=caveat,
+        shape=None if fit is None else fit.shape,
+        slope=slope,
     )
 
 
@@ -495,11 +543,15 @@ def _process_shift(
     caveat: str,
     title: str,
     detail: str,
+    shape: str,
+    slope: float | None = None,
 ) -> list[Finding]:
     """The process_shift finding of a confirmed change (its gate: the step test's row)."""
     return [
         Finding(
             kind="process_shift",
+            shape=shape,
+            slope=slope,
             title=title,
             detail=detail,
             effect=effect,
@@ -522,11 +574,8 @@ def _drift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
     timed = pd.notna(drift.time)
     start, what = (drift.time, "time") if timed else (drift.subgroup, "subgroup")
     days = (ts.series["start"].iloc[-1] - drift.time) / pd.Timedelta(days=1) if timed else 0.0
-    rate = (
-        f"{effect / days:+.3g}{ctx.unit} per day"
-        if days > 0
-        else f"{drift.slope:+.3g}{ctx.unit} per subgroup"
-    )
+    slope = effect / days if days > 0 else float(drift.slope)
+    rate = f"{slope:+.3g}{ctx.unit} per {'day' if days > 0 else 'subgroup'}"
     bic, steps = _bic(ts), len(ts.shifts)
     word = "up" if effect > 0 else "down"
     caveat = (
@@ -540,6 +589,8 @@ def _drift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
         effect=effect,
         start=start,
         caveat=caveat,
+        shape="drift",
+        slope=slope,
         title=f"The process average drifted {word} by {ctx.amount(effect)} from around "
         f"{_when(start, what)}",
         detail=(
@@ -590,6 +641,7 @@ def _shift_finding(ctx: _Context, row: Any, p_adjusted: float) -> list[Finding]:
         effect=effect,
         start=start,
         caveat=caveat,
+        shape="step",
         title=f"The process average stepped {word} by {ctx.amount(effect)} around "
         f"{_when(start, what)}",
         detail=(
@@ -613,6 +665,7 @@ def _autocorrelation_finding(ctx: _Context, p: float, p_adjusted: float) -> list
         # residuals: that is no evidence of autocorrelation (see TimeResult.explanation).
         return []
     phi, se = ts.ar1.phi, ts.ar1.se
+    points = "single values" if ctx.evidence.subgroup is None else "subgroup averages"
     n = len(ts.series)
     chosen = str(ts.level_models.loc[ts.level_models["chosen"], "model"].iloc[0])
     about = _ABOUT[chosen]
@@ -647,12 +700,12 @@ def _autocorrelation_finding(ctx: _Context, p: float, p_adjusted: float) -> list
     return [
         Finding(
             kind="autocorrelation",
-            title=f"Consecutive subgroup averages {title}{about} (phi = {phi:.2f})",
+            title=f"Consecutive {points} {title}{about} (phi = {phi:.2f})",
             detail=(
-                f"The subgroup averages{_adjusted_words(ctx.evidence)} {behave}"
+                f"The {points}{_adjusted_words(ctx.evidence)} {behave}"
                 f"{about}: lag-1 autocorrelation phi = {phi:.3f} ({spread}AR(1) fit), "
                 f"likelihood-ratio p = {_p(p)}, adjusted p = {_p(p_adjusted)} (Holm over "
-                f"{ctx.n_tests} tests){evidence} The {n} averages carry about as much "
+                f"{ctx.n_tests} tests){evidence} The {n} {points} carry about as much "
                 f"information as {ts.effective_n:.0f} independent ones (N(1 - phi)/(1 + phi)). "
                 f"{caveat}"
             ),
@@ -703,10 +756,51 @@ def _out_of_control_finding(ctx: _Context, p: float, p_adjusted: float) -> list[
     ]
 
 
+def _explained(ctx: _Context, found: list[Finding]) -> list[Finding]:
+    """One cause, one card: a process change that a named level's change accounts for, and a
+    spread difference of a level that steps or drifts, point to that level's finding and
+    stand behind the causes (``explained_by``)."""
+    shapes = ctx.evidence.shapes
+    causes = {
+        (f.factor, f.level): f
+        for f in found
+        if f.kind in ("stream_difference", "measurement_offset") and f.shape in ("step", "drift")
+    }
+    explaining = [causes[k] for k in (shapes.explaining() if shapes else []) if k in causes]
+    out = []
+    for f in found:
+        if f.kind == "process_shift" and explaining:
+            cause = explaining[0]
+            label = _label(cause.factor or "", cause.level or "")
+            f = replace(
+                f,
+                title=f"{f.title}: this is {label}'s {cause.shape} seen in the averages",
+                detail=f"{f.detail} With {label}'s fitted {cause.shape} taken out of the "
+                "subgroup averages (in proportion to its share of each subgroup), the same test "
+                "finds no change of the process (stats.streams.explains).",
+                explained_by=cause.title,
+            )
+        elif f.kind == "spread_difference" and (f.factor, f.level) in causes:
+            cause = causes[(f.factor, f.level)]
+            f = replace(
+                f,
+                detail=f"{f.detail} A level whose output {cause.shape}s over the record looks "
+                f"more spread out for that reason alone: read it with the {cause.shape} "
+                "finding first.",
+                explained_by=cause.title,
+            )
+        out.append(f)
+    return out
+
+
 def _cross_references(ctx: _Context, found: list[Finding]) -> list[Finding]:
     """Point each symptom to the findings that can cause it."""
     kinds = {f.kind for f in found}
-    drifts = [f for f in found if f.kind == "stream_difference" and f.start is not None]
+    drifts = [
+        f
+        for f in found
+        if f.kind == "stream_difference" and f.start is not None and f.explained_by is None
+    ]
     out = []
     for f in found:
         extra = ""
@@ -727,7 +821,7 @@ def _cross_references(ctx: _Context, found: list[Finding]) -> list[Finding]:
                     f" With the measured_by offsets removed, {count} of {n} points lie beyond "
                     "the limits."
                 )
-        elif f.kind in ("process_shift", "autocorrelation") and drifts:
+        elif f.kind in ("process_shift", "autocorrelation") and drifts and not f.explained_by:
             names = ", ".join(f"{_label(d.factor, d.level)}" for d in drifts)
             extra = f" The change found in {names} (see its finding) moves the average too."
         elif f.kind == "spread_difference" and any(
@@ -935,9 +1029,9 @@ def findings(
     >>> from qcexplore.demo import filling_line
     >>> s = qx.Study(filling_line()[0], value="net_g", subgroup="round", time="taken_at",
     ...              factors=["crew", "nozzle"], measured_by=["crew"], units="g")
-    >>> overview, top = findings(s.evidence())[:2]  # where the variation comes from, first
-    >>> overview.kind, top.kind, top.level
-    ('variance_split', 'measurement_offset', 'B')
+    >>> first, second = findings(s.evidence())[:2]  # the causes first
+    >>> (first.kind, first.level), (second.kind, second.level, second.shape)
+    (('measurement_offset', 'B'), ('stream_difference', '4', 'drift'))
     """
     alpha = real_number("alpha", alpha, lower=0, upper=1, inclusive=False, what="a level")
     if min_effect is not None:
@@ -958,9 +1052,8 @@ def findings(
     for test in evidence.tests.itertuples():
         if test.p_adjusted < alpha:
             found += _maker(ctx, test, min_share)(ctx, float(test.p_adjusted))
-    found = _cross_references(ctx, found)
-    found.sort(key=lambda f: -f.strength)
+    found = _cross_references(ctx, _explained(ctx, found))
     notes = (
         _confounded_notes(ctx) + _nesting_notes(ctx) + _time_notes(ctx) if ctx.v is not None else []
     ) + _capability_note(ctx)
-    return told(found + notes, evidence)
+    return told(sorted(found + notes, key=lambda f: (rank_group(f), -f.strength)), evidence)

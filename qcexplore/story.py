@@ -25,22 +25,43 @@ def _amount(x: float, unit: str) -> str:
 
 
 def _other(factor: str) -> str:
-    return f"the other {factor if factor.endswith('s') else factor + 's'}"
+    # Level names are never made plural by adding letters: a column may be called Linie.
+    return f"the other {factor} levels"
 
 
-def _sentence(f: Finding, unit: str) -> str:
+def _change(f: Finding, unit: str) -> str:
+    """The change of a level's difference over time in plain words (empty for an offset)."""
+    if f.shape == "drift" and f.slope is not None:
+        return f" Its output moves by {_amount(f.slope, unit)} a day from the time shown on."
+    if f.shape == "step":
+        return " Its difference began at the time shown: something changed then."
+    return ""
+
+
+def _sentence(f: Finding, unit: str, individuals: bool) -> str:
     """One sentence a team understands, in plain words, for a finding of each kind."""
     factor, level = f.factor or "", f.level or ""
     way = "higher" if f.effect > 0 else "lower"
+    if f.explained_by:
+        return f"This comes from another finding ({f.explained_by}): act on that one first."
+    averages = "single values" if individuals else "subgroup averages"
+    together = (
+        f"Consecutive {averages} move together, so the process wanders; limits that assume "
+        "independent points flag too many of them: look for a slow cause."
+        if f.effect >= 0
+        else f"Consecutive {averages} alternate, a high one after a low one: a sign of "
+        "adjusting the process after every reading (common practice), or of two streams taken "
+        "in turn."
+    )
     words = {
         "measurement_offset": (
             f"{factor.capitalize()} {level} reads {_amount(f.effect, unit)} {way} than "
             f"{_other(factor)}. {factor.capitalize()} describes how the samples are taken or "
-            "measured, so the readings move, not necessarily the product."
+            "measured, so the readings move, not necessarily the product." + _change(f, unit)
         ),
         "stream_difference": (
-            f"{factor.capitalize()} {level} puts out {_amount(f.effect, unit)} {way} than "
-            f"{_other(factor)}: a difference in the product itself."
+            f"{factor.capitalize()} {level} puts out {_amount(f.effect, unit)} {way} on average "
+            f"than {_other(factor)}: a difference in the product itself." + _change(f, unit)
         ),
         "spread_difference": (
             f"{factor.capitalize()} {level} varies more than {_other(factor)}: "
@@ -50,10 +71,7 @@ def _sentence(f: Finding, unit: str) -> str:
             f"The process average moved by {_amount(f.effect, unit)}: find out what changed "
             "at that time."
         ),
-        "autocorrelation": (
-            "Consecutive subgroup averages move together, so the process wanders between "
-            "subgroups; limits from the variation within subgroups are too narrow for it."
-        ),
+        "autocorrelation": together,
         "stratified_subgroups": (
             f"Each subgroup mixes {factor} levels that differ, which widens the ranges and "
             "hides changes between subgroups."
@@ -227,16 +245,38 @@ def variance_split(evidence: Evidence) -> list[Finding]:
     ]
 
 
+#: The board in the order a team should act: the causes the design can separate, then what
+#: the data cannot separate, then the context (where the variation comes from, the time
+#: structure, the chart's signals, and the findings another one accounts for), then the
+#: specification.
+CAUSES = (
+    "measurement_offset", "stream_difference", "process_shift", "spread_difference",
+    "stratified_subgroups",
+)  # fmt: skip
+
+
+def rank_group(f: Finding) -> int:
+    """The finding's place in the order of the board (0 first; see ``CAUSES``)."""
+    if f.kind in CAUSES and f.explained_by is None:
+        return 0
+    if f.kind == "confounded":
+        return 1
+    if f.kind == "capability":
+        return 3
+    return 2
+
+
 def told(found: Sequence[Finding], evidence: Evidence) -> list[Finding]:
-    """The findings with their sentence and view, the variance split first."""
+    """The findings with their sentence and view, in the board's order (:func:`rank_group`:
+    the variance split opens the context)."""
     unit = f" {evidence.units}" if evidence.units else ""
     out = [
         replace(
             f,
-            sentence=f.sentence or _sentence(f, unit),
+            sentence=f.sentence or _sentence(f, unit, evidence.subgroup is None),
             view=f.view or _view(f),
             next_step=f.next_step or _next_step(f, evidence),
         )
         for f in found
     ]
-    return variance_split(evidence) + out
+    return sorted(variance_split(evidence) + out, key=rank_group)

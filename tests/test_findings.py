@@ -33,6 +33,7 @@ from qcexplore.stats.evidence import collect_evidence, holm, level_spread
 from qcexplore.stats.results import ChartResult
 from qcexplore.stats.timeseries import time_structure
 from qcexplore.stats.variation import adjusted_values, measurement_offsets, variation
+from qcexplore.story import rank_group
 
 ROLES = dict(
     value="net_g",
@@ -115,7 +116,11 @@ def test_demo_names_the_drifting_nozzle_and_when(demo):
     days = [production_day(f.start) for f in streams if f.start is not None]
     days += [production_day(f.start) for f in found if f.kind == "process_shift"]
     assert any(abs(day - drift["start_day"]) <= 1 for day in days)
-    assert "ramp of" in streams[0].detail and "per day" in streams[0].detail
+    # Its shape: a drift with its slope per day (truth 0.35 g/day), chosen by the stated
+    # criterion, and the phantom process step is this drift seen in the averages.
+    assert streams[0].shape == "drift" and 0.25 < streams[0].slope < 0.5
+    assert "the drift fits best" in streams[0].detail
+    assert all(f.explained_by == streams[0].title for f in found if f.kind == "process_shift")
 
 
 def test_nozzles_coded_as_numbers_give_the_same_stream_finding(demo):
@@ -143,15 +148,24 @@ def test_demo_reports_the_autocorrelation(demo):
 def test_demo_ranking_and_fields(demo):
     study, truth, found = demo
     assert {f.kind for f in found} <= set(KINDS)
-    # The variance split is the overview and comes first (qcexplore.story); then the tested
-    # findings by strength, then the notes.
-    assert found[0].kind == "variance_split"
-    found = found[1:]
+    # The order a team should act in (qcexplore.story.rank_group): the planted causes first,
+    # crew B's offset and nozzle 4's drift; each group by strength; the variance split opens
+    # the context; the findings another accounts for stand behind the causes.
+    assert [(f.kind, f.level, f.shape) for f in found[:2]] == [
+        ("measurement_offset", truth["crew_offset"]["crew"], "offset"),
+        ("stream_difference", truth["nozzle_drift"]["nozzle"], "drift"),
+    ]
+    groups = [rank_group(f) for f in found]
+    assert groups == sorted(groups)
+    for group in set(groups):
+        tested = [
+            f.strength for f in found if rank_group(f) == group and f.kind != "variance_split"
+        ]
+        assert tested == sorted(tested, reverse=True)
+    context = [f for f in found if rank_group(f) == 2]
+    assert context[0].kind == "variance_split"
+    assert all(f.explained_by for f in found if f.kind in ("process_shift", "spread_difference"))
     tested = [f for f in found if np.isfinite(f.p_adjusted)]
-    notes = found[len(tested) :]
-    assert all(f.kind in ("confounded", "capability") for f in notes)
-    strengths = [f.strength for f in tested]
-    assert strengths == sorted(strengths, reverse=True) and min(strengths) > 0
     assert all(f.p_adjusted < 0.05 and f.p_adjusted >= f.p for f in tested if np.isfinite(f.p))
     top = found[0]
     assert top.effect_sd == pytest.approx(top.effect / float(study.chart().limits["sigma"][0]))

@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from qcexplore.stats.changes import change_shapes
 from qcexplore.stats.onset import stream_onset
 from qcexplore.stats.results import (
     BeyondLimits,
@@ -315,6 +316,17 @@ def collect_evidence(
         timing = time_confounding(
             data, value=value, subgroup=subgroup, factors=factors, time=time, steps=tuple(steps)
         )
+    relations = {}
+    if variation is not None:
+        relations = {
+            f: variation.relation(f)
+            for f in factors
+            if variation.relation(f) in ("within_subgroup", "between_subgroups")
+        }
+    shapes = change_shapes(
+        data, value=value, subgroup=subgroup, time=time, relations=relations,
+        individuals=individuals,
+    )  # fmt: skip
     return Evidence(
         chart=chart,
         variation=variation,
@@ -332,4 +344,5 @@ def collect_evidence(
         factors=factors,
         measured_by=measured_by,
         time_confounding=timing,
+        shapes=shapes,
     )

@@ -19,10 +19,13 @@ import html
 import math
 from collections.abc import Iterator, Mapping
 from dataclasses import asdict, dataclass, field, fields
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
+
+if TYPE_CHECKING:
+    from qcexplore.stats.changes import ChangeShapes
 
 _HTML_ROWS = 12
 
@@ -399,7 +402,9 @@ class Evidence(_Result):
     ``time_confounding`` sets each level of the factors constant inside subgroups against
     the changes in time (the steps found, where a level starts or stops appearing;
     ``stats.variation.time_confounding``): ``confounded`` marks a level that cannot be told
-    apart from a change of the process at that time.
+    apart from a change of the process at that time. ``shapes`` the shape of each level's
+    difference over time and of the subgroup means, and which level's change accounts for
+    the process's (``stats.changes``).
     """
 
     chart: ChartResult
@@ -418,6 +423,7 @@ class Evidence(_Result):
     factors: tuple[str, ...]
     measured_by: tuple[str, ...]
     time_confounding: pd.DataFrame = field(default_factory=pd.DataFrame)
+    shapes: ChangeShapes | None = None
     _tables = ("tests", "levels", "level_spread", "time_confounding")
 
     @property
@@ -470,6 +476,11 @@ class Finding:
     ``caveat`` what the design cannot tell, ``sentence`` one sentence a team understands,
     ``next_step`` what would settle it (with the samples it needs), and ``view`` the
     explorer settings that show its evidence (``("view", name)`` first, then options).
+    ``shape`` is the form of the change over time (``"offset"``, ``"step"``, ``"drift"``,
+    or None when no shape was fitted), ``slope`` a drift's change per day (per subgroup
+    without timestamps) in the value's units, and ``explained_by`` the title of the finding
+    that accounts for this one (a process step that is one stream's drift seen in the
+    averages), None when it stands on its own.
 
     Examples
     --------
@@ -496,6 +507,9 @@ class Finding:
     sentence: str = ""
     next_step: str = ""
     view: tuple[tuple[str, Any], ...] = ()
+    shape: str | None = None
+    slope: float | None = None
+    explained_by: str | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """The fields as a plain dict (one row of ``findings.findings_frame``)."""
