@@ -21,7 +21,13 @@ class SparkRunner:
         self._session = session
 
     def fetch(self, sql: str, params: Sequence[Any] = ()) -> pd.DataFrame:
-        return self._session.sql(sql, args=list(params) or None).toPandas()
+        # Through Arrow: pyspark's own pandas conversion checks pandas versions it knows.
+        found = self._session.sql(sql, args=list(params) or None).toArrow().to_pandas()
+        zone = self._session.conf.get("spark.sql.session.timeZone")
+        for name, column in found.items():
+            if isinstance(column.dtype, pd.DatetimeTZDtype):  # wall clock of the session
+                found[name] = column.dt.tz_convert(zone).dt.tz_localize(None)
+        return found
 
     def types(self, relation: str) -> list[tuple[str, str]]:
         schema = self._session.sql(f"SELECT * FROM {relation} LIMIT 0").schema

@@ -368,16 +368,13 @@ class SqlSource:
     ) -> np.ndarray:
         scale = histogram_scale(low, high, bins)
         x = self._double(value)
-        query = Query()
-        inner = (
-            f"SELECT {x} AS x FROM {self._relation} WHERE {self.dialect.finite(x)} "
-            f"AND {self._where(where, query)}"
-        )
+        query = Query()  # markers bound in the order they appear in the text
         low_, scale_, last = query.bind(float(low)), query.bind(scale), query.bind(bins - 1)
         text = (
             f"SELECT LEAST(CAST(FLOOR((x - {low_}) * {scale_}) AS BIGINT), {last}) AS b, "
-            f"COUNT(*) AS n FROM ({inner}) AS q WHERE x >= {query.bind(float(low))} "
-            f"AND x <= {query.bind(float(high))} GROUP BY 1"
+            f"COUNT(*) AS n FROM (SELECT {x} AS x FROM {self._relation} WHERE "
+            f"{self.dialect.finite(x)} AND {self._where(where, query)}) AS q "
+            f"WHERE x >= {query.bind(float(low))} AND x <= {query.bind(float(high))} GROUP BY 1"
         )
         found = self.fetch(query, text)
         counts = np.zeros(bins, dtype=np.int64)
