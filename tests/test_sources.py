@@ -64,7 +64,8 @@ def _load_postgres(postgres, name: str, frame: pd.DataFrame) -> None:
         )
         with connection.cursor().copy(f'COPY "{name}" FROM STDIN') as copy:
             for row in frame.itertuples(index=False):
-                copy.write_row([row.crew, int(row.nozzle), float(row.w), row.t.to_pydatetime()])
+                crew = None if pd.isna(row.crew) else row.crew
+                copy.write_row([crew, int(row.nozzle), float(row.w), row.t.to_pydatetime()])
 
 
 def _source(engine: str, frame: pd.DataFrame, folder: Path, name: str, request):
