@@ -10,6 +10,7 @@ tests check them against the calendar.
 from __future__ import annotations
 
 import json
+import pickle
 from pathlib import Path
 
 import duckdb
@@ -269,11 +270,13 @@ def test_descriptions_reopen_the_same_source(engine, request):
     assert again.fingerprint == checked.fingerprint
     assert set(again.columns) == set(checked.columns)
     _same_moments(again.moments("w", ["weekday"]), checked.moments("w", ["weekday"]))
+    if secret is None:  # a pickle is the description (PostgreSQL: see the next test)
+        assert pickle.loads(pickle.dumps(checked)).fingerprint == checked.fingerprint
 
 
-def test_postgres_password_is_never_shown(postgres):
-    """The password in the URL appears in no repr, str, description or message; the
-    description re-opens with the password given apart."""
+def test_postgres_password_is_never_shown(postgres, monkeypatch):
+    """The password in the URL appears in no repr, str, description, pickle or message; the
+    description re-opens with the password given apart (or found by libpq)."""
     frame = _table(0.0, rows=50)
     _load_postgres(postgres, "secret_check", frame)
     url = postgres.url()
@@ -296,7 +299,12 @@ def test_postgres_password_is_never_shown(postgres):
     assert secret not in str(refused_query.value)
     again = reopen(source.description, password=secret)
     assert again.fingerprint == source.fingerprint
-    for opened in (source, query, again):
+    packed = pickle.dumps(source)
+    assert secret.encode() not in packed
+    monkeypatch.setenv("PGPASSWORD", secret)
+    unpacked = pickle.loads(packed)
+    assert unpacked.fingerprint == source.fingerprint
+    for opened in (source, query, again, unpacked):
         opened.close()
 
 

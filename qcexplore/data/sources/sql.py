@@ -11,7 +11,7 @@ from __future__ import annotations
 import hashlib
 import json
 import threading
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from functools import cached_property
 from typing import Any, Protocol
@@ -165,10 +165,6 @@ class Query:
         return "?"
 
 
-#: Builds the text of a filter for one column from (quoted column, wanted, query).
-_Condition = Callable[[str, Any, Query], str]
-
-
 def _condition(column: str, wanted: Any, query: Query) -> str:
     if isinstance(wanted, Between):
         parts = []
@@ -226,6 +222,10 @@ class SqlSource:
         self._description = dict(description)
         self._centres: dict[str, float] = {}
         self._lock = threading.Lock()
+
+    def __reduce__(self) -> tuple[Any, tuple[dict[str, str]]]:
+        # Pickled as its description: a copy re-opens the engine and carries no secret.
+        return _reopen, (self.description,)
 
     def __repr__(self) -> str:
         words = ", ".join(f"{k}={v!r}" for k, v in self._description.items() if k != "engine")
@@ -597,3 +597,9 @@ class PreparedSource(SqlSource):
 
     def _fingerprint_parts(self) -> list[str]:
         return self._base._fingerprint_parts()
+
+
+def _reopen(description: Mapping[str, str]) -> Any:
+    from qcexplore.data.sources import reopen
+
+    return reopen(description)
