@@ -150,7 +150,7 @@ class FileSource(SqlSource):
         if len(self._files) == 1:
             return row_list(found["row_"].to_numpy() - 1) + more
         parts = [
-            f"{row_list(group['row_'].to_numpy() - 1)} of {Path(file).name}"
+            f"{row_list(group['row_'].to_numpy() - 1)} of {Path(str(file)).name}"
             for file, group in found.groupby("file", sort=True)
         ]
         return "; ".join(parts) + more

@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 from collections.abc import Sequence
 from functools import cached_property
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -24,7 +25,7 @@ from qcexplore.data.validate import require_frame, require_text_names
 from qcexplore.errors import QCDataError
 
 
-def kind_of(dtype: object) -> str:
+def kind_of(dtype: Any) -> str:
     """The Source kind of a pandas dtype."""
     if pd.api.types.is_bool_dtype(dtype):
         return "bool"
@@ -87,7 +88,7 @@ class FrameSource:
 
     @cached_property
     def columns(self) -> dict[str, str]:
-        return {name: kind_of(dtype) for name, dtype in self._frame.dtypes.items()}
+        return {str(name): kind_of(dtype) for name, dtype in self._frame.dtypes.items()}
 
     @property
     def n_rows(self) -> int:

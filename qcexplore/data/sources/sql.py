@@ -591,6 +591,7 @@ class PreparedSource(SqlSource):
         )
         super().__init__(base._runner, relation, description)
         self._base = base
+        self._lock = base._lock  # one connection: one lock
 
     def where_rows(self, condition: str) -> str:
         return self._base.where_rows(condition)
