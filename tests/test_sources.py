@@ -153,6 +153,8 @@ def test_moments_equal_those_in_memory(engine, offset):
     # Cells add up exactly: merged to crews they equal the crews queried directly.
     _same_moments(mine.merge(["crew"]), source.moments("w", ["crew"], time="t"))
     _same_moments(mine.merge(()), memory.merge(()))
+    _same_moments(source.moments("w"), memory.merge(()))
+    _same_moments(memory.merge(()), FrameSource(frame).moments("w"))
 
 
 def test_naive_sums_of_squares_fail_at_1e9(tmp_path):

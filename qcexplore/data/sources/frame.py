@@ -40,14 +40,17 @@ def kind_of(dtype: Any) -> str:
     return "other"
 
 
-def _codes(columns: list[pd.Series]) -> tuple[np.ndarray, int]:
-    """One code per row for the combination of the columns' labels (missing is a label)."""
-    codes = np.zeros(len(columns[0]) if columns else 0, dtype=np.int64)
-    count = 1
-    for column in columns:
+def _codes(columns: list[pd.Series], rows: int) -> tuple[np.ndarray, int]:
+    """One code per row for the combination of the columns' labels (missing is a label),
+    and the number of codes; no columns: one cell of all ``rows``."""
+    if not columns:
+        return np.zeros(rows, dtype=np.intp), int(rows > 0)
+    codes, levels = pd.factorize(columns[0], use_na_sentinel=False)
+    count = len(levels)
+    for column in columns[1:]:
         own, levels = pd.factorize(column, use_na_sentinel=False)
         # Re-factorized at each step, so the combined codes never outgrow the row count.
-        codes, present = pd.factorize(codes * len(levels) + own)
+        codes, present = pd.factorize(codes.astype(np.int64) * len(levels) + own)
         count = len(present)
     return codes.astype(np.intp), count
 
@@ -105,6 +108,12 @@ class FrameSource:
         return {"engine": "memory", "rows": str(self.n_rows)}
 
     # ---- rows under a filter ---------------------------------------------------------------
+    def _columns(self, names: Sequence[str], rows: np.ndarray) -> list[pd.Series]:
+        """The columns at ``rows`` (positions), without a copy when that is every row."""
+        if rows.size == len(self._frame):
+            return [self._frame[name] for name in names]
+        return [self._frame[name].iloc[rows] for name in names]
+
     def _mask(self, where: Where | None) -> np.ndarray:
         keep = np.ones(len(self._frame), dtype=bool)
         if not where:
@@ -158,10 +167,7 @@ class FrameSource:
         x, finite = self._values(value)
         centre = self.centre(value)
         rows = np.flatnonzero(finite & self._mask(where))
-        part = self._frame.iloc[rows]
-        codes, count = _codes([part[name] for name in by])
-        if not by:
-            count = 1 if rows.size else 0
+        codes, count = _codes(self._columns(by, rows), rows.size)
         deviation = x[rows] - centre
         stats = {
             "n": np.bincount(codes, minlength=count).astype(np.int64),
@@ -170,11 +176,12 @@ class FrameSource:
             "min": _smallest(x[rows], codes, count),
             "max": -_smallest(-x[rows], codes, count),
         }
-        cells = part[list(by)].iloc[_first_rows(codes, count)].reset_index(drop=True)
+        labels = rows[_first_rows(codes, count)]
+        cells = self._frame[list(by)].iloc[labels].reset_index(drop=True)
         for name in MOMENT_COLUMNS:
             cells[name] = stats[name]
         if time is not None:
-            cells["first"] = self._first_times(part[time], codes, count)
+            cells["first"] = self._first_times(self._columns([time], rows)[0], codes, count)
         return CellMoments(value, by, centre, tidy_cells(cells, by), time)
 
     @staticmethod
@@ -220,19 +227,15 @@ class FrameSource:
         size = require_size(size)
         require_known(list(by), self.columns, "a stratum")
         rows = np.flatnonzero(self._mask(where))
-        part = self._frame.iloc[rows]
-        codes, count = _codes([part[name] for name in by])
-        if not by:
-            count = 1 if rows.size else 0
-        take = allocate(np.bincount(codes, minlength=count), size)
+        codes, count = _codes(self._columns(by, rows), rows.size)
+        sizes = np.bincount(codes, minlength=count)
+        take = allocate(sizes, size)
         key = np.random.default_rng(seed).random(rows.size)
         order = np.lexsort((key, codes))
-        starts = np.cumsum(np.bincount(codes, minlength=count)) - np.bincount(
-            codes, minlength=count
-        )
+        starts = np.cumsum(sizes) - sizes
         rank = np.empty(rows.size, dtype=np.intp)
         rank[order] = np.arange(rows.size) - starts[codes[order]]
-        return part.iloc[np.flatnonzero(rank < take[codes])].reset_index(drop=True)
+        return self._frame.iloc[rows[rank < take[codes]]].reset_index(drop=True)
 
     def rows(
         self,
