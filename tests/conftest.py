@@ -1,9 +1,14 @@
-"""Suite-wide settings: hypothesis profiles, a private Jupyter home, skipped tests fail."""
+"""Suite-wide settings: hypothesis profiles, a private Jupyter home, skipped tests fail; the
+engines the Source tests query (one PostgreSQL cluster, one Spark session per run)."""
 
 from __future__ import annotations
 
 import os
+import shutil
 import tempfile
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
 
 import pytest
 from hypothesis import settings
@@ -37,3 +42,30 @@ def pytest_sessionfinish(session: pytest.Session, exitstatus: int) -> None:
             red=True,
         )
         session.exitstatus = 1
+
+
+@pytest.fixture(scope="session")
+def postgres() -> Iterator[Any]:
+    """A throwaway PostgreSQL cluster on a unix socket, stopped by its pid at the end."""
+    import harness
+
+    # A short folder: a unix socket's path may hold at most 107 bytes.
+    folder = Path(tempfile.mkdtemp(prefix="qcx-pg-"))
+    cluster = harness.start_postgres(folder)
+    try:
+        yield cluster
+    finally:
+        cluster.stop()
+        shutil.rmtree(folder, ignore_errors=True)
+
+
+@pytest.fixture(scope="session")
+def spark() -> Iterator[Any]:
+    """One local Spark session for the whole run (a start costs seconds), on loopback."""
+    import harness
+
+    session = harness.start_spark()
+    try:
+        yield session
+    finally:
+        session.stop()

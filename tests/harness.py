@@ -4,7 +4,8 @@
 process id, with its kernels; ``private_environment`` keeps everything Jupyter writes under a
 temporary folder. ``fetch`` and ``websocket`` talk HTTP to loopback addresses only (any other
 host is refused before a byte is sent); ``kernel_pids`` and ``memory`` look at a server's
-kernels through Linux's /proc.
+kernels through Linux's /proc. ``start_postgres`` and ``start_spark`` start the engines the
+Source tests query: a throwaway PostgreSQL cluster on a unix socket, a local Spark on loopback.
 """
 
 from __future__ import annotations
@@ -15,6 +16,7 @@ import http.client
 import ipaddress
 import os
 import queue
+import shutil
 import signal
 import ssl
 import subprocess
@@ -269,3 +271,109 @@ def wait_until(condition: Callable[[], Any], seconds: float, what: str) -> Any:
         if time.monotonic() > deadline:
             raise AssertionError(f"{what} within {seconds:g} s")
         time.sleep(0.25)
+
+
+# ---- engines for the Source tests: a throwaway PostgreSQL cluster and a local Spark ----------
+#: The system user that owns test clusters (initdb refuses root).
+POSTGRES_USER = "qcpg"
+
+
+@dataclass
+class Postgres:
+    """A PostgreSQL cluster listening on a unix socket only; :meth:`stop` ends it by its pid."""
+
+    folder: Path
+    pid: int
+    user: str
+    password: str
+
+    @property
+    def socket(self) -> Path:
+        return self.folder / "socket"
+
+    def url(self, *, password: str | None = None, database: str = "postgres") -> str:
+        secret = self.password if password is None else password
+        return f"postgresql://{self.user}:{secret}@/{database}?host={self.socket}"
+
+    def stop(self, *, timeout: float = 30.0) -> None:
+        try:
+            os.kill(self.pid, signal.SIGINT)  # the server's "fast" shutdown
+        except ProcessLookupError:
+            return
+        deadline = time.monotonic() + timeout
+        while Path(f"/proc/{self.pid}").exists() and time.monotonic() < deadline:
+            time.sleep(0.1)
+        if Path(f"/proc/{self.pid}").exists():
+            os.kill(self.pid, signal.SIGKILL)
+
+
+def postgres_binaries() -> Path:
+    """The newest Debian PostgreSQL server binaries (``apt-get install postgresql``)."""
+    found = sorted(Path("/usr/lib/postgresql").glob("*/bin/initdb"), key=lambda p: p.parts[-3])
+    if not found:
+        raise RuntimeError(
+            "no PostgreSQL server in /usr/lib/postgresql: apt-get install postgresql"
+        )
+    return found[-1].parent
+
+
+def start_postgres(
+    folder: Path, *, user: str = "qcx", password: str = "pg-test-secret"
+) -> Postgres:
+    """initdb and start a cluster in ``folder`` (password login, no TCP, no fsync)."""
+    binaries = postgres_binaries()
+    as_owner: list[str] = []
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "socket").mkdir(exist_ok=True)
+    if os.geteuid() == 0:  # initdb refuses root: the cluster belongs to a system user
+        if subprocess.run(["id", POSTGRES_USER], capture_output=True).returncode:
+            subprocess.run(["useradd", "--system", "--no-create-home", POSTGRES_USER], check=True)
+        for path in (folder, folder / "socket"):
+            shutil.chown(path, POSTGRES_USER)
+        as_owner = ["runuser", "-u", POSTGRES_USER, "--"]
+    secret = folder / "password"
+    secret.write_text(password + "\n")
+    secret.chmod(0o600)
+    if as_owner:
+        shutil.chown(secret, POSTGRES_USER)
+    data = folder / "data"
+    run = dict(check=True, capture_output=True, timeout=120)
+    subprocess.run(
+        [*as_owner, str(binaries / "initdb"), "-D", str(data), "-U", user,
+         f"--pwfile={secret}", "-A", "scram-sha-256", "--no-sync", "--no-instructions"],
+        **run,
+    )  # fmt: skip
+    secret.unlink()
+    options = (
+        f"-k {folder / 'socket'} -c listen_addresses='' -c fsync=off "
+        "-c synchronous_commit=off -c full_page_writes=off"
+    )
+    # -l: without a log file the server keeps our output pipes open and run() never returns.
+    subprocess.run(
+        [*as_owner, str(binaries / "pg_ctl"), "-D", str(data), "-l", str(folder / "server.log"),
+         "-o", options, "-w", "start"],
+        **run,
+    )  # fmt: skip
+    pid = int((data / "postmaster.pid").read_text().split()[0])
+    return Postgres(folder=folder, pid=pid, user=user, password=password)
+
+
+def start_spark() -> Any:
+    """A local Spark session on two threads, bound to loopback, without its web UI."""
+    os.environ["SPARK_LOCAL_IP"] = "127.0.0.1"
+    from pyspark.sql import SparkSession
+
+    session = (
+        SparkSession.builder.master("local[2]")
+        .appName("qcexplore-tests")
+        .config("spark.ui.enabled", "false")
+        .config("spark.ui.showConsoleProgress", "false")
+        .config("spark.driver.host", "127.0.0.1")
+        .config("spark.driver.bindAddress", "127.0.0.1")
+        .config("spark.sql.shuffle.partitions", "2")
+        .config("spark.sql.session.timeZone", "UTC")
+        .config("spark.sql.execution.arrow.pyspark.enabled", "true")
+        .getOrCreate()
+    )
+    session.sparkContext.setLogLevel("ERROR")
+    return session
