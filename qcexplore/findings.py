@@ -65,7 +65,6 @@ import pandas as pd
 
 from qcexplore.caution import caution
 from qcexplore.data.coding import real_number
-from qcexplore.stats.changes import shape_words
 from qcexplore.stats.results import Evidence, Finding, Onset
 from qcexplore.stats.results import p_text as _p
 from qcexplore.stats.shape import ShapeFit
@@ -311,7 +310,11 @@ def _shape_told(ctx: _Context, fit: ShapeFit | None) -> tuple[str, Any, float | 
     start and slope, and the words behind the choice of shape (``stats.changes``)."""
     if fit is None:
         return "", None, None, ""
-    behind = " " + " ".join(shape_words(fit, ctx.unit))
+    behind = (
+        f" Of a constant difference, a step and a drift, the {fit.shape} fits best "
+        f"({fit.CRITERION}; {fit.margin:.1f} better than the next; AR(1) phi {fit.phi:.2f}, "
+        f"noise sd {fit.noise_sd:.3g}{ctx.unit})."
+    )
     if fit.shape == "drift" and fit.slope is not None:
         word = "up" if fit.slope > 0 else "down"
         per = "day" if fit.slope_unit == "day" else "subgroup"

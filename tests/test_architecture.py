@@ -235,7 +235,8 @@ def test_findings_read_results_only() -> None:
     """Findings are worded from the evidence bundle: no data table, no Study, no tests of their
     own (the sample sizes of a next step come from stats.plans)."""
     allowed = (
-        "qcexplore.stats.results", "qcexplore.stats.plans", "qcexplore.story",
+        "qcexplore.stats.results", "qcexplore.stats.shape", "qcexplore.stats.plans",
+        "qcexplore.story",
         "qcexplore.errors", "qcexplore.words", "qcexplore.caution", "qcexplore.data.coding",
     )  # fmt: skip
     for path in (PACKAGE / "findings.py", PACKAGE / "story.py"):

@@ -11,7 +11,7 @@ process still changes (``stats.streams.explains``).
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import pandas as pd
@@ -110,13 +110,3 @@ def _block(data: pd.DataFrame, subgroup: str, relation: str, individuals: bool) 
     if relation == "within_subgroup":
         return subgroup
     return DAY if DAY in data.columns else None
-
-
-def shape_words(fit: ShapeFit, unit: str) -> Sequence[str]:
-    """The shape in words for the statistics behind a finding: the criterion and the margin."""
-    second = sorted(fit.criteria.values())[1] if len(fit.criteria) > 1 else float("nan")
-    return (
-        f"Of a constant difference, a step and a drift, the {fit.shape} fits best "
-        f"({fit.CRITERION}; margin {fit.margin:.1f} over the next, {second - fit.margin:.1f} "
-        f"for the best; AR(1) phi {fit.phi:.2f}, noise sd {fit.noise_sd:.3g}{unit}).",
-    )
