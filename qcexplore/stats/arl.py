@@ -21,6 +21,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from functools import lru_cache
+from typing import cast
 
 import numpy as np
 from scipy import sparse, special
@@ -46,7 +47,7 @@ def _bad(name: str, value: object, what: str) -> QCDataError:
 def _positive(name: str, value: object, *, upper: float = math.inf) -> float:
     if not is_real_number(value, finite=False):
         raise _bad(name, value, "must be a number.")
-    value = float(value)
+    value = float(cast(float, value))  # is_real_number checked it
     if not (0.0 < value <= upper) or math.isnan(value):
         bound = "in (0, 1]" if upper == 1.0 else "a positive finite number"
         raise _bad(name, value, f"must be {bound}.")
@@ -103,7 +104,7 @@ def _zone_chain(delta: float, ids: tuple[str, ...], level: float) -> ArlResult:
         )
         return bool(fired), new
 
-    start = (0, 0, 0, 0, 0, 0, 0)
+    start: tuple[int, ...] = (0, 0, 0, 0, 0, 0, 0)
     index = {start: 0}
     queue = [start]
     rows: list[int] = []

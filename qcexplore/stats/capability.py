@@ -234,10 +234,10 @@ def capability(
         sigma_df = real_number("sigma_df", sigma_df, lower=0, inclusive=False)
     within_df = float(n - 1 if sigma_df is None else sigma_df)
     rows = []
-    for name, value in point.items():
+    for name, estimate in point.items():
         df = within_df if name.startswith("c") else n - 1.0
-        lower, upper = (float(x) for x in index_interval(name, value, n, df, confidence))
-        rows.append((name, value, lower, upper))
+        lower, upper = (float(x) for x in index_interval(name, estimate, n, df, confidence))
+        rows.append((name, estimate, lower, upper))
     words = ESTIMATORS[estimator].formula if estimator in ESTIMATORS else "the within sigma"
     within_words = (
         f"C indices on the {within_df:.1f} effective degrees of freedom of {words}"
@@ -253,14 +253,14 @@ def capability(
     )
     indices = pd.DataFrame(rows, columns=["index", "value", "lower", "upper"])
 
-    sides = []
+    sides: list[tuple[str, float, float]] = []
     if lsl is not None:
-        sides.append(("lower", np.mean(x < lsl), stats.norm.cdf(lsl, mean, sd)))
+        sides.append(("lower", float(np.mean(x < lsl)), float(stats.norm.cdf(lsl, mean, sd))))
     if usl is not None:
-        sides.append(("upper", np.mean(x > usl), stats.norm.sf(usl, mean, sd)))
+        sides.append(("upper", float(np.mean(x > usl)), float(stats.norm.sf(usl, mean, sd))))
     sides.append(("total", sum(s[1] for s in sides), sum(s[2] for s in sides)))
     ppm = pd.DataFrame(
-        [(side, 1e6 * float(obs), 1e6 * float(exp)) for side, obs, exp in sides],
+        [(side, 1e6 * obs, 1e6 * exp) for side, obs, exp in sides],
         columns=["side", "observed", "expected"],
     )
 

@@ -55,7 +55,7 @@ def _ewma_lambda(x: np.ndarray) -> float:
     return float(_EWMA_LAMBDAS[min(range(low, high + 1), key=cost)])
 
 
-def _no_stratum(size: int) -> pd.Categorical:
+def _no_stratum(size: int) -> pd.Categorical[float]:
     """``pd.Categorical([None] * size)``, without a list of ``size`` Nones."""
     return pd.Categorical.from_codes(
         np.full(size, -1, dtype=np.int8), pd.Index([], dtype=np.float64)

@@ -15,6 +15,9 @@ from qcexplore.stats.charts.request import ChartRequest
 from qcexplore.stats.results import ChartResult
 from qcexplore.stats.rules import fired_rules
 
+#: An extra column of the points table that a family adds (counts, CUSUM's lower sum).
+PointColumn = np.ndarray | pd.Categorical
+
 
 def two_sided_rate(level: float) -> float:
     """P(|Z| > level) for a standard normal Z: 2 * norm.sf(level), checked in the tests.
@@ -36,7 +39,7 @@ class Plotted:
     level: float  # limits at this many standard errors (sigma_level, L or h)
     level_words: str
     false_alarm_rate: float
-    columns: dict[str, object] = field(default_factory=dict)  # extra point columns
+    columns: dict[str, PointColumn] = field(default_factory=dict)  # extra point columns
     notes: tuple[str, ...] = ()
 
     @property
@@ -49,7 +52,7 @@ class Plotted:
 
 def plotted_by_rules(
     fit: Fit, rules: tuple[str, ...], level: float, level_words: str,
-    segments: np.ndarray | None, columns: dict[str, object] | None = None,
+    segments: np.ndarray | None, columns: dict[str, PointColumn] | None = None,
     notes: tuple[str, ...] = (),
 ) -> Plotted:  # fmt: skip
     """A chart whose limits are at ``level`` standard errors, its points read by ``rules``."""

@@ -47,7 +47,7 @@ def power_and_alpha(power: object, alpha: object) -> tuple[float, float]:
 
 def value_list(name: str, x: object) -> list[Any]:
     ordered = (Sequence, np.ndarray, pd.Series, pd.Index, pd.api.extensions.ExtensionArray)
-    if isinstance(x, (str, bytes)) or not isinstance(x, ordered) or np.ndim(x) != 1:
+    if isinstance(x, (str, bytes)) or not isinstance(x, ordered) or np.asarray(x).ndim != 1:
         raise QCDataError(
             f"{name}={x!r:.60} is not a list of values: give one value per subgroup, in time "
             "order (a list, an array or a column)."

@@ -35,8 +35,10 @@ class StepLookup:
 
 
 def _moment(time: object) -> str:
-    if isinstance(time, (pd.Timestamp, np.datetime64)) and pd.notna(time):
-        return f"{pd.Timestamp(time):%a %d %b %Y %H:%M}"
+    if isinstance(time, (pd.Timestamp, np.datetime64)):
+        stamp = pd.Timestamp(time)
+        if not pd.isna(stamp):
+            return f"{stamp:%a %d %b %Y %H:%M}"
     return str(time)
 
 

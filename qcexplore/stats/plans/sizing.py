@@ -230,13 +230,14 @@ the measured repeatability of 0.3 g.'
         return _sizes(difference, sd, words.df, power, alpha, what)
 
     first = size(measured, "difference")
-    other = None if least is None else size(least, "smallest")
+    other = None
     sentence = (
         f"{verb[:1].upper()}{verb[1:]} {words.same}{first.n:,} {items} {where}: enough to "
         f"tell {amount(measured, units)} apart with {percent(power)} power at "
         f"{words.spread.format(sd=amount(sd, units))}."
     )
-    if other is not None:
+    if least is not None:
+        other = size(least, "smallest")
         sentence += (
             f" {other.n:,} {items} would tell the smallest {words.difference} worth knowing, "
             f"{amount(least, units)}."
