@@ -172,6 +172,11 @@ def test_the_chart_limits_carry_the_sigma_estimator_and_its_degrees_of_freedom()
             assert float(limits["sigma_df"].iloc[0]) == pytest.approx(expected, rel=5e-3)
         r = chart_capability(f, value="w", spec=Spec(lsl=-4.0, usl=4.0), chart=chart)
         assert f"{float(chart.limits['sigma_df'].iloc[0]):.1f} effective" in r.interval_method
+    # The R chart beside a chart of the means with another sigma keeps the within estimate.
+    between = control_chart(f, value="w", subgroup="h", sigma_method="between_means")
+    assert between.limits["estimator"].tolist() == ["between_means"]
+    assert between.limits["sigma_df"].isna().all()
+    assert between.secondary.limits["estimator"].tolist() == ["range"]
     given_sigma = control_chart(f, value="w", subgroup="h", sigma=1.0)
     assert given_sigma.limits["estimator"].tolist() == ["given"]
     assert given_sigma.limits["sigma_df"].isna().all()

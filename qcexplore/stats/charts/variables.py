@@ -358,13 +358,16 @@ def means_methods(
     return segment_methods(req.points, used, level_words, words)
 
 
-def within_estimator(req: ChartRequest, means: Means, used: np.ndarray) -> tuple[str, np.ndarray]:
-    """What gave the sigma of a chart of the means, and per segment the effective degrees of
-    freedom of a within-subgroup estimate from the ``used`` points (NaN for other sigmas)."""
+def _sigma_source(
+    req: ChartRequest, means: Means, used: np.ndarray, sigma_method: str
+) -> tuple[str, np.ndarray]:
+    """What gave a chart's sigma (``sigma_method`` unless sigma was given), and per segment
+    the effective degrees of freedom of a within-subgroup estimate from the ``used`` points
+    (NaN for other sigmas)."""
     if req.sigma is not None:
         return "given", np.full(req.points.n_seg, np.nan)
-    if req.sigma_method != "within":
-        return req.sigma_method, np.full(req.points.n_seg, np.nan)
+    if sigma_method != "within":
+        return sigma_method, np.full(req.points.n_seg, np.nan)
     return means.base.name, means.base.degrees_of_freedom(means.m, used, req.points)
 
 
@@ -372,7 +375,7 @@ def describe_means(
     req: ChartRequest, means: Means, fit: Fit, used: np.ndarray, level_words: str,
     stat_words: str, statistic: str,
 ) -> Described:  # fmt: skip
-    estimator, sigma_df = within_estimator(req, means, used)
+    estimator, sigma_df = _sigma_source(req, means, used, req.sigma_method)
     return Described(
         stat_words=stat_words,
         statistic=statistic,
@@ -385,7 +388,8 @@ def describe_means(
 
 
 def _spread_chart(req: ChartRequest, means: Means, est: Estimate) -> ChartResult:
-    """The R, S or MR chart beside the chart of the means: beyond-limits rule only."""
+    """The R, S or MR chart beside the chart of the means: beyond-limits rule only, its limits
+    from the within-subgroup sigma whatever the chart of the means used."""
     base, fit, given = means.base, est.secondary, req.sigma is not None
     assert fit is not None
     r1 = req.rule_one
@@ -401,7 +405,9 @@ def _spread_chart(req: ChartRequest, means: Means, est: Estimate) -> ChartResult
     return ChartResult(
         kind=kind,
         points=points_table(req, plotted, means.m.n, est),
-        limits=limits_table(req.points, fit, methods, *within_estimator(req, means, est.used)),
+        limits=limits_table(
+            req.points, fit, methods, *_sigma_source(req, means, est.used, "within")
+        ),
         title=f"{words} of {req.value}, limits from {source_words}, {req.sigma_level:g} sigma, "
         f"beyond-limits rule only{split_words(req)}",
         statistic=statistic,
@@ -432,4 +438,5 @@ def variables_chart(req: ChartRequest) -> ChartResult:
         req, means, est.primary, est.used, plotted.method_level,
         f"{means.base.points[0].capitalize()} of {req.value}", means.base.points[1],
     )  # fmt: skip
-    return chart_result(req, est, plotted, means.m.n, described, _spread_chart(req, means, est))
+    secondary = _spread_chart(req, means, est)
+    return chart_result(req, est, plotted, means.m.n, described, secondary)
