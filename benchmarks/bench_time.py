@@ -45,8 +45,8 @@ from scipy import signal, stats
 from statsmodels.tsa.ar_model import AutoReg
 from statsmodels.tsa.stattools import acf
 
-from qcexplore.stats import timeseries
 from qcexplore.stats.timeseries import ar1_fit, change_points, time_structure
+from qcexplore.stats.timeseries.steps import cusum_statistics
 
 
 def _ar1(rng: np.random.Generator, phi: float, shape: tuple[int, ...]) -> np.ndarray:
@@ -92,7 +92,7 @@ def _band(rate: float, reps: int) -> float:
 def _first_test(x: np.ndarray) -> tuple[bool, bool]:
     """Any step reported (calibrated); and by the Kolmogorov limit alone on the same test."""
     calibrated = bool(change_points(x)[0])
-    t = timeseries._cusum_statistics(x[None, :], np.zeros(4), 0, 0)[0][0]
+    t = cusum_statistics(x[None, :], np.zeros(4), 0, 0)[0][0]
     return calibrated, bool(stats.kstwobign.sf(t) < 0.05)
 
 

@@ -384,18 +384,15 @@ class Study:
             return self._data
 
         def compute() -> pd.DataFrame:
-            from qcexplore.stats.variation import adjusted_values, measurement_offsets
+            from qcexplore.stats.variation import remove_offsets
 
-            offsets = measurement_offsets(
+            return remove_offsets(
                 self._data,
                 value=self._value,
                 subgroup=self.subgroup_column,
                 measured_by=chosen,
                 factors=self.process_factors,
-            )
-            adjusted = self._data.copy()
-            adjusted[self._value] = adjusted_values(self._data, value=self._value, offsets=offsets)
-            return adjusted
+            )[0]
 
         return self._cached(("adjusted", chosen), compute)
 
@@ -503,20 +500,17 @@ class Study:
         from dataclasses import replace
 
         from qcexplore.stats.timeseries import time_structure
-        from qcexplore.stats.variation import adjusted_values, step_safe_offsets
+        from qcexplore.stats.variation import remove_offsets
 
         def compute() -> TimeResult:
-            data, notes = self._data, ()
-            if self._measured_by:
-                offsets, notes = step_safe_offsets(
-                    self._data,
-                    value=self._value,
-                    subgroup=self.subgroup_column,
-                    measured_by=self._measured_by,
-                    factors=self.process_factors,
-                )
-                data = self._data.copy()
-                data[self._value] = adjusted_values(self._data, value=self._value, offsets=offsets)
+            data, notes = remove_offsets(
+                self._data,
+                value=self._value,
+                subgroup=self.subgroup_column,
+                measured_by=self._measured_by,
+                factors=self.process_factors,
+                step_safe=True,
+            )
             result = time_structure(
                 data,
                 value=self._value,
@@ -530,7 +524,7 @@ class Study:
 
     def capability(self, spec: Spec | Mapping[str, float] | None = None) -> CapabilityResult:
         """Capability against the specification (the study's, or the one given)."""
-        from qcexplore.stats.capability import capability, chart_sigma_df
+        from qcexplore.stats.capability import chart_capability
 
         chosen = Spec.coerce(spec) or self._spec
         if chosen is None:
@@ -540,19 +534,7 @@ class Study:
             )
 
         def compute() -> CapabilityResult:
-            chart = self.chart()
-            # The within-subgroup sigma carries fewer degrees of freedom than N - 1: the
-            # intervals of Cp and Cpk use the estimator's own (from d2, d3 or c4).
-            df, words = chart_sigma_df(chart) or (None, "")
-            return capability(
-                self._data,
-                value=self._value,
-                spec=chosen,
-                sigma_within=float(chart.limits["sigma"].iloc[0]),
-                in_control=not bool(chart.points["beyond"].any()),
-                sigma_df=df,
-                sigma_words=words,
-            )
+            return chart_capability(self._data, value=self._value, spec=chosen, chart=self.chart())
 
         return self._cached(("capability", chosen), compute)
 

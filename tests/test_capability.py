@@ -15,7 +15,8 @@ from statsmodels.stats.diagnostic import normal_ad
 
 from qcexplore.errors import QCDataError
 from qcexplore.spec import Spec
-from qcexplore.stats.capability import anderson_darling_normal, capability
+from qcexplore.stats.capability import anderson_darling_normal, capability, chart_capability
+from qcexplore.stats.charts import control_chart
 
 
 def exact_sample(mean: float, sd: float, n: int = 200, seed: int = 3) -> np.ndarray:
@@ -153,6 +154,39 @@ def test_histogram_and_curve_for_drawing():
     # The curve is the fitted normal scaled to counts: its area equals n * bin width.
     area = np.trapezoid(r.curve["density"], r.curve["x"])
     assert area == pytest.approx(300 * width, rel=0.01)
+
+
+def test_the_chart_limits_carry_the_sigma_estimator_and_its_degrees_of_freedom():
+    # 20 subgroups of 10 (X-bar/S): nu = k c4^2 / (2 (1 - c4^2)) with the handbook
+    # c4(10) = 0.9727 (common practice tables); 20 subgroups of 4 (X-bar/R):
+    # nu = k d2^2 / (2 d3^2) with d2(4) = 2.059, d3(4) = 0.880 (the same tables).
+    rng = np.random.default_rng(4)
+    for n, kind, expected in (
+        (10, "xbar_s", 20 * 0.9727**2 / (2 * (1 - 0.9727**2))),
+        (4, "xbar_r", 20 * 2.059**2 / (2 * 0.880**2)),
+    ):
+        f = pd.DataFrame({"h": np.repeat(np.arange(20), n), "w": rng.normal(0, 1, 20 * n)})
+        chart = control_chart(f, value="w", subgroup="h", kind=kind)
+        for limits in (chart.limits, chart.secondary.limits):
+            assert limits["estimator"].tolist() == [{"xbar_s": "sd", "xbar_r": "range"}[kind]]
+            assert float(limits["sigma_df"].iloc[0]) == pytest.approx(expected, rel=5e-3)
+        r = chart_capability(f, value="w", spec=Spec(lsl=-4.0, usl=4.0), chart=chart)
+        assert f"{float(chart.limits['sigma_df'].iloc[0]):.1f} effective" in r.interval_method
+    # The R chart beside a chart of the means with another sigma keeps the within estimate.
+    between = control_chart(f, value="w", subgroup="h", sigma_method="between_means")
+    assert between.limits["estimator"].tolist() == ["between_means"]
+    assert between.limits["sigma_df"].isna().all()
+    assert between.secondary.limits["estimator"].tolist() == ["range"]
+    given_sigma = control_chart(f, value="w", subgroup="h", sigma=1.0)
+    assert given_sigma.limits["estimator"].tolist() == ["given"]
+    assert given_sigma.limits["sigma_df"].isna().all()
+    r = chart_capability(f, value="w", spec=Spec(lsl=-4.0, usl=4.0), chart=given_sigma)
+    assert "not given" in r.interval_method
+    per_stratum = control_chart(
+        f.assign(g=f["h"] % 2), value="w", subgroup="h", by="g", limits="per_stratum"
+    )
+    with pytest.raises(QCDataError, match="limits='pooled'"):
+        chart_capability(f, value="w", spec=Spec(lsl=-4.0, usl=4.0), chart=per_stratum)
 
 
 @pytest.mark.parametrize(

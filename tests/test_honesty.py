@@ -22,8 +22,9 @@ from statsmodels.regression.mixed_linear_model import MixedLMParams
 from test_variation import interaction_coefficients
 
 import qcexplore as qx
-from qcexplore.stats.capability import capability, chart_sigma_df, index_interval, within_sigma_df
+from qcexplore.stats.capability import capability, chart_capability, index_interval
 from qcexplore.stats.charts import control_chart
+from qcexplore.stats.charts.variables import within_sigma_df
 from qcexplore.stats.constants import c4, d2
 from qcexplore.stats.subgroups import group_moments
 from qcexplore.stats.variation import (
@@ -305,12 +306,12 @@ def test_capability_states_the_degrees_of_freedom_of_the_chart_sigma():
     rng = np.random.default_rng(15)
     f = pd.DataFrame({"h": np.repeat(np.arange(25), 5), "w": rng.normal(10, 1, 125)})
     chart = control_chart(f, value="w", subgroup="h")
-    df, words = chart_sigma_df(chart)
+    limits = chart.limits.iloc[0]
+    df = float(limits["sigma_df"])
     assert df == pytest.approx(25 * 2.326**2 / (2 * 0.864**2), rel=2e-3)
-    assert words == "R-bar/d2"
-    sigma = float(chart.limits["sigma"].iloc[0])
-    r = capability(f, value="w", spec=qx.Spec(lsl=6.0, usl=14.0), sigma_within=sigma,
-                   sigma_df=df, sigma_words=words)  # fmt: skip
+    assert limits["estimator"] == "range"
+    sigma = float(limits["sigma"])
+    r = chart_capability(f, value="w", spec=qx.Spec(lsl=6.0, usl=14.0), chart=chart)
     cp = r.indices.set_index("index").loc["cp"]
     assert cp["lower"] == pytest.approx(cp["value"] * np.sqrt(stats.chi2.ppf(0.025, df) / df))
     assert cp["upper"] == pytest.approx(cp["value"] * np.sqrt(stats.chi2.ppf(0.975, df) / df))

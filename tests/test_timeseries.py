@@ -18,7 +18,7 @@ from statsmodels.tsa.stattools import acf, pacf
 
 import qcexplore as qx
 from qcexplore.errors import QCDataError
-from qcexplore.stats import timeseries
+from qcexplore.stats.charts import forecast
 from qcexplore.stats.timeseries import EXPLANATIONS, ar1_fit, change_points, time_structure
 
 
@@ -230,9 +230,9 @@ def test_ewma_lambda_is_the_least_squares_one_of_the_grid():
             SimpleExpSmoothing(x, initialization_method="known", initial_level=x.mean())
             .fit(smoothing_level=lam, optimized=False)
             .sse
-            for lam in timeseries._EWMA_LAMBDAS
+            for lam in forecast._EWMA_LAMBDAS
         ]
-        assert timeseries._ewma_lambda(x) == timeseries._EWMA_LAMBDAS[int(np.argmin(sse))]
+        assert forecast._ewma_lambda(x) == forecast._EWMA_LAMBDAS[int(np.argmin(sse))]
 
 
 def test_residual_chart_for_autocorrelated_series():

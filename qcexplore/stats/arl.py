@@ -103,7 +103,7 @@ def _zone_chain(delta: float, ids: tuple[str, ...], level: float) -> ArlResult:
         )
         return bool(fired), new
 
-    start = (0, 0, 0, 0, 0, 0, 0)
+    start: tuple[int, ...] = (0, 0, 0, 0, 0, 0, 0)
     index = {start: 0}
     queue = [start]
     rows: list[int] = []

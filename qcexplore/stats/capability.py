@@ -1,7 +1,8 @@
 """Process capability against a specification: indices, intervals, ppm and a normality check.
 
 Within-subgroup indices (``cp``, ``cpk``, ``cpl``, ``cpu``) use the short-term sigma the
-caller passes (the one the control chart used); overall indices (``pp``, ``ppk``, ``ppl``,
+caller passes with its estimator and effective degrees of freedom (:func:`chart_capability`
+takes all three from a control chart's limits); overall indices (``pp``, ``ppk``, ``ppl``,
 ``ppu``) use the sample standard deviation of all values. Every number here assumes a
 normal, stable process; the result says so in ``warnings`` when the data disagree.
 """
@@ -18,7 +19,7 @@ from scipy import stats
 from qcexplore.data.coding import real_number
 from qcexplore.data.validate import finite_column, require_frame
 from qcexplore.errors import QCDataError
-from qcexplore.stats.constants import c4, d2, d3
+from qcexplore.stats.charts.variables import ESTIMATORS
 from qcexplore.stats.results import CapabilityResult, ChartResult
 
 if TYPE_CHECKING:
@@ -67,94 +68,6 @@ def anderson_darling_normal(values: np.ndarray) -> tuple[float, float]:
     else:
         p = 0.0
     return float(a2), float(min(max(p, 0.0), 1.0))
-
-
-#: Covariance of two consecutive moving ranges |x2 - x1|, |x3 - x2| of independent normal
-#: values, in sigma^2: the differences have correlation -1/2, and for two normals of
-#: variance 2 and correlation rho, E|UV| = (4/pi)(sqrt(1 - rho^2) + rho arcsin rho) (from
-#: memory), so cov = (4/pi)(sqrt(3)/2 + pi/12 - 1).
-_MR_LAG1_COV = 4.0 / math.pi * (math.sqrt(3.0) / 2.0 + math.pi / 12.0 - 1.0)
-
-
-def within_sigma_df(estimator: str, sizes: np.ndarray) -> float:
-    """Effective degrees of freedom of a within-subgroup sigma estimate.
-
-    A sigma estimate with variance V sigma^2 carries about nu = 1 / (2 V) degrees of
-    freedom, as a pooled standard deviation on nu df does (common practice). ``estimator``:
-
-    * ``"range"``: the mean of R_i/d2(n_i) weighted by n_i - 1 over subgroups of ``sizes``
-      (R-bar/d2 for equal sizes), V = sum(w_i^2 (d3_i/d2_i)^2) / (sum w_i)^2; for k
-      subgroups of n, nu = k d2^2 / (2 d3^2) (25 subgroups of 5: about 91, not 124);
-    * ``"sd"``: the same mean of s_i/c4(n_i), with (1 - c4^2)/c4^2 for (d3/d2)^2;
-    * ``"moving_range"``: MR-bar/d2(2) over ``sizes`` = one number, the count of values m:
-      M = m - 1 moving ranges of variance (2 - 4/pi) sigma^2 whose neighbours covary by
-      ``_MR_LAG1_COV`` sigma^2, so nu is about 0.6 (m - 1).
-
-    Checked by the coverage of the Cp and Cpk intervals built on it (simulation,
-    tests/test_honesty.py) and for equal sizes against k d2^2 / (2 d3^2).
-
-    Examples
-    --------
-    >>> round(within_sigma_df("range", np.full(25, 5)), 1)
-    90.6
-    """
-    sizes = np.asarray(sizes, dtype=np.float64)
-    if estimator == "moving_range":
-        m = float(sizes.sum()) if sizes.size != 1 else float(sizes[0])
-        count = m - 1.0
-        if count < 1:
-            return float("nan")
-        var_mr = 2.0 - 4.0 / math.pi
-        v = (count * var_mr + 2.0 * (count - 1.0) * _MR_LAG1_COV) / (count * d2(2)) ** 2
-        return 1.0 / (2.0 * v)
-    sizes = sizes[sizes >= 2]
-    if sizes.size == 0:
-        return float("nan")
-    if estimator == "range":
-        ratio = np.array([d3(int(n)) / d2(int(n)) for n in sizes]) ** 2
-    elif estimator == "sd":
-        ratio = np.array([(1.0 - c4(int(n)) ** 2) / c4(int(n)) ** 2 for n in sizes])
-    else:
-        raise QCDataError(f"estimator={estimator!r}: use 'range', 'sd' or 'moving_range'.")
-    w = sizes - 1.0
-    return float(w.sum() ** 2 / (2.0 * np.sum(w * w * ratio)))
-
-
-#: The words of a chart's limits method that name its within-subgroup sigma estimator.
-_ESTIMATOR_WORDS = (("MR", "moving_range"), ("R_i/d2", "range"), ("R-bar/d2", "range"),
-                    ("s_i/c4", "sd"), ("s-bar/c4", "sd"))  # fmt: skip
-
-
-def chart_sigma_df(chart: ChartResult) -> tuple[float, str] | None:
-    """The effective degrees of freedom of a chart's within-subgroup sigma and its words.
-
-    Read from the chart's limits method (R-bar/d2, s-bar/c4 or MR-bar/d2) and the sizes of
-    the points used for the limits (:func:`within_sigma_df`); ``None`` when the chart's
-    sigma is not a within-subgroup estimate (given, between means, overall, attributes).
-
-    Examples
-    --------
-    >>> from qcexplore.stats.charts import control_chart
-    >>> f = pd.DataFrame({"h": np.repeat(np.arange(25), 5), "w": np.tile(np.arange(5.0), 25)})
-    >>> df, words = chart_sigma_df(control_chart(f, value="w", subgroup="h"))
-    >>> round(df, 1), words
-    (90.6, 'R-bar/d2')
-    """
-    if chart.sigma_method != "within" or not len(chart.limits):
-        return None
-    method = str(chart.limits["method"].iloc[0])
-    estimator = next((e for word, e in _ESTIMATOR_WORDS if word in method), None)
-    if estimator is None:
-        return None
-    points = chart.points
-    used = ~points["excluded"].to_numpy(dtype=bool) & np.isfinite(
-        points["stat"].to_numpy(dtype=np.float64)
-    )
-    sizes = points["n"].to_numpy(dtype=np.float64)[used]
-    if estimator == "moving_range":
-        sizes = np.array([float(used.sum())])
-    words = {"range": "R-bar/d2", "sd": "s-bar/c4", "moving_range": "MR-bar/d2"}[estimator]
-    return within_sigma_df(estimator, sizes), words
 
 
 def index_interval(
@@ -235,7 +148,7 @@ def capability(
     in_control: bool | None = None,
     confidence: float = 0.95,
     sigma_df: float | None = None,
-    sigma_words: str = "",
+    estimator: str | None = None,
 ) -> CapabilityResult:
     """Capability indices with confidence intervals, ppm outside the limits and normality.
 
@@ -250,10 +163,11 @@ def capability(
         chart). Without it ``cp``/``cpk`` are omitted and a warning says so.
     in_control : whether the chart showed a stable process; ``False`` adds a warning
     confidence : two-sided confidence level of the intervals
-    sigma_df, sigma_words : the effective degrees of freedom of ``sigma_within`` and the
-        estimator's name (:func:`chart_sigma_df` reads both off the control chart). Without
-        them the Cp-type intervals use N - 1, which is too narrow for R-bar/d2 and
-        s-bar/c4 (they carry fewer), and ``interval_method`` says so.
+    sigma_df, estimator : the effective degrees of freedom of ``sigma_within`` and the
+        estimator that gave it (``"range"``, ``"sd"`` or ``"moving_range"``; a chart's
+        limits carry both, ``stats.charts.variables.within_sigma_df``). Without ``sigma_df``
+        the Cp-type intervals use N - 1, which is too narrow for R-bar/d2 and s-bar/c4 (they
+        carry fewer), and ``interval_method`` says so.
 
     Returns
     -------
@@ -273,7 +187,7 @@ def capability(
       approximation. The P indices use the N - 1 degrees of freedom of the overall
       standard deviation; the C indices those of the within sigma, ``sigma_df`` (for
       R-bar/d2 from d2 and d3, for s-bar/c4 from c4, common practice; see
-      :func:`within_sigma_df`).
+      ``stats.charts.variables.within_sigma_df``).
     * Expected ppm comes from the normal with the sample mean and the overall standard
       deviation (what the process delivered over the whole period).
     * Normality: Anderson-Darling with the D'Agostino-Stephens p value
@@ -320,11 +234,11 @@ def capability(
         sigma_df = real_number("sigma_df", sigma_df, lower=0, inclusive=False)
     within_df = float(n - 1 if sigma_df is None else sigma_df)
     rows = []
-    for name, value in point.items():
+    for name, estimate in point.items():
         df = within_df if name.startswith("c") else n - 1.0
-        lower, upper = (float(x) for x in index_interval(name, value, n, df, confidence))
-        rows.append((name, value, lower, upper))
-    words = sigma_words or "the within sigma"
+        lower, upper = (float(x) for x in index_interval(name, estimate, n, df, confidence))
+        rows.append((name, estimate, lower, upper))
+    words = ESTIMATORS[estimator].formula if estimator in ESTIMATORS else "the within sigma"
     within_words = (
         f"C indices on the {within_df:.1f} effective degrees of freedom of {words}"
         if sigma_df is not None
@@ -339,14 +253,14 @@ def capability(
     )
     indices = pd.DataFrame(rows, columns=["index", "value", "lower", "upper"])
 
-    sides = []
+    sides: list[tuple[str, float, float]] = []
     if lsl is not None:
-        sides.append(("lower", np.mean(x < lsl), stats.norm.cdf(lsl, mean, sd)))
+        sides.append(("lower", float(np.mean(x < lsl)), float(stats.norm.cdf(lsl, mean, sd))))
     if usl is not None:
-        sides.append(("upper", np.mean(x > usl), stats.norm.sf(usl, mean, sd)))
+        sides.append(("upper", float(np.mean(x > usl)), float(stats.norm.sf(usl, mean, sd))))
     sides.append(("total", sum(s[1] for s in sides), sum(s[2] for s in sides)))
     ppm = pd.DataFrame(
-        [(side, 1e6 * float(obs), 1e6 * float(exp)) for side, obs, exp in sides],
+        [(side, 1e6 * obs, 1e6 * exp) for side, obs, exp in sides],
         columns=["side", "observed", "expected"],
     )
 
@@ -384,4 +298,43 @@ def capability(
         curve=curve,
         warnings=tuple(warnings),
         interval_method=interval_method,
+    )
+
+
+def chart_capability(
+    data: pd.DataFrame, *, value: str, spec: Spec, chart: ChartResult, confidence: float = 0.95
+) -> CapabilityResult:
+    """:func:`capability` with the within sigma of a control chart of the same values.
+
+    The sigma, its estimator and effective degrees of freedom are the columns ``sigma``,
+    ``estimator`` and ``sigma_df`` of the chart's one row of limits (a pooled chart); the
+    process counts as in control when no point lies beyond its limits.
+
+    Examples
+    --------
+    >>> from qcexplore.spec import Spec
+    >>> from qcexplore.stats.charts import control_chart
+    >>> f = pd.DataFrame({"h": np.repeat(np.arange(25), 5), "w": np.tile(np.arange(5.0), 25)})
+    >>> r = chart_capability(f, value="w", spec=Spec(lsl=-4.0, usl=8.0),
+    ...                      chart=control_chart(f, value="w", subgroup="h"))
+    >>> "90.6 effective degrees of freedom of R-bar/d2" in r.interval_method
+    True
+    """
+    limits = chart.limits
+    if len(limits) != 1:
+        raise QCDataError(
+            f"capability: the chart has {len(limits)} sets of limits; capability takes the "
+            "sigma of one, so chart with limits='pooled'."
+        )
+    row = limits.iloc[0]
+    sigma_df = float(row["sigma_df"])
+    return capability(
+        data,
+        value=value,
+        spec=spec,
+        sigma_within=float(row["sigma"]),
+        in_control=not bool(chart.points["beyond"].any()),
+        confidence=confidence,
+        sigma_df=None if math.isnan(sigma_df) else sigma_df,
+        estimator=str(row["estimator"]),
     )

@@ -126,22 +126,28 @@ def gate_tests(
     """
     rows: list[tuple[str, str | None, int | None, float]] = []
     if variation is not None:
+        anova = variation.anova
         rows += [
-            ("anova", row.source, None, row.p)
-            for row in variation.anova.itertuples()
-            if row.source in factors and np.isfinite(row.p)
+            ("anova", source, None, p)
+            for source, p in zip(anova["source"], anova["p"], strict=True)
+            if source in factors and np.isfinite(p)
         ]
         order = list(factors)
-        for row in variation.spread[variation.spread["test"] == "brown_forsythe"].itertuples():
-            later = row.factor in order and any(
-                order.index(other) < order.index(row.factor)
-                for other in variation.confounded_with(row.factor)
+        spread = variation.spread[variation.spread["test"] == "brown_forsythe"]
+        for factor, p in zip(spread["factor"], spread["p"], strict=True):
+            later = factor in order and any(
+                order.index(other) < order.index(factor)
+                for other in variation.confounded_with(factor)
                 if other in order
             )
-            if np.isfinite(row.p) and not later:
-                rows.append(("brown_forsythe", row.factor, None, row.p))
+            if np.isfinite(p) and not later:
+                rows.append(("brown_forsythe", factor, None, p))
     if time is not None:
-        rows += [("step", None, row.position, row.p) for row in time.shifts.itertuples()]
+        shifts = time.shifts
+        rows += [
+            ("step", None, position, p)
+            for position, p in zip(shifts["position"], shifts["p"], strict=True)
+        ]
         if np.isfinite(time.autocorrelation_p):
             rows.append(("ar1", None, None, time.autocorrelation_p))
     if beyond.points:
@@ -303,7 +309,7 @@ def collect_evidence(
     """
     factors, measured_by = tuple(factors), tuple(measured_by)
     beyond = beyond_limits(chart)
-    onset_factors = ()
+    onset_factors: tuple[str, ...] = ()
     if variation is not None:
         onset_factors = tuple(
             f

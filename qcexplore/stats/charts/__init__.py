@@ -14,6 +14,7 @@ One module per job:
 ``cusum``       two-sided tabular CUSUM
 ``attributes``  p, np, c, u (and Laney p', u')
 ``result``      the plotted chart, its tables and words: a ``ChartResult``
+``forecast``    for autocorrelated series: EWMA moving centre line, AR(1) innovations
 ==============  ===============================================================
 """
 

@@ -215,12 +215,15 @@ def attribute_chart(req: ChartRequest) -> ChartResult:
         limits_words = f"Laney {req.kind}' ({model.distribution} sigma x MR-bar(z)/d2)"
     else:
         limits_words = f"the {model.distribution} model"
+    sigma_method = "laney" if req.laney else model.distribution.lower()
     described = Described(
         stat_words=model.stat_words.format(req.value),
         statistic=model.statistic,
         limits_words=limits_words,
-        sigma_method="laney" if req.laney else model.distribution.lower(),
+        sigma_method=sigma_method,
         methods=_methods(req, model, est.primary, rate, est.used, plotted.method_level),
+        estimator=sigma_method,
+        sigma_df=np.full(points.n_seg, np.nan),
         caveats=("Single-point false-alarm rate from the normal approximation.",),
     )
     return chart_result(req, est, plotted, point_n, described)

@@ -184,7 +184,7 @@ def exclude_mask(exclude: Sequence[Hashable], points: Points) -> tuple[np.ndarra
 def point_labels(mask: np.ndarray, points: Points) -> tuple:
     """Labels of the points in ``mask``: subgroups, or (subgroup, stratum) pairs with ``by``."""
     subs = points.sub_labels[points.sub[mask]].tolist()
-    if points.strat_labels is None:
+    if points.strat is None or points.strat_labels is None:
         return tuple(subs)
     return tuple(zip(subs, points.strat_labels[points.strat[mask]].tolist(), strict=True))
 

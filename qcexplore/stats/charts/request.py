@@ -30,6 +30,7 @@ class ChartRequest(ChartSettings):
     """A chart asked for: its settings (``kind`` never ``"auto"``: resolved from the subgroup
     sizes; ``rules`` as rule ids), and its data as points."""
 
+    rules: tuple[str, ...] = ()  # resolved: rule ids, never a rule set's name
     frame: pd.DataFrame
     values: np.ndarray  # per row
     value: str

@@ -15,6 +15,9 @@ from qcexplore.stats.charts.request import ChartRequest
 from qcexplore.stats.results import ChartResult
 from qcexplore.stats.rules import fired_rules
 
+#: An extra column of the points table that a family adds (counts, CUSUM's lower sum).
+PointColumn = np.ndarray | pd.Categorical
+
 
 def two_sided_rate(level: float) -> float:
     """P(|Z| > level) for a standard normal Z: 2 * norm.sf(level), checked in the tests.
@@ -36,7 +39,7 @@ class Plotted:
     level: float  # limits at this many standard errors (sigma_level, L or h)
     level_words: str
     false_alarm_rate: float
-    columns: dict[str, object] = field(default_factory=dict)  # extra point columns
+    columns: dict[str, PointColumn] = field(default_factory=dict)  # extra point columns
     notes: tuple[str, ...] = ()
 
     @property
@@ -49,7 +52,7 @@ class Plotted:
 
 def plotted_by_rules(
     fit: Fit, rules: tuple[str, ...], level: float, level_words: str,
-    segments: np.ndarray | None, columns: dict[str, object] | None = None,
+    segments: np.ndarray | None, columns: dict[str, PointColumn] | None = None,
     notes: tuple[str, ...] = (),
 ) -> Plotted:  # fmt: skip
     """A chart whose limits are at ``level`` standard errors, its points read by ``rules``."""
@@ -98,7 +101,11 @@ def points_table(req: ChartRequest, plotted: Plotted, n: np.ndarray, est: Estima
     return table
 
 
-def limits_table(points: Points, fit: Fit, methods: list[str]) -> pd.DataFrame:
+def limits_table(
+    points: Points, fit: Fit, methods: list[str], estimator: str, sigma_df: np.ndarray
+) -> pd.DataFrame:
+    """One row per segment: its limits at the typical size, its sigma, the estimator that gave
+    the sigma and that estimate's effective degrees of freedom."""
     codes = np.arange(points.n_seg) if points.n_seg > 1 else None
     return pd.DataFrame(
         {
@@ -110,6 +117,8 @@ def limits_table(points: Points, fit: Fit, methods: list[str]) -> pd.DataFrame:
             "method": methods,
             "n": fit.t_n,
             "se": fit.t_se,
+            "estimator": estimator,
+            "sigma_df": sigma_df,
         }
     )
 
@@ -167,6 +176,11 @@ class Described:
     limits_words: str  # "the average range (R-bar/d2)"
     sigma_method: str  # as reported: the method asked for, "given", or the attribute model
     methods: list[str]  # per segment: the formula and numbers behind its limits
+    # What gave the sigma: a within-subgroup estimator ("range", "sd", "moving_range"), else
+    # the sigma_method; per segment, that estimate's effective degrees of freedom (NaN when
+    # the sigma is not a within-subgroup estimate from the data).
+    estimator: str
+    sigma_df: np.ndarray
     caveats: tuple[str, ...] = ()  # the last notes
 
 
@@ -179,7 +193,9 @@ def chart_result(
     return ChartResult(
         kind=req.kind,
         points=points_table(req, plotted, n, est),
-        limits=limits_table(req.points, plotted.fit, described.methods),
+        limits=limits_table(
+            req.points, plotted.fit, described.methods, described.estimator, described.sigma_df
+        ),
         secondary=secondary,
         title=f"{described.stat_words}, limits from {described.limits_words}, "
         f"{plotted.level_words}{split_words(req)}",

@@ -13,6 +13,8 @@ their sources:
 - R, S and MR charts: centre d2 sigma (c4 sigma), standard error d3 sigma
   (sqrt(1 - c4^2) sigma), lower limit cut at zero; with 3 sigma and equal sizes these are
   D3/D4 R-bar and B3/B4 s-bar.
+- The effective degrees of freedom of the within sigma (:func:`within_sigma_df`) go into the
+  limits table beside the estimator's name, for the intervals of capability indices.
 """
 
 from __future__ import annotations
@@ -66,11 +68,63 @@ def _sd_of_sd(n: int) -> float:
     return math.sqrt(1.0 - mean_sd * mean_sd)
 
 
+#: Covariance of two consecutive moving ranges |x2 - x1|, |x3 - x2| of independent normal
+#: values, in sigma^2: the differences have correlation -1/2, and for two normals of
+#: variance 2 and correlation rho, E|UV| = (4/pi)(sqrt(1 - rho^2) + rho arcsin rho) (from
+#: memory), so cov = (4/pi)(sqrt(3)/2 + pi/12 - 1).
+_MR_LAG1_COV = 4.0 / math.pi * (math.sqrt(3.0) / 2.0 + math.pi / 12.0 - 1.0)
+
+
+def within_sigma_df(estimator: str, sizes: np.ndarray) -> float:
+    """Effective degrees of freedom of a within-subgroup sigma estimate.
+
+    A sigma estimate with variance V sigma^2 carries about nu = 1 / (2 V) degrees of
+    freedom, as a pooled standard deviation on nu df does (common practice). ``estimator``:
+
+    * ``"range"``: the mean of R_i/d2(n_i) weighted by n_i - 1 over subgroups of ``sizes``
+      (R-bar/d2 for equal sizes), V = sum(w_i^2 (d3_i/d2_i)^2) / (sum w_i)^2; for k
+      subgroups of n, nu = k d2^2 / (2 d3^2) (25 subgroups of 5: about 91, not 124);
+    * ``"sd"``: the same mean of s_i/c4(n_i), with (1 - c4^2)/c4^2 for (d3/d2)^2;
+    * ``"moving_range"``: MR-bar/d2(2) over ``sizes`` = one number, the count of values m:
+      M = m - 1 moving ranges of variance (2 - 4/pi) sigma^2 whose neighbours covary by
+      ``_MR_LAG1_COV`` sigma^2, so nu is about 0.6 (m - 1).
+
+    Checked by the coverage of the Cp and Cpk intervals built on it (simulation,
+    tests/test_honesty.py) and for equal sizes against k d2^2 / (2 d3^2).
+
+    Examples
+    --------
+    >>> round(within_sigma_df("range", np.full(25, 5)), 1)
+    90.6
+    """
+    sizes = np.asarray(sizes, dtype=np.float64)
+    if estimator == "moving_range":
+        m = float(sizes.sum()) if sizes.size != 1 else float(sizes[0])
+        count = m - 1.0
+        if count < 1:
+            return float("nan")
+        var_mr = 2.0 - 4.0 / math.pi
+        v = (count * var_mr + 2.0 * (count - 1.0) * _MR_LAG1_COV) / (count * d2(2)) ** 2
+        return 1.0 / (2.0 * v)
+    sizes = sizes[sizes >= 2]
+    if sizes.size == 0:
+        return float("nan")
+    if estimator == "range":
+        ratio = per_size(lambda n: d3(n) / d2(n), sizes) ** 2
+    elif estimator == "sd":
+        ratio = per_size(lambda n: (1.0 - c4(n) ** 2) / c4(n) ** 2, sizes)
+    else:
+        raise QCDataError(f"estimator={estimator!r}: use 'range', 'sd' or 'moving_range'.")
+    w = sizes - 1.0
+    return float(w.sum() ** 2 / (2.0 * np.sum(w * w * ratio)))
+
+
 @dataclass(frozen=True)
 class SigmaBase:
     """One estimator of the within-subgroup sigma, the spread chart it goes with, and the
     words that describe both."""
 
+    name: str  # the estimator, as the limits table names it: "range", "sd", "moving_range"
     words: str  # "average range"
     formula: str  # "R-bar/d2"
     term: str  # the per-subgroup estimate averaged with unequal sizes
@@ -123,23 +177,36 @@ class SigmaBase:
             )
         return f"sigma = mean of {self.term} weighted by n_i - 1 (unequal sizes) = {sigma:.6g}"
 
+    def degrees_of_freedom(self, m: GroupMoments, used: np.ndarray, points: Points) -> np.ndarray:
+        """Per segment, the effective degrees of freedom of the within sigma from its
+        ``used`` points (:func:`within_sigma_df`)."""
+        out = np.empty(points.n_seg)
+        for s in range(points.n_seg):
+            mine = used & (points.seg == s)
+            sizes = np.array([float(mine.sum())]) if self.moving else m.n[mine]
+            out[s] = within_sigma_df(self.name, sizes)
+        return out
+
 
 RANGE = SigmaBase(
-    words="average range", formula="R-bar/d2", term="R_i/d2(n_i)", factor_name="d2",
-    mean_factor=d2, sd_factor=d3, statistic=lambda m, prev: m.range,
+    name="range", words="average range", formula="R-bar/d2", term="R_i/d2(n_i)",
+    factor_name="d2", mean_factor=d2, sd_factor=d3, statistic=lambda m, prev: m.range,
     chart=("r", "range", "Subgroup ranges"), points=("subgroup means", "mean"),
 )  # fmt: skip
 SD = SigmaBase(
-    words="average standard deviation", formula="s-bar/c4", term="s_i/c4(n_i)",
+    name="sd", words="average standard deviation", formula="s-bar/c4", term="s_i/c4(n_i)",
     factor_name="c4", mean_factor=c4, sd_factor=_sd_of_sd, statistic=lambda m, prev: m.sd,
     chart=("s", "sd", "Subgroup standard deviations"), points=("subgroup means", "mean"),
 )  # fmt: skip
 MOVING_RANGE = SigmaBase(
-    words="average moving range", formula="MR-bar/d2", term="MR_i/d2(2)", factor_name="d2",
-    mean_factor=d2, sd_factor=d3, statistic=lambda m, prev: moving_range(m.mean, prev),
+    name="moving_range", words="average moving range", formula="MR-bar/d2", term="MR_i/d2(2)",
+    factor_name="d2", mean_factor=d2, sd_factor=d3,
+    statistic=lambda m, prev: moving_range(m.mean, prev),
     chart=("mr", "moving_range", "Moving ranges"), points=("individual values", "value"),
     moving=True,
 )  # fmt: skip
+#: The within-subgroup sigma estimators by name.
+ESTIMATORS = {base.name: base for base in (RANGE, SD, MOVING_RANGE)}
 
 
 def _overall_sigma(
@@ -291,21 +358,38 @@ def means_methods(
     return segment_methods(req.points, used, level_words, words)
 
 
+def _sigma_source(
+    req: ChartRequest, means: Means, used: np.ndarray, sigma_method: str
+) -> tuple[str, np.ndarray]:
+    """What gave a chart's sigma (``sigma_method`` unless sigma was given), and per segment
+    the effective degrees of freedom of a within-subgroup estimate from the ``used`` points
+    (NaN for other sigmas)."""
+    if req.sigma is not None:
+        return "given", np.full(req.points.n_seg, np.nan)
+    if sigma_method != "within":
+        return sigma_method, np.full(req.points.n_seg, np.nan)
+    return means.base.name, means.base.degrees_of_freedom(means.m, used, req.points)
+
+
 def describe_means(
     req: ChartRequest, means: Means, fit: Fit, used: np.ndarray, level_words: str,
     stat_words: str, statistic: str,
 ) -> Described:  # fmt: skip
+    estimator, sigma_df = _sigma_source(req, means, used, req.sigma_method)
     return Described(
         stat_words=stat_words,
         statistic=statistic,
         limits_words=means_limits_words(req, means),
         sigma_method="given" if req.sigma is not None else req.sigma_method,
         methods=means_methods(req, means, fit, used, level_words),
+        estimator=estimator,
+        sigma_df=sigma_df,
     )
 
 
 def _spread_chart(req: ChartRequest, means: Means, est: Estimate) -> ChartResult:
-    """The R, S or MR chart beside the chart of the means: beyond-limits rule only."""
+    """The R, S or MR chart beside the chart of the means: beyond-limits rule only, its limits
+    from the within-subgroup sigma whatever the chart of the means used."""
     base, fit, given = means.base, est.secondary, req.sigma is not None
     assert fit is not None
     r1 = req.rule_one
@@ -321,7 +405,9 @@ def _spread_chart(req: ChartRequest, means: Means, est: Estimate) -> ChartResult
     return ChartResult(
         kind=kind,
         points=points_table(req, plotted, means.m.n, est),
-        limits=limits_table(req.points, fit, methods),
+        limits=limits_table(
+            req.points, fit, methods, *_sigma_source(req, means, est.used, "within")
+        ),
         title=f"{words} of {req.value}, limits from {source_words}, {req.sigma_level:g} sigma, "
         f"beyond-limits rule only{split_words(req)}",
         statistic=statistic,
@@ -352,4 +438,5 @@ def variables_chart(req: ChartRequest) -> ChartResult:
         req, means, est.primary, est.used, plotted.method_level,
         f"{means.base.points[0].capitalize()} of {req.value}", means.base.points[1],
     )  # fmt: skip
-    return chart_result(req, est, plotted, means.m.n, described, _spread_chart(req, means, est))
+    secondary = _spread_chart(req, means, est)
+    return chart_result(req, est, plotted, means.m.n, described, secondary)

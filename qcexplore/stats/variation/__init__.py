@@ -24,6 +24,7 @@ per job:
 ``comparisons``           Tukey, level effects, analysis of means, Kruskal-Wallis, spread
 ``distributions``         the ANOM and studentized-range distributions they use
 ``offsets``               measurement offsets and the values with them taken off
+``removal``               :func:`remove_offsets`, the one way a study takes offsets off
 ``multivari``             the multi-vari table
 ``nesting``               nested factors, and labels that are probably nested
 ``timeline``              factor levels against changes in time; offsets safe for a step search
@@ -37,6 +38,7 @@ from qcexplore.stats.variation.analysis import variation
 from qcexplore.stats.variation.comparisons import ASSOCIATION_NOTE_V
 from qcexplore.stats.variation.multivari import multivari_table
 from qcexplore.stats.variation.offsets import adjusted_values, measurement_offsets
+from qcexplore.stats.variation.removal import remove_offsets
 from qcexplore.stats.variation.structure import CONFOUNDING_THRESHOLD, design_structure
 from qcexplore.stats.variation.timeline import step_safe_offsets, time_confounding
 
@@ -47,6 +49,7 @@ __all__ = [
     "design_structure",
     "measurement_offsets",
     "multivari_table",
+    "remove_offsets",
     "step_safe_offsets",
     "time_confounding",
     "variation",

@@ -159,7 +159,7 @@ def time_confounding(
     if time is not None and len(table):
         first = frame.groupby(subgroup, observed=True, sort=False)[time].min()
         starts = first.reindex(table["subgroup"]).to_numpy()
-    table.insert(4, "start", starts if starts is not None else pd.NaT)
+    table.insert(4, "start", pd.Series(starts if starts is not None else pd.NaT, index=table.index))
     return table.astype({"confounded": bool})
 
 

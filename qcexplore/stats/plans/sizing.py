@@ -1,51 +1,24 @@
-"""The next study that would settle a finding, sized from the measured variation.
-
-A finding says what the data suggest; a plan says what to collect so that the next data
-decide it:
-
-* a measurement offset between two measurement levels (two scales, two crews): measure the
-  same units on both (a paired comparison); ``comparison_plan("paired", ...)``;
-* a difference between streams (one nozzle, head or cavity against another): units from
-  each stream (a two-sample comparison); ``comparison_plan("two_sample", ...)``;
-* two factors that always go together (crew and shift): run every level of one with every
-  level of the other, and the two effects come apart; ``rotation_plan``;
-* a step change: the subgroups where it happened, to ask what changed then;
-  ``step_lookup``.
-
-The comparisons are sized for a two-sided t test at ``alpha``: the fewest units whose
-power, from the noncentral t distribution, reaches the planned power. Both comparisons
-estimate a difference of two single readings, whose sd is sqrt(2) times the sd of one
-reading (the repeatability for the same unit read twice, the within-stream sd for two
-units), so both have the standard error sqrt(2) sd / sqrt(n); the paired test has n - 1
-degrees of freedom, the two-sample test 2n - 2.
-"""
+"""Comparisons and rotations sized by the power of a two-sided t test (see the package notes)."""
 
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
 
-import numpy as np
-import pandas as pd
 from scipy import stats
 
 from qcexplore.data.coding import real_number
 from qcexplore.errors import QCDataError
+from qcexplore.stats.plans.checks import (
+    MOST_UNITS,
+    nonzero_difference,
+    plain_text,
+    power_and_alpha,
+    whole_number,
+)
+from qcexplore.stats.plans.words import amount, counted, percent, plural
 
-__all__ = [
-    "ComparisonPlan",
-    "RotationPlan",
-    "SampleSize",
-    "StepLookup",
-    "comparison_plan",
-    "rotation_plan",
-    "step_lookup",
-]
-
-#: The largest plan offered: a difference that needs more units is too small to settle.
-MOST_UNITS = 10**9
 #: Beyond this noncentrality the power is 1 to double precision (and scipy's series for the
 #: noncentral t no longer converge).
 _CERTAIN_NCP = 1e4
@@ -117,73 +90,6 @@ class RotationPlan:
     sentence: str
 
 
-@dataclass(frozen=True)
-class StepLookup:
-    """Where to look for the cause of a step: the first subgroup after it and its neighbours.
-
-    ``position`` (0-based), ``subgroup`` and ``time`` are the first subgroup after the step;
-    ``positions``, ``subgroups`` and ``times`` the subgroups around it in time order
-    (``times`` empty without times); ``changes`` the recorded factors whose level differs
-    between the last subgroup before the step and the first after it, as (factor, level
-    before, level after) labels.
-    """
-
-    position: int
-    subgroup: object
-    time: object
-    positions: tuple[int, ...]
-    subgroups: tuple[object, ...]
-    times: tuple[object, ...]
-    changes: tuple[tuple[str, str, str], ...]
-    sentence: str
-
-
-# --------------------------------------------------------------------------- checks
-
-
-def _whole(name: str, x: object, lowest: int) -> int:
-    value = real_number(name, x, lower=lowest, what="a whole number")
-    if not value.is_integer() or value > MOST_UNITS:
-        raise QCDataError(f"{name}={value:g}: give a whole number from {lowest} to {MOST_UNITS:,}.")
-    return int(value)
-
-
-def _text(name: str, x: object) -> str:
-    if not isinstance(x, str):
-        raise QCDataError(f"{name}={x!r:.60} is not text: give the words to use, as a string.")
-    return x
-
-
-def _difference(name: str, x: object) -> float:
-    value = abs(real_number(name, x))
-    if value == 0.0:
-        raise QCDataError(
-            f"{name}=0: a zero difference needs no study; give the difference to tell apart."
-        )
-    return value
-
-
-def _levels(power: object, alpha: object) -> tuple[float, float]:
-    # Below 1e-6 scipy's t quantiles for few degrees of freedom are no longer reliable, and
-    # no plan is made at such a level.
-    alpha = real_number("alpha", alpha, lower=1e-6, upper=0.5)
-    power = real_number("power", power, lower=alpha, upper=1, inclusive=False)
-    return power, alpha
-
-
-def _sequence(name: str, x: object) -> list[Any]:
-    ordered = (Sequence, np.ndarray, pd.Series, pd.Index, pd.api.extensions.ExtensionArray)
-    if isinstance(x, (str, bytes)) or not isinstance(x, ordered) or np.ndim(x) != 1:
-        raise QCDataError(
-            f"{name}={x!r:.60} is not a list of values: give one value per subgroup, in time "
-            "order (a list, an array or a column)."
-        )
-    return list(x)
-
-
-# --------------------------------------------------------------------------- power
-
-
 def _t_power(difference: float, se: float, df: float, alpha: float) -> float:
     """Power of the two-sided t test of a difference with standard error ``se``.
 
@@ -235,34 +141,6 @@ def _sizes(
         what,
     )
     return SampleSize(difference, n, se_of(n), _t_power(difference, se_of(n), df_of(n), alpha))
-
-
-# --------------------------------------------------------------------------- words
-
-
-def _amount(x: float, units: str) -> str:
-    """Three significant figures, thousands grouped, with the units."""
-    if abs(x) >= 1000:
-        text = f"{round(float(f'{x:.3g}')):,}"
-    else:
-        text = np.format_float_positional(x, precision=3, unique=False, fractional=False)
-        text = text.rstrip("0").rstrip(".") if "." in text else text
-    return f"{text} {units}" if units else text
-
-
-def _percent(power: float) -> str:
-    return f"{100 * power:.3g} %"
-
-
-def _plural(word: str) -> str:
-    return word if word.endswith("s") else f"{word}s"
-
-
-def _count(k: int, word: str) -> str:
-    return f"{k:,} {word if k == 1 else _plural(word)}"
-
-
-# --------------------------------------------------------------------------- plans
 
 
 @dataclass(frozen=True)
@@ -339,29 +217,30 @@ the measured repeatability of 0.3 g.'
             f"design={design!r:.60} is not a comparison: give one of {', '.join(_DESIGNS)}."
         )
     words = _DESIGNS[design]
-    measured = _difference("difference", difference)
+    measured = nonzero_difference("difference", difference)
     sd = real_number("sd", sd, lower=0, inclusive=False)
-    least = None if smallest is None else _difference("smallest", smallest)
-    power, alpha = _levels(power, alpha)
-    units = "" if units is None else _text("units", units)
-    verb, items = _text("verb", verb), _text("items", items)
-    where = words.where if where is None else _text("where", where)
+    least = None if smallest is None else nonzero_difference("smallest", smallest)
+    power, alpha = power_and_alpha(power, alpha)
+    units = "" if units is None else plain_text("units", units)
+    verb, items = plain_text("verb", verb), plain_text("items", items)
+    where = words.where if where is None else plain_text("where", where)
 
     def size(difference: float, name: str) -> SampleSize:
         what = f"telling {name}={difference:g} apart at sd={sd:g}"
         return _sizes(difference, sd, words.df, power, alpha, what)
 
     first = size(measured, "difference")
-    other = None if least is None else size(least, "smallest")
+    other = None
     sentence = (
         f"{verb[:1].upper()}{verb[1:]} {words.same}{first.n:,} {items} {where}: enough to "
-        f"tell {_amount(measured, units)} apart with {_percent(power)} power at "
-        f"{words.spread.format(sd=_amount(sd, units))}."
+        f"tell {amount(measured, units)} apart with {percent(power)} power at "
+        f"{words.spread.format(sd=amount(sd, units))}."
     )
-    if other is not None:
+    if least is not None:
+        other = size(least, "smallest")
         sentence += (
             f" {other.n:,} {items} would tell the smallest {words.difference} worth knowing, "
-            f"{_amount(least, units)}."
+            f"{amount(least, units)}."
         )
     return ComparisonPlan(design, sd, alpha, power, first, other, sentence)
 
@@ -421,20 +300,20 @@ def rotation_plan(
         raise QCDataError(
             f"factors={factors!r:.60} must be the names of the two confounded factors."
         )
-    first, second = _text("factors[0]", factors[0]), _text("factors[1]", factors[1])
+    first, second = plain_text("factors[0]", factors[0]), plain_text("factors[1]", factors[1])
     if not isinstance(levels, (tuple, list)) or len(levels) != 2:
         raise QCDataError(f"levels={levels!r:.60} must be the numbers of levels of both factors.")
-    a, b = _whole("levels[0]", levels[0], 2), _whole("levels[1]", levels[1], 2)
-    effect = _difference("effect", effect)
+    a, b = whole_number("levels[0]", levels[0], 2), whole_number("levels[1]", levels[1], 2)
+    effect = nonzero_difference("effect", effect)
     between = real_number("between_variance", between_variance, lower=0)
     within = real_number("within_sd", within_sd, lower=0)
-    m = _whole("subgroup_size", subgroup_size, 1)
-    power, alpha = _levels(power, alpha)
-    per_day = (
-        None if subgroups_per_day is None else _whole("subgroups_per_day", subgroups_per_day, 1)
-    )
-    units = "" if units is None else _text("units", units)
-    word = _text("subgroup_word", subgroup_word)
+    m = whole_number("subgroup_size", subgroup_size, 1)
+    power, alpha = power_and_alpha(power, alpha)
+    per_day = None
+    if subgroups_per_day is not None:
+        per_day = whole_number("subgroups_per_day", subgroups_per_day, 1)
+    units = "" if units is None else plain_text("units", units)
+    word = plain_text("subgroup_word", subgroup_word)
     # hypot: the sd of a subgroup mean without squaring sds near the float range's end.
     subgroup_sd = math.hypot(math.sqrt(between), within / math.sqrt(m))
     if not 0 < subgroup_sd < math.inf:
@@ -453,18 +332,18 @@ def rotation_plan(
         lambda k: _t_power(effect, se_of(k, b), df_of(k), alpha),
         power,
         1,
-        f"telling effect={effect:g} between two {_plural(first)} apart from the {second}",
+        f"telling effect={effect:g} between two {plural(first)} apart from the {second}",
     )
     days = None if per_day is None else -(-r // per_day)
     se = (se_of(r, b), se_of(r, a))
-    in_days = "" if days is None else f" ({_count(days, 'day')} each at {per_day} a day)"
+    in_days = "" if days is None else f" ({counted(days, 'day')} each at {per_day} a day)"
     sentence = (
         f"Run every {first} on every {second} ({a} x {b} = {a * b} pairings) for "
-        f"{_count(r, word)} each{in_days}, {_count(a * b * r, word)} in "
+        f"{counted(r, word)} each{in_days}, {counted(a * b * r, word)} in "
         f"all: the {first} effect is then measured apart from the {second} effect with a "
-        f"standard error of {_amount(se[0], units)} (the {second} effect: "
-        f"{_amount(se[1], units)}), enough to tell {_amount(effect, units)} with "
-        f"{_percent(power)} power."
+        f"standard error of {amount(se[0], units)} (the {second} effect: "
+        f"{amount(se[1], units)}), enough to tell {amount(effect, units)} with "
+        f"{percent(power)} power."
     )
     return RotationPlan(
         factors=(first, second),
@@ -481,99 +360,5 @@ def rotation_plan(
         power=_t_power(effect, se[0], df_of(r), alpha),
         target_power=power,
         alpha=alpha,
-        sentence=sentence,
-    )
-
-
-def _moment(time: object) -> str:
-    if isinstance(time, (pd.Timestamp, np.datetime64)) and pd.notna(time):
-        return f"{pd.Timestamp(time):%a %d %b %Y %H:%M}"
-    return str(time)
-
-
-def step_lookup(
-    subgroups: Sequence[object],
-    position: int,
-    *,
-    starts: Sequence[object] | None = None,
-    around: int = 2,
-    levels: Mapping[str, Sequence[object]] | None = None,
-    subgroup_word: str = "subgroup",
-) -> StepLookup:
-    """The subgroups to look at for the cause of a step: the first after it and its neighbours.
-
-    Parameters
-    ----------
-    subgroups : the subgroup labels in time order (``TimeResult.series["subgroup"]``)
-    position : the 0-based position of the first subgroup after the step
-        (``TimeResult.shifts["position"]``)
-    starts : the start time of each subgroup (``TimeResult.series["start"]``)
-    around : the subgroups to show on each side of the first one after the step
-    levels : the level of each recorded factor in each subgroup (factors constant inside
-        subgroups), to say which changed at the step
-    subgroup_word : the word for a subgroup in ``sentence``
-
-    Examples
-    --------
-    >>> look = step_lookup(["r1", "r2", "r3", "r4", "r5"], 3, around=1,
-    ...                    levels={"crew": ["A", "A", "A", "B", "B"]})
-    >>> look.subgroup, look.subgroups, look.changes
-    ('r4', ('r3', 'r4', 'r5'), (('crew', 'A', 'B'),))
-    """
-    labels = _sequence("subgroups", subgroups)
-    if len(labels) < 2:
-        raise QCDataError(
-            f"subgroups holds {len(labels)} label(s): a step needs subgroups before and after it."
-        )
-    at = _whole("position", position, 1)
-    if at >= len(labels):
-        raise QCDataError(
-            f"position={at} is past the last of the {len(labels)} subgroups: give the "
-            f"position of the first subgroup after the step, 1 to {len(labels) - 1}."
-        )
-    times = [] if starts is None else _sequence("starts", starts)
-    if starts is not None and len(times) != len(labels):
-        raise QCDataError(
-            f"starts has {len(times)} times for {len(labels)} subgroups: give one per subgroup."
-        )
-    side = _whole("around", around, 0)
-    if levels is not None and not isinstance(levels, Mapping):
-        raise QCDataError(
-            f"levels={levels!r:.60} must map each factor's name to its level in each subgroup."
-        )
-    changes = []
-    for factor, column in (levels or {}).items():
-        cells = _sequence(f"levels[{factor!r}]", column)
-        if len(cells) != len(labels):
-            raise QCDataError(
-                f"levels[{factor!r}] has {len(cells)} levels for {len(labels)} subgroups: "
-                "give one per subgroup."
-            )
-        before, after = str(cells[at - 1]), str(cells[at])
-        if before != after:
-            changes.append((str(factor), before, after))
-    word = _text("subgroup_word", subgroup_word)
-    window = range(max(0, at - side), min(len(labels), at + side + 1))
-
-    def named(i: int) -> str:
-        return f"{labels[i]}" + (f" ({_moment(times[i])})" if times else "")
-
-    sentence = f"Look first at {word} {named(at)}, the first after the step"
-    if len(window) > 1:
-        sentence += f", and at the {_plural(word)} from {named(window[0])} to {named(window[-1])}"
-    if changes:
-        moved = "; ".join(f"{f} changed from {x} to {y}" for f, x, y in changes)
-        sentence += f": {moved} there. Ask what else changed then."
-    else:
-        recorded = " (no recorded factor changed there)" if levels else ""
-        sentence += f": ask what changed then{recorded}."
-    return StepLookup(
-        position=at,
-        subgroup=labels[at],
-        time=times[at] if times else None,
-        positions=tuple(window),
-        subgroups=tuple(labels[i] for i in window),
-        times=tuple(times[i] for i in window) if times else (),
-        changes=tuple(changes),
         sentence=sentence,
     )
