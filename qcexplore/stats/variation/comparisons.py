@@ -209,6 +209,11 @@ def _mean_rows(fit: LevelFit, alpha: float) -> list[dict[str, object]]:
 
 
 def _kruskal_row(y: np.ndarray, codes: np.ndarray) -> dict[str, object]:
+    # Aligned values equal but for rounding in the fit (the same value less the same subgroup
+    # effect reached two ways) must tie in the ranks: keep 10 significant digits of the scale.
+    scale = float(np.max(np.abs(y))) if y.size else 0.0
+    if scale > 0 and np.isfinite(scale):
+        y = np.round(y, 9 - int(np.floor(np.log10(scale))))
     groups = np.split(y[np.argsort(codes, kind="stable")], np.cumsum(np.bincount(codes))[:-1])
     groups = [g for g in groups if g.size]
     try:
